@@ -1,0 +1,66 @@
+"""Shared fixtures: tiny synthetic rasters and scenarios written to a temporary folder."""
+
+from __future__ import annotations
+
+import textwrap
+from pathlib import Path
+
+import numpy as np
+import pytest
+import rasterio
+from rasterio.transform import from_origin
+
+UTM = "EPSG:32633"  # WGS 84 / UTM zone 33N, a projected CRS in metres
+
+
+def write_raster(path, data, *, crs=UTM, transform=None, nodata=-9999.0, dtype="float32"):
+    """Write a single-band (2-D) or multi-band (3-D) GeoTIFF and return its path."""
+    data = np.asarray(data)
+    if data.ndim == 2:
+        data = data[None]
+    if transform is None:
+        transform = from_origin(500_000.0, 4_000_000.0, 30.0, 30.0)
+    profile = dict(driver="GTiff", width=data.shape[2], height=data.shape[1],
+                   count=data.shape[0], dtype=dtype, transform=transform, nodata=nodata)
+    if crs is not None:
+        profile["crs"] = crs
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(data.astype(dtype))
+    return Path(path)
+
+
+@pytest.fixture
+def make_raster(tmp_path):
+    """Factory: ``make_raster(name, array, **kwargs)`` writes a GeoTIFF in tmp_path."""
+
+    def _make(name, data, **kwargs):
+        return write_raster(tmp_path / name, data, **kwargs)
+
+    return _make
+
+
+def suitability_array(ny=40, nx=60, seed=0):
+    """Two habitat blocks in a matrix, with a nodata corner outside the study area."""
+    rng = np.random.default_rng(seed)
+    s = np.full((ny, nx), 0.05)
+    s[5:20, 5:25] = 0.6 + 0.4 * rng.random((15, 20))
+    s[22:36, 35:55] = 0.5 + 0.5 * rng.random((14, 20))
+    s[:4, -6:] = -9999.0
+    return s
+
+
+@pytest.fixture
+def make_scenario(tmp_path):
+    """Factory: ``make_scenario(body, name)`` writes a scenario TOML beside a suitability raster.
+
+    ``body`` is TOML text; ``{suitability}`` in it is replaced by the path of a 40 x 60 raster of
+    30 m cells in UTM 33N (see :func:`suitability_array`).
+    """
+    suit = write_raster(tmp_path / "suitability.tif", suitability_array())
+
+    def _make(body, name="scenario.toml"):
+        path = tmp_path / name
+        path.write_text(textwrap.dedent(body).format(suitability=suit.name))
+        return path
+
+    return _make
