@@ -1,0 +1,121 @@
+"""Command line: parse, call the API, print. Exit 0 on success, 2 on a user error, 1 otherwise."""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import traceback
+import warnings
+from pathlib import Path
+
+from . import __version__
+from .errors import GridpopError, OutputExistsError
+
+
+def _scenario_with_overrides(args):
+    from .scenario import load_scenario
+
+    scenario = load_scenario(args.scenario)
+    overrides = {k: getattr(args, k) for k in ("years", "replicates", "seed")
+                 if getattr(args, k, None) is not None}
+    if overrides:
+        scenario = scenario.replace("run", **overrides)
+    return scenario
+
+
+def cmd_check(args) -> int:
+    from .engine import build_model, describe
+    from .landscape import build_landscape
+
+    scenario = _scenario_with_overrides(args)
+    landscape = build_landscape(scenario, stochastic=scenario.growth.stochastic)
+    model = build_model(scenario, landscape)
+    print("\n".join(describe(scenario, landscape, model)))
+    return 0
+
+
+def cmd_run(args) -> int:
+    from .engine import run
+
+    scenario = _scenario_with_overrides(args)
+    out = Path(args.out) if args.out else Path("results") / scenario.path.stem
+    show = not args.quiet and sys.stderr.isatty()
+    run(scenario, out, overwrite=args.overwrite, progress=show)
+    if not args.quiet:
+        print(f"results written to {out}")
+    return 0
+
+
+def cmd_init(args) -> int:
+    from .scenario import template_toml
+
+    folder = Path(args.dir)
+    target = folder / "scenario.toml"
+    if target.exists():
+        raise OutputExistsError(f"{target}: exists; remove it or choose another folder.")
+    folder.mkdir(parents=True, exist_ok=True)
+    target.write_text(template_toml())
+    print(f"wrote {target}: edit the paths and values, then run `gridpop check {target}`")
+    return 0
+
+
+def _add_run_overrides(p):
+    p.add_argument("--years", type=int, help="override [run] years")
+    p.add_argument("--replicates", type=int, help="override [run] replicates")
+    p.add_argument("--seed", type=int, help="override [run] seed")
+
+
+def parser() -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(prog="gridpop", description="Spatial grid population "
+                                 "simulator for conservation planning.")
+    ap.add_argument("--version", action="version", version=f"gridpop {__version__}")
+    sub = ap.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    p = sub.add_parser("check", help="validate a scenario and print what was understood")
+    p.add_argument("scenario")
+    _add_run_overrides(p)
+    p.set_defaults(func=cmd_check)
+
+    p = sub.add_parser("run", help="run a scenario")
+    p.add_argument("scenario")
+    p.add_argument("--out", help="output folder (default results/<scenario name>)")
+    _add_run_overrides(p)
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
+    p.set_defaults(func=cmd_run)
+
+    p = sub.add_parser("init", help="write a commented scenario template into DIR")
+    p.add_argument("dir")
+    p.set_defaults(func=cmd_init)
+    return ap
+
+
+def main(argv=None) -> int:
+    args = parser().parse_args(argv)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("default")
+            warnings.showwarning = _show_warning
+            return args.func(args)
+    except GridpopError as exc:
+        print(f"gridpop: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("gridpop: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # an internal error: say so, keep the details for a bug report
+        print(f"gridpop: internal error: {type(exc).__name__}: {exc}", file=sys.stderr)
+        if os.environ.get("GRIDPOP_DEBUG"):
+            traceback.print_exc()
+        else:
+            print("(set GRIDPOP_DEBUG=1 for the traceback)", file=sys.stderr)
+        return 1
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    print(f"gridpop: warning: {message}", file=sys.stderr)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,137 @@
+"""Writing results: GeoTIFF time stacks, ledger tables, the run manifest, the output folder.
+
+A run writes everything into a working folder beside the output folder
+(``.NAME.partial``) and renames it into place only when every file is whole, with ``run.json``
+(``"complete": true``) written last. A folder that lacks a complete manifest is not a result.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import os
+import shutil
+from pathlib import Path
+
+import numpy as np
+import rasterio
+
+from .errors import OutputExistsError
+
+NODATA = -9999.0
+
+LEDGER_FIELDS = ("abundance", "births", "deaths", "disturbance_deaths", "emigrants",
+                 "immigrants", "losses", "occupied_cells")
+"""Columns of timeseries.csv and patches.csv after the replicate, year (and patch) columns."""
+
+
+def working_folder(out_dir: Path) -> Path:
+    """The folder a run writes into before it is renamed to ``out_dir``."""
+    return out_dir.parent / f".{out_dir.name}.partial"
+
+
+def check_output(out_dir: Path, *, overwrite: bool) -> None:
+    """Refuse an existing output folder unless overwriting."""
+    if Path(out_dir).exists() and not overwrite:
+        raise OutputExistsError(
+            f"{out_dir}: output folder exists; choose another --out or pass --overwrite.")
+
+
+def prepare_output(out_dir: Path, *, overwrite: bool, resume: bool = False) -> Path:
+    """Check the output folder and return a clean working folder beside it."""
+    out_dir = Path(out_dir)
+    check_output(out_dir, overwrite=overwrite)
+    work = working_folder(out_dir)
+    if work.exists() and not resume:
+        shutil.rmtree(work)
+    work.mkdir(parents=True, exist_ok=True)
+    return work
+
+
+def publish(work: Path, out_dir: Path) -> None:
+    """Move the finished working folder into place (replacing an old result)."""
+    if out_dir.exists():
+        old = out_dir.parent / f".{out_dir.name}.old"
+        if old.exists():
+            shutil.rmtree(old)
+        os.replace(out_dir, old)
+        os.replace(work, out_dir)
+        shutil.rmtree(old)
+    else:
+        os.replace(work, out_dir)
+
+
+def stack_profile(grid, bands: int) -> dict:
+    """Profile of a float32 GeoTIFF stack on the grid: tiled, DEFLATE with float predictor."""
+    ny, nx = grid.shape
+    profile = dict(driver="GTiff", width=nx, height=ny, count=bands, dtype="float32",
+                   crs=grid.crs, transform=grid.transform, nodata=NODATA,
+                   compress="deflate", predictor=3, zlevel=6)
+    if nx >= 16 and ny >= 16:
+        block = 256 if min(nx, ny) >= 256 else 16 * (min(nx, ny) // 16)
+        profile.update(tiled=True, blockxsize=block, blockysize=block)
+    return profile
+
+
+def write_stack(path: Path, grid, mask: np.ndarray, bands, labels) -> None:
+    """Write a multi-band GeoTIFF one band at a time.
+
+    Parameters
+    ----------
+    bands : iterable of (ny, nx) arrays
+        Produced lazily (e.g. rows of a memory-mapped accumulator), so a stack never has to sit
+        whole in memory.
+    labels : sequence of str
+        Band descriptions, one per band (e.g. ``"year 3"``).
+    """
+    labels = list(labels)
+    outside = ~mask
+    with rasterio.open(path, "w", **stack_profile(grid, len(labels))) as dst:
+        for k, (band, label) in enumerate(zip(bands, labels, strict=True), start=1):
+            data = np.asarray(band, dtype=np.float32).copy()
+            data[outside] = NODATA
+            data[~np.isfinite(data)] = NODATA
+            dst.write(data, k)
+            dst.set_band_description(k, label)
+
+
+def year_labels(years: int) -> list[str]:
+    return [f"year {t}" for t in range(years + 1)]
+
+
+def write_ledger_csv(path: Path, ledger: np.ndarray, *, first_replicate: int = 0,
+                     patches: bool = False, integers: bool = True) -> None:
+    """Write ledger rows.
+
+    ``ledger`` has shape (replicates, years+1, F) for the landscape or
+    (replicates, years+1, P, F) for patches 1..P.
+    """
+    fmt = (lambda v: str(int(v))) if integers else (lambda v: f"{v:.12g}")
+    head = ["replicate", "year"] + (["patch"] if patches else []) + list(LEDGER_FIELDS)
+    with open(path, "w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow(head)
+        for r in range(ledger.shape[0]):
+            for t in range(ledger.shape[1]):
+                if patches:
+                    for p in range(ledger.shape[2]):
+                        w.writerow([first_replicate + r, t, p + 1]
+                                   + [fmt(v) for v in ledger[r, t, p]])
+                else:
+                    w.writerow([first_replicate + r, t] + [fmt(v) for v in ledger[r, t]])
+
+
+def write_json(path: Path, data: dict) -> None:
+    tmp = path.with_suffix(path.suffix + ".tmp")
+    tmp.write_text(json.dumps(data, indent=2, default=_jsonable) + "\n")
+    os.replace(tmp, path)
+
+
+def _jsonable(obj):
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, Path):
+        return str(obj)
+    raise TypeError(f"not JSON serialisable: {type(obj).__name__}")
