@@ -362,16 +362,13 @@ def write_results(work: Path, scenario, model: Model, landscape: Landscape,
     labels = year_labels(model.years)
     files = []
     wanted = scenario.output.rasters
-    stacks = {
-        "abundance": ("abundance.tif", lambda t: totals["sum_n"][t] / reps),
-        "occupancy": ("occupancy.tif", lambda t: totals["occupied"][t] / reps),
-        "colonised": ("colonised.tif", lambda t: totals["ever"][t] / reps),
-    }
-    for name, (fname, band) in stacks.items():
+    stacks = {"abundance": "sum_n", "occupancy": "occupied", "colonised": "ever"}
+    for name, acc in stacks.items():
         if name in wanted:
-            write_stack(work / fname, grid, mask, (band(t) for t in range(model.years + 1)),
-                        labels)
-            files.append(fname)
+            total = totals[acc]
+            write_stack(work / f"{name}.tif", grid, mask,
+                        (total[t] / reps for t in range(model.years + 1)), labels)
+            files.append(f"{name}.tif")
     ledger = np.concatenate([np.load(p / "ledger.npy") for p in parts], axis=0)
     write_ledger_csv(work / "timeseries.csv", ledger[:, :, 0, :], integers=model.stochastic)
     files.append("timeseries.csv")
