@@ -15,6 +15,7 @@ import dataclasses
 import difflib
 import hashlib
 import math
+import textwrap
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -31,7 +32,7 @@ class Key:
     """One scenario key: its type, default, unit, allowed values and documentation."""
 
     name: str
-    type: str  # "int", "float", "bool", "str", "path", "strlist"
+    type: str  # "int", "float", "bool", "str", "path", "strlist", "floatlist", "pathlist"
     default: Any
     doc: str
     unit: str = ""
@@ -52,12 +53,14 @@ class Key:
             "str": "a string",
             "path": "a file path (relative to the scenario file)",
             "strlist": "a list of strings",
+            "floatlist": "a number or a list of numbers",
+            "pathlist": "a file path or a list of file paths",
         }
         text = kinds[self.type]
         if self.low is not None or self.high is not None:
             lo = "" if self.low is None else f"{self.low:g} {'<' if self.low_open else '<='} "
             hi = "" if self.high is None else f" {'<' if self.high_open else '<='} {self.high:g}"
-            text += f" with {lo}value{hi}"
+            text += f" with {lo}{'values' if self.type == 'floatlist' else 'value'}{hi}"
         return text
 
 
@@ -177,6 +180,163 @@ SECTIONS: dict[str, tuple[str, tuple[Key, ...]]] = {
 }
 
 
+FIRE_SIZES = ("fraction", "exponential", "power_law")
+RECOVERY = ("linear", "exponential")
+
+
+def _effects(what: str) -> tuple[Key, ...]:
+    """Keys of what a disturbance event does to the cells it hits."""
+    return (
+        Key("mortality", "float", REQUIRED, f"Fraction of the individuals in a {what} cell that "
+            "die (binomial in stochastic mode).", low=0, high=1, example=0.5),
+        Key("capacity_loss", "float", 0.0, f"Fraction of a {what} cell's capacity lost in the "
+            "event year. A cell hit again before it recovers keeps the larger share: the "
+            "remaining loss L becomes 1 - (1 - L)(1 - capacity_loss).", low=0, high=1),
+        Key("recovery", "str", "linear", "How lost capacity comes back: linear (the loss "
+            "shrinks to 0 over recovery_years) or exponential (the loss shrinks by the factor e "
+            "every recovery_years).", choices=RECOVERY),
+        Key("recovery_years", "float", 10.0, "Years to full recovery (linear) or the time "
+            "constant of the recovery (exponential).", "years", low=0, low_open=True),
+    )
+
+
+DISTURBANCE_KINDS: dict[str, tuple[str, tuple[Key, ...]]] = {
+    "fire": (
+        "Fires ignite in each habitat patch as a Poisson process and spread from the ignition "
+        "cell over burnable cells until they reach a size drawn from the size distribution or run "
+        "out of fuel; they may cross into a neighbouring patch where burnable cells connect. The "
+        "yearly number of ignitions in a patch of area A has mean -ln(1 - 1/RI) h A / E[min(S, A)] "
+        "(RI the return interval, h the patch mean of the hazard, S the fire size): ignitions "
+        "scale with the patch area over the mean fire size, and a fire that burns the whole patch "
+        "comes with probability exactly 1/RI a year.",
+        (
+            Key("return_interval_years", "float", REQUIRED, "Fire cycle of a patch at hazard 1: "
+                "the mean number of years for fires to burn an area equal to the patch (so the "
+                "long-run fraction burned per year is 1 / return_interval_years).", "years",
+                low=1, low_open=True, example=50.0),
+            Key("size_distribution", "str", "fraction", "Fire size: fraction (a fixed fraction "
+                "of the ignition patch), exponential (mean mean_size_ha) or power_law (density "
+                "~ size^-size_exponent between min_size_ha and max_size_ha).",
+                choices=FIRE_SIZES),
+            Key("size_fraction", "float", 1.0, "Fire size as a fraction of the ignition "
+                "patch (size_distribution = fraction).", low=0, high=1, low_open=True),
+            Key("mean_size_ha", "float", None, "Mean fire size (size_distribution = "
+                "exponential).", "ha", low=0, low_open=True, example=20.0),
+            Key("min_size_ha", "float", None, "Smallest fire (size_distribution = power_law).",
+                "ha", low=0, low_open=True, example=1.0),
+            Key("max_size_ha", "float", None, "Largest fire (size_distribution = power_law).",
+                "ha", low=0, low_open=True, example=500.0),
+            Key("size_exponent", "float", None, "Exponent of the fire-size density "
+                "(size_distribution = power_law).", low=0, low_open=True, example=1.5),
+            Key("hazard", "path", None, "Fuel / flammability raster: relative ignition rate "
+                "(1 = the rate of return_interval_years) and spread probability min(1, hazard) "
+                "into a cell; 0 or nodata does not burn. Without it every habitat cell burns "
+                "with hazard 1 and other cells do not burn.", example="fuel.tif"),
+        ) + _effects("burned"),
+    ),
+    "flood": (
+        "Floods come in years with an annual exceedance probability 1 / return period. One "
+        "uniform number per replicate-year, shared by every patch, gives the year's return "
+        "period T = 1/u (regional, correlated events); the year floods when T reaches the "
+        "smallest return period given: the zone of the largest return period <= T (zones are "
+        "nested: each includes the smaller ones), or the terrain cells below the stage "
+        "interpolated at T (linear in ln T, not beyond the largest given).",
+        (
+            Key("return_period_years", "floatlist", REQUIRED, "Return period of each flood "
+                "magnitude, increasing (e.g. [10, 100]).", "years", low=1, low_open=True,
+                example=[10.0, 100.0]),
+            Key("zone", "pathlist", None, "Flood-zone layer of each magnitude: a raster (cells "
+                "> 0 flood) or a polygon file. Give zone or terrain.",
+                example=["flood10.gpkg", "flood100.gpkg"]),
+            Key("terrain", "path", None, "Elevation raster: cells below the year's stage flood. "
+                "Give zone or terrain.", example="dem.tif"),
+            Key("stage_m", "floatlist", None, "Water level of each magnitude, in the terrain's "
+                "units (with terrain), not decreasing.", "m", example=[2.0, 3.5]),
+        ) + _effects("flooded"),
+    ),
+}
+"""Disturbance kinds of ``[[disturbance]]``: kind -> (description, keys besides ``kind``)."""
+
+
+def _area(all_touched: bool) -> tuple[Key, ...]:
+    """Keys of the area an action applies to."""
+    return (
+        Key("area", "path", REQUIRED, "Where the action applies: a vector file (polygons, "
+            "lines) or a raster (cells > 0).", example="action.gpkg"),
+        Key("buffer_m", "float", 0.0, "Buffer vector features by this distance first (gives "
+            "lines a width). Vector areas only.", "m", low=0),
+        Key("all_touched", "bool", all_touched, "Take every cell a vector feature touches, not "
+            "only cells whose centre it covers."),
+    )
+
+
+_SCHEDULE = (
+    Key("start_year", "int", 0, "First year of the change: year t is the step from census year t "
+        "to t+1 (0 = the first step).", "year", low=0),
+)
+
+ACTION_KINDS: dict[str, tuple[str, tuple[Key, ...]]] = {
+    "reserve": (
+        "Protects habitat: multiplies capacity, exempts the area from every habitat_loss action, "
+        "and may suppress fire.",
+        _area(False) + (
+            Key("capacity_multiplier", "float", 1.0, "Multiplier on the capacity of the area.",
+                low=0),
+            Key("ignition_multiplier", "float", 1.0, "Multiplier on the fire ignition rate in "
+                "the area (fire suppression < 1).", low=0),
+            Key("spread_multiplier", "float", 1.0, "Multiplier on the probability that a fire "
+                "spreads into a cell of the area.", low=0),
+        ),
+    ),
+    "corridor": (
+        "Sets or raises suitability along the area and lowers dispersal resistance there.",
+        _area(False) + (
+            Key("target_suitability", "float", None, "Suitability along the corridor (cells "
+                "already better keep theirs). Not given: suitability unchanged.", low=0, high=1,
+                example=0.6),
+            Key("resistance_multiplier", "float", 1.0, "Multiplier on dispersal resistance in "
+                "the area (< 1 eases movement).", low=0, low_open=True),
+        ),
+    ),
+    "barrier": (
+        "A line or area dispersers cross only with a mortality (roads, fences).",
+        _area(True) + (
+            Key("crossing_mortality", "float", 1.0, "Probability that a disperser dies entering "
+                "a barrier cell (1 = impassable).", low=0, high=1),
+        ),
+    ),
+    "restoration": (
+        "Suitability rises in the area from start_year to target_suitability over ramp_years.",
+        _area(False) + (
+            Key("target_suitability", "float", REQUIRED, "Suitability reached (cells already "
+                "better keep theirs).", low=0, high=1, example=0.8),
+        ) + _SCHEDULE + (
+            Key("ramp_years", "int", 10, "Years from start_year to the full target (0 = at "
+                "once).", "years", low=0),
+        ),
+    ),
+    "habitat_loss": (
+        "Suitability falls in the area, outside every reserve, from start_year to "
+        "target_suitability over ramp_years.",
+        _area(False) + (
+            Key("target_suitability", "float", 0.0, "Suitability left (cells already worse "
+                "keep theirs).", low=0, high=1),
+        ) + _SCHEDULE + (
+            Key("ramp_years", "int", 0, "Years from start_year to the full loss (0 = at "
+                "once).", "years", low=0),
+        ),
+    ),
+}
+"""Management actions of ``[[action]]``: kind -> (description, keys besides ``kind``)."""
+
+ARRAY_SECTIONS: dict[str, tuple[str, dict[str, tuple[str, tuple[Key, ...]]]]] = {
+    "disturbance": ("Disturbance regimes, any number, each with a kind.", DISTURBANCE_KINDS),
+    "action": ("Management actions, any number, applied in the order given; a scenario is a base "
+               "landscape plus its actions.", ACTION_KINDS),
+}
+"""Array-of-tables sections (``[[name]]``): name -> (description, kinds)."""
+
+
 def _section_class(name: str, keys: tuple[Key, ...]):
     return dataclasses.make_dataclass(
         name.capitalize() + "Config", [(k.name, Any) for k in keys], frozen=True
@@ -184,6 +344,15 @@ def _section_class(name: str, keys: tuple[Key, ...]):
 
 
 CONFIG_CLASSES = {name: _section_class(name, keys) for name, (_, keys) in SECTIONS.items()}
+KIND_CLASSES = {
+    name: {kind: dataclasses.make_dataclass(
+        "".join(w.capitalize() for w in kind.split("_")) + "Config",
+        [("label", str), ("kind", str)] + [(k.name, Any) for k in keys], frozen=True)
+        for kind, (_, keys) in kinds.items()}
+    for name, (_, kinds) in ARRAY_SECTIONS.items()
+}
+"""Frozen config class of each kind; ``label`` (e.g. ``"disturbance #2 (flood)"``) locates the
+table in messages (pass it as the section to :func:`gridpop.errors.where`)."""
 
 
 @dataclass(frozen=True)
@@ -238,6 +407,17 @@ def _check_value(file, section: str, key: Key, value):
     elif key.type in ("str", "path"):
         if not isinstance(value, str) or not value:
             raise ScenarioError(bad)
+    elif key.type == "floatlist":
+        items = value if isinstance(value, list) else [value]
+        if not items:
+            raise ScenarioError(bad)
+        one = dataclasses.replace(key, type="float")
+        return tuple(_check_value(file, section, one, v) for v in items)
+    elif key.type == "pathlist":
+        items = value if isinstance(value, list) else [value]
+        if not items or not all(isinstance(v, str) and v for v in items):
+            raise ScenarioError(bad)
+        return tuple(items)
     elif key.type == "strlist":
         if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
             raise ScenarioError(bad)
@@ -275,19 +455,26 @@ def parse_section(file: Path, section: str, table: dict) -> Any:
     for name in table:
         if name not in known:
             raise ScenarioError(_unknown(file, section, name, known))
+    return CONFIG_CLASSES[section](**_values(file, section, keys, table))
+
+
+def _values(file: Path, section: str, keys: tuple[Key, ...], table: dict) -> dict:
+    """Checked values of every key of a table (defaults filled in, paths resolved)."""
     values = {}
     for key in keys:
         if key.name in table:
             value = _check_value(file, section, key, table[key.name])
             if key.type == "path":
                 value = _resolve_path(file, section, key.name, value)
+            elif key.type == "pathlist":
+                value = tuple(_resolve_path(file, section, key.name, v) for v in value)
         elif key.default is REQUIRED:
             raise ScenarioError(f"{where(file, section, key.name)} is required: "
                                 f"{key.doc} Expected {key.allowed()}.")
         else:
             value = tuple(key.default) if isinstance(key.default, list) else key.default
         values[key.name] = value
-    return CONFIG_CLASSES[section](**values)
+    return values
 
 
 def _cross_checks(file: Path, s: dict) -> dict:
@@ -310,6 +497,93 @@ def _cross_checks(file: Path, s: dict) -> dict:
 
 EXTRA_PARSERS: dict[str, Any] = {}
 """Parsers for array-of-tables sections (``[[name]]``): name -> function(file, list) -> value."""
+
+
+def _fire_checks(file: Path, c) -> None:
+    needs = {"fraction": ("size_fraction",), "exponential": ("mean_size_ha",),
+             "power_law": ("min_size_ha", "max_size_ha", "size_exponent")}
+    for name in needs[c.size_distribution]:
+        if getattr(c, name) is None:
+            raise ScenarioError(f"{where(file, c.label, name)} is required with "
+                                f"size_distribution = {c.size_distribution!r}.")
+    for dist, names in needs.items():
+        if dist != c.size_distribution and dist != "fraction":
+            for name in names:
+                if getattr(c, name) is not None:
+                    raise ScenarioError(
+                        f"{where(file, c.label, name)} is only used with size_distribution = "
+                        f"{dist!r} (this fire has {c.size_distribution!r}).")
+    if c.size_distribution == "power_law" and not c.min_size_ha < c.max_size_ha:
+        raise ScenarioError(f"{where(file, c.label)}: min_size_ha = {c.min_size_ha:g} must be "
+                            f"below max_size_ha = {c.max_size_ha:g}.")
+
+
+def _flood_checks(file: Path, c) -> None:
+    t = c.return_period_years
+    if any(b <= a for a, b in zip(t, t[1:], strict=False)):
+        raise ScenarioError(f"{where(file, c.label, 'return_period_years')} = {list(t)}: "
+                            f"return periods must increase.")
+    if (c.zone is None) == (c.terrain is None):
+        raise ScenarioError(f"{where(file, c.label)}: give either zone (flood-zone layers) or "
+                            f"terrain with stage_m, not {'both' if c.zone else 'neither'}.")
+    if c.terrain is None and c.stage_m is not None:
+        raise ScenarioError(f"{where(file, c.label, 'stage_m')} is only used with terrain.")
+    lists = ("zone", c.zone) if c.zone is not None else ("stage_m", c.stage_m)
+    if lists[1] is None:
+        raise ScenarioError(f"{where(file, c.label, 'stage_m')} is required with terrain: one "
+                            f"water level per return period.")
+    if len(lists[1]) != len(t):
+        raise ScenarioError(f"{where(file, c.label, lists[0])}: {len(lists[1])} values for "
+                            f"{len(t)} return periods {list(t)}; give one per return period.")
+    if c.stage_m is not None and any(b < a for a, b in zip(c.stage_m, c.stage_m[1:],
+                                                           strict=False)):
+        raise ScenarioError(f"{where(file, c.label, 'stage_m')} = {list(c.stage_m)}: stages "
+                            f"must not decrease with the return period.")
+
+
+KIND_CHECKS = {"fire": _fire_checks, "flood": _flood_checks}
+"""Checks across the keys of one kind, after each key is valid on its own."""
+
+
+def _array_parser(name: str):
+    doc, kinds = ARRAY_SECTIONS[name]
+    known = ", ".join(repr(k) for k in kinds)
+
+    def parse(file: Path, raw) -> tuple:
+        if not isinstance(raw, list) or not all(isinstance(t, dict) for t in raw):
+            raise ScenarioError(f"{file}: [{name}] must be an array of tables: write "
+                                f"[[{name}]] above each entry.")
+        out = []
+        for i, table in enumerate(raw, 1):
+            kind = table.get("kind")
+            loc = where(file, f"{name} #{i}", "kind")
+            if kind is None:
+                raise ScenarioError(f"{loc} is required; known kinds: {known}.")
+            if kind not in kinds:
+                guess = difflib.get_close_matches(str(kind), list(kinds), n=1)
+                hint = f" (did you mean {guess[0]!r}?)" if guess else ""
+                raise ScenarioError(f"{loc} = {kind!r} is not known{hint}; known kinds: "
+                                    f"{known}.")
+            label = f"{name} #{i} ({kind})"
+            keys = kinds[kind][1]
+            body = {k: v for k, v in table.items() if k != "kind"}
+            names = {k.name: k for k in keys}
+            for key in body:
+                if key not in names:
+                    raise ScenarioError(_unknown(file, label, key, names))
+            config = KIND_CLASSES[name][kind](label=label, kind=kind,
+                                              **_values(file, label, keys, body))
+            if kind in KIND_CHECKS:
+                KIND_CHECKS[kind](file, config)
+            out.append(config)
+        return tuple(out)
+
+    parse.__doc__ = f"Parse the [[{name}]] tables into a tuple of frozen configs. {doc}"
+    return parse
+
+
+for _name in ARRAY_SECTIONS:
+    EXTRA_PARSERS[_name] = _array_parser(_name)
 
 
 def load_scenario(path) -> Scenario:
@@ -356,41 +630,71 @@ def _toml_value(v) -> str:
     return repr(v)
 
 
+def _key_lines(keys: tuple[Key, ...]) -> list[str]:
+    """Template lines of some keys: each key's doc, then the key (commented out unless required)."""
+    lines = []
+    for k in keys:
+        unit = f" [{k.unit}]" if k.unit else ""
+        lines.append(f"# {k.doc}{unit}")
+        if k.default is REQUIRED:
+            lines.append(f"{k.name} = {_toml_value(k.example)}")
+        elif k.default is None:
+            if k.example is not None:
+                lines.append(f"# {k.name} = {_toml_value(k.example)}")
+            else:
+                lines.append(f"# {k.name} = ...")
+        else:
+            lines.append(f"# {k.name} = {_toml_value(k.default)}")
+    return lines
+
+
 def template_toml() -> str:
-    """A commented scenario template generated from the schema (``gridpop init``)."""
+    """A commented scenario template generated from the schema (``gridpop init``).
+
+    The ``[[disturbance]]`` and ``[[action]]`` examples are commented out as a whole: removing one
+    leading ``# `` from the lines of an example gives a table with its required keys set and its
+    optional keys (at their defaults) still commented out.
+    """
     lines = ["# gridpop scenario. Paths are relative to this file.",
              "# Every key is documented in docs/scenario.md; defaults are shown commented out.", ""]
     for name, (doc, keys) in SECTIONS.items():
         lines.append(f"[{name}]  # {doc}")
-        for k in keys:
-            unit = f" [{k.unit}]" if k.unit else ""
-            lines.append(f"# {k.doc}{unit}")
-            if k.default is REQUIRED:
-                lines.append(f"{k.name} = {_toml_value(k.example)}")
-            elif k.default is None:
-                if k.example is not None:
-                    lines.append(f"# {k.name} = {_toml_value(k.example)}")
-                else:
-                    lines.append(f"# {k.name} = ...")
-            else:
-                lines.append(f"# {k.name} = {_toml_value(k.default)}")
+        lines += _key_lines(keys)
         lines.append("")
+    for name, (doc, kinds) in ARRAY_SECTIONS.items():
+        lines += ["# " + line for line in
+                  textwrap.wrap(f"{doc} Known kinds: {', '.join(kinds)}.", 96)] + [""]
+        for kind, (kind_doc, keys) in kinds.items():
+            block = [f"[[{name}]]"]
+            block += ["# " + line for line in textwrap.wrap(kind_doc, 96)]
+            block.append(f"kind = {_toml_value(kind)}")
+            block += _key_lines(keys)
+            lines += ["# " + line for line in block] + [""]
     return "\n".join(lines)
+
+
+def _key_table(keys: tuple[Key, ...]) -> list[str]:
+    out = ["| key | unit | default | allowed | meaning |", "|---|---|---|---|---|"]
+    for k in keys:
+        default = ("required" if k.default is REQUIRED
+                   else "-" if k.default is None else _toml_value(k.default))
+        out.append(f"| `{k.name}` | {k.unit or '-'} | {default} | {k.allowed()} | {k.doc} |")
+    return out
 
 
 def reference_markdown() -> str:
     """The scenario reference (docs/scenario.md) generated from the schema."""
     out = ["# Scenario reference", "",
-           "Generated from `gridpop/scenario.py` (`python -m gridpop.scenario > docs/scenario.md`).",
+           "Generated from `gridpop/scenario.py` "
+           "(`python -m gridpop.scenario > docs/scenario.md`).",
            "Paths are relative to the scenario file.", ""]
     for name, (doc, keys) in SECTIONS.items():
-        out += [f"## [{name}]", "", doc, "", "| key | unit | default | allowed | meaning |",
-                "|---|---|---|---|---|"]
-        for k in keys:
-            default = ("required" if k.default is REQUIRED
-                       else "-" if k.default is None else _toml_value(k.default))
-            out.append(f"| `{k.name}` | {k.unit or '-'} | {default} | {k.allowed()} | {k.doc} |")
-        out.append("")
+        out += [f"## [{name}]", "", doc, ""] + _key_table(keys) + [""]
+    for name, (doc, kinds) in ARRAY_SECTIONS.items():
+        out += [f"## [[{name}]]", "", f"{doc} Each table needs `kind`, one of "
+                f"{', '.join(f'`{k!r}`' for k in kinds)}; the other keys depend on the kind.", ""]
+        for kind, (kind_doc, keys) in kinds.items():
+            out += [f"### kind = \"{kind}\"", "", kind_doc, ""] + _key_table(keys) + [""]
     return "\n".join(out)
 
 
