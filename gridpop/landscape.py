@@ -214,7 +214,8 @@ def align_raster(path: Path, grid: Grid, *, kind: str, file: Path, section: str,
         The target grid.
     kind : {'continuous', 'categorical', 'count'}
         ``continuous``: bilinear interpolation, or the average of the covered cells when the grid
-        is coarser than the source (cells more than ``COARSER`` times wider). ``categorical``:
+        is coarser than the source (cells more than ``COARSER`` times wider, the source cell
+        measured as its share of the source footprint in the grid CRS). ``categorical``:
         nearest cell, or the most common value when coarser. ``count``: the overlap-weighted sum,
         so totals are preserved.
     file, section, key
@@ -252,9 +253,8 @@ def align_raster(path: Path, grid: Grid, *, kind: str, file: Path, section: str,
         raise InputDataError(
             f"{loc}: the raster does not overlap the grid. Raster bounds in the grid CRS "
             f"{_fmt_bounds(on_grid)}, grid bounds {_fmt_bounds(g)} ({_crs_name(grid.crs)}).")
-    native, _, _ = rasterio.warp.calculate_default_transform(
-        src_crs, grid.crs, data.shape[1], data.shape[0], *src_bounds)
-    ratio = math.sqrt(abs(grid.transform.a * grid.transform.e) / abs(native.a * native.e))
+    src_cell = (on_grid[2] - on_grid[0]) * (on_grid[3] - on_grid[1]) / data.size
+    ratio = math.sqrt(abs(grid.transform.a * grid.transform.e) / src_cell)
     method = _resampling(kind, ratio > COARSER)
     out = np.full(grid.shape, np.nan)
     rasterio.warp.reproject(data, out, src_transform=src_transform, src_crs=src_crs,
