@@ -89,3 +89,136 @@ def normal(ckey, k):
     u1 = uniform(ckey, 2 * k)
     u2 = uniform(ckey, 2 * k + 1)
     return math.sqrt(-2.0 * math.log(u1)) * math.cos(2.0 * math.pi * u2)
+
+
+@njit
+def poisson(lam, ckey):
+    """A Poisson(lam) variate from the uniforms of one cell key.
+
+    Parameters
+    ----------
+    lam : float
+        Mean. ``lam <= 0`` (and NaN) gives 0.
+    ckey : uint64
+        Cell key (:func:`cell_key`); its counters 0, 1, 2, ... are used.
+
+    Returns
+    -------
+    int
+        For ``lam < 10`` inversion by sequential search on ``uniform(ckey, 0)``; otherwise the
+        transformed rejection method PTRS, attempt m using ``uniform(ckey, 2m)`` and
+        ``uniform(ckey, 2m + 1)``.
+
+    References
+    ----------
+    Hoermann, W. (1993). The transformed rejection method for generating Poisson random
+    variables. Insurance: Mathematics and Economics 12, 39-45.
+    """
+    if not lam > 0.0:
+        return 0
+    if lam < 10.0:
+        u = uniform(ckey, 0)
+        k = 0
+        p = math.exp(-lam)
+        f = p
+        while u > f and p > 0.0:  # p underflows to 0 far in the tail: stops a rounding loop
+            k += 1
+            p *= lam / k
+            f += p
+        return k
+    slam = math.sqrt(lam)
+    loglam = math.log(lam)
+    b = 0.931 + 2.53 * slam
+    a = -0.059 + 0.02483 * b
+    log_invalpha = math.log(1.1239 + 1.1328 / (b - 3.4))
+    vr = 0.9277 - 3.6224 / (b - 2.0)
+    m = 0
+    while True:
+        u = uniform(ckey, 2 * m) - 0.5
+        v = uniform(ckey, 2 * m + 1)
+        m += 1
+        us = 0.5 - abs(u)
+        k = math.floor((2.0 * a / us + b) * u + lam + 0.43)
+        if us >= 0.07 and v <= vr:
+            return k
+        if k < 0 or (us < 0.013 and v > us):
+            continue
+        if (math.log(v) + log_invalpha - math.log(a / (us * us) + b)
+                <= -lam + k * loglam - math.lgamma(k + 1.0)):
+            return k
+
+
+@njit
+def binomial(n, p, ckey):
+    """A Binomial(n, p) variate from the uniforms of one cell key (exact).
+
+    Parameters
+    ----------
+    n : int
+        Number of trials (``n <= 0`` gives 0).
+    p : float
+        Success probability: ``p <= 0`` (and NaN) gives 0, ``p >= 1`` gives ``n``; ``p > 0.5`` is
+        drawn as ``n - Binomial(n, 1 - p)``.
+    ckey : uint64
+        Cell key (:func:`cell_key`); its counters 0, 1, 2, ... are used.
+
+    Returns
+    -------
+    int
+        For ``n p < 10`` inversion by sequential search on ``uniform(ckey, 0)``; otherwise the
+        transformed rejection method BTRS, attempt m using ``uniform(ckey, 2m)`` and
+        ``uniform(ckey, 2m + 1)``.
+
+    References
+    ----------
+    Hoermann, W. (1993). The generation of binomial random variates. Journal of Statistical
+    Computation and Simulation 46, 101-110.
+    """
+    if n <= 0 or not p > 0.0:
+        return 0
+    if p >= 1.0:
+        return n
+    if p > 0.5:
+        return n - _binomial_low(n, 1.0 - p, ckey)
+    return _binomial_low(n, p, ckey)
+
+
+@njit
+def _binomial_low(n, p, ckey):
+    """Binomial(n, p) for 0 < p <= 0.5."""
+    q = 1.0 - p
+    if n * p < 10.0:
+        u = uniform(ckey, 0)
+        ratio = p / q
+        a = (n + 1) * ratio
+        r = math.exp(n * math.log1p(-p))
+        f = r
+        k = 0
+        while u > f and k < n:
+            k += 1
+            r *= a / k - ratio
+            f += r
+        return k
+    spq = math.sqrt(n * p * q)
+    b = 1.15 + 2.53 * spq
+    a = -0.0873 + 0.0248 * b + 0.01 * p
+    c = n * p + 0.5
+    log_alpha = math.log((2.83 + 5.1 / b) * spq)
+    vr = 0.92 - 4.2 / b
+    lpq = math.log(p / q)
+    mode = math.floor((n + 1) * p)
+    h_mode = math.lgamma(mode + 1.0) + math.lgamma(n - mode + 1.0)
+    m = 0
+    while True:
+        u = uniform(ckey, 2 * m) - 0.5
+        v = uniform(ckey, 2 * m + 1)
+        m += 1
+        us = 0.5 - abs(u)
+        k = math.floor((2.0 * a / us + b) * u + c)
+        if k < 0 or k > n:
+            continue
+        if us >= 0.07 and v <= vr:
+            return k
+        if (math.log(v) + log_alpha - math.log(a / (us * us) + b)
+                <= h_mode - math.lgamma(k + 1.0) - math.lgamma(n - k + 1.0) + (k - mode) * lpq):
+            return k
