@@ -1,0 +1,596 @@
+"""Dispersal by a walk over a permeability surface: the resistance engine.
+
+A disperser does not jump: it walks from cell to cell, so roads, rivers and open farmland stop or
+kill it and hedgerows lead it. The engine mirrors the kernel engine of :mod:`gridpop.dispersal`
+(``dispersers -> arrivals, stayed, retained``) and adds a fourth output, the flow map ``visits``.
+
+Surfaces
+--------
+*Permeability* ``P`` (float64, ``(ny, nx)``) is the ease of entering a cell: ``P = 1 / R`` from a
+resistance raster ``R`` (:func:`permeability_from_resistance`; ``R = inf``, NaN or outside the grid
+= impassable, ``P = 0``). Without a resistance raster, ``R`` can be derived from habitat suitability
+``s`` (0..1) by ``R = 1 + (r_max - 1) (1 - s)^shape`` (:func:`resistance_from_suitability`): 1 in
+the best habitat, ``r_max`` in the worst, ``shape > 1`` keeps resistance low in middling habitat.
+*Quality* ``q`` (0..1, NaN = 0) is the habitat quality a walker uses to decide to settle.
+
+One walk
+--------
+A disperser leaves its cell and takes at least one and at most ``max_steps`` steps. Each step:
+
+1. **Direction.** It steps to one of its 8 neighbours ``b`` with probability proportional to
+   ``P(b) / len`` (``len`` = 1 for the 4 orthogonal, ``sqrt(2)`` for the 4 diagonal neighbours),
+   times ``exp(kappa (cos(theta) - 1))`` (that is, proportional to ``exp(kappa cos(theta))``)
+   where ``theta`` is the turn from its previous step (``kappa = persistence``; 0 = uncorrelated;
+   the first step has no previous direction). A cell with ``P = 0`` is never entered, and a
+   diagonal step is refused when both orthogonal cells it passes between are impassable, so a
+   barrier drawn as a diagonal line of cells also holds. A walker with no enterable neighbour is
+   lost where it stands.
+2. **Mortality.** It dies on entering cell ``b`` with probability
+   ``1 - exp(-mortality_per_resistance * R(b) * len)``: the hazard is the cost distance of the step
+   (resistance times length), 0 when the parameter is 0.
+3. **Settlement.** If alive, it settles in ``b`` with probability ``q(b) ** settle_shape``; never in
+   the matrix (``q = 0``).
+
+A walker still moving after ``max_steps`` steps dies. Lost walkers (mortality, trapped, out of
+steps) are the difference ``sum(dispersers) - sum(arrivals)``; ``lost``, when given, receives where
+they were lost. ``visits`` counts entries into each cell (a walker that dies on entering a cell has
+visited it; the start cell is not visited by leaving it).
+
+Reversibility
+-------------
+Without persistence, the step weight ``P(b) / len`` makes the walk a reversible Markov chain: with
+the symmetric edge conductance ``c_ab = P(a) P(b) / len_ab`` the transition is
+``c_ab / sum_b c_ab`` (``P(a)`` cancels), so the stationary measure is ``sum_b c_ab`` and the walk
+is the random walk of an electrical network with those conductances (Doyle and Snell 1984). Escape
+probabilities, hitting times and commute times are then set by effective resistances
+(Chandra et al. 1997), as in circuit-theory connectivity (McRae 2006).
+
+Modes
+-----
+*Stochastic* (:func:`disperse_walk_stochastic`): whole individuals. Walker ``w`` of cell ``(i, j)``
+draws its numbers from ``uniform(cell_key(cell_key(key, i * nx + j), w), c)`` with counters
+``c = 3t, 3t + 1, 3t + 2`` for the direction, mortality and settlement of step ``t``, so a walk does
+not depend on which thread runs it. Source rows run in a ``prange``; each thread adds into its own
+buffers, which are summed afterwards. All outputs are whole numbers, whose float64 sums are exact in
+any order, so results are bit-identical for any number of threads. ``stayed`` and ``retained`` are
+exact.
+
+*Deterministic* (:func:`disperse_walk_deterministic`): the expected densities of walkers still
+moving are propagated one step at a time (a Markov-chain redistribution), the exact expectation of
+the stochastic walk. With persistence the state is (cell, direction of the last step), 8 layers.
+Each target cell gathers from its neighbours (no write conflicts, same floating-point order for
+any thread count). The origin of a walker is not tracked: ``stayed = 0`` and ``retained = 0``, that
+is, a walker that settles back in its own cell or patch counts as an emigrant and an immigrant
+(:func:`patch_connectivity` gives the patch-to-patch probabilities).
+
+Memory: the deterministic engine keeps about 7 (no persistence) or 26 (persistence) float64 grids;
+the stochastic one 3 float64 grids per numba thread.
+
+References
+----------
+Doyle, P. G., and J. L. Snell. 1984. Random Walks and Electric Networks. Mathematical Association
+of America, Washington DC (from memory).
+
+Chandra, A. K., P. Raghavan, W. L. Ruzzo, R. Smolensky and P. Tiwari. 1997. The electrical
+resistance of a graph captures its commute and cover times. Computational Complexity 6:312-340
+(from memory).
+
+McRae, B. H. 2006. Isolation by resistance. Evolution 60:1551-1561.
+
+Kareiva, P. M., and N. Shigesada. 1983. Analyzing insect movement as a correlated random walk.
+Oecologia 56:234-238 (from memory).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import NamedTuple
+
+import numba
+import numpy as np
+from scipy import ndimage
+
+from ._jit import njit, pjit, prange
+from .errors import InputDataError, ScenarioError
+from .rng import cell_key, uniform
+
+# The 8 neighbour directions (row step, column step) and their lengths in cells.
+_DY = np.array([-1, -1, -1, 0, 0, 1, 1, 1], dtype=np.int64)
+_DX = np.array([-1, 0, 1, -1, 1, -1, 0, 1], dtype=np.int64)
+_LEN = np.sqrt(_DY**2 + _DX**2).astype(np.float64)
+_INV_SQRT2 = 1.0 / math.sqrt(2.0)
+
+
+@dataclass(frozen=True)
+class WalkParams:
+    """Parameters of the walk (see the module docstring for their meaning).
+
+    Parameters
+    ----------
+    max_steps : int
+        Largest number of steps of one walk (>= 1).
+    mortality_per_resistance : float
+        Hazard per unit of cost distance (resistance x step length); 0 = no mortality.
+    settle_shape : float
+        Settlement probability is ``quality ** settle_shape`` (> 0).
+    persistence : float
+        Concentration ``kappa`` of the turning angle, >= 0; 0 = uncorrelated walk.
+    """
+
+    max_steps: int
+    mortality_per_resistance: float = 0.0
+    settle_shape: float = 1.0
+    persistence: float = 0.0
+
+    def __post_init__(self):
+        checks = (
+            ("max_steps", isinstance(self.max_steps, (int, np.integer))
+             and not isinstance(self.max_steps, bool) and self.max_steps >= 1,
+             "an integer >= 1"),
+            ("mortality_per_resistance", _finite(self.mortality_per_resistance)
+             and self.mortality_per_resistance >= 0, "a finite number >= 0"),
+            ("settle_shape", _finite(self.settle_shape) and self.settle_shape > 0,
+             "a finite number > 0"),
+            ("persistence", _finite(self.persistence) and self.persistence >= 0,
+             "a finite number >= 0"),
+        )
+        for name, ok, allowed in checks:
+            if not ok:
+                raise ScenarioError(f"[dispersal] walk {name} must be {allowed}, got "
+                                    f"{getattr(self, name)!r}")
+
+
+def _finite(x) -> bool:
+    return isinstance(x, (int, float, np.integer, np.floating)) and math.isfinite(x)
+
+
+def permeability_from_resistance(r: np.ndarray) -> np.ndarray:
+    """Permeability ``P = 1 / R`` of a resistance raster.
+
+    Parameters
+    ----------
+    r : (ny, nx) ndarray
+        Resistance, > 0; ``inf`` or NaN mark impassable cells.
+
+    Returns
+    -------
+    (ny, nx) float64 ndarray
+        ``1 / r``, 0 where ``r`` is infinite or NaN.
+    """
+    r = np.asarray(r, dtype=np.float64)
+    bad = ~(np.isnan(r) | (r > 0))
+    if bad.any():
+        raise InputDataError(f"resistance: values must be > 0 (inf or NaN = impassable), got "
+                             f"{r[bad].min():g} in {int(bad.sum())} cell(s)")
+    with np.errstate(divide="ignore"):
+        p = 1.0 / r
+    p[np.isnan(p)] = 0.0
+    return p
+
+
+def resistance_from_suitability(s: np.ndarray, r_max: float, shape: float) -> np.ndarray:
+    """Resistance derived from habitat suitability: ``R = 1 + (r_max - 1) (1 - s) ** shape``.
+
+    Parameters
+    ----------
+    s : (ny, nx) ndarray
+        Suitability in [0, 1]; NaN (outside the study area) stays NaN, that is impassable.
+    r_max : float
+        Resistance of the least suitable habitat (``s = 0``), >= 1.
+    shape : float
+        Exponent, > 0; above 1 resistance stays low until suitability is poor.
+
+    Returns
+    -------
+    (ny, nx) float64 ndarray
+        Resistance, 1 where ``s = 1``.
+    """
+    if not (_finite(r_max) and r_max >= 1):
+        raise ScenarioError(f"[dispersal] resistance r_max must be a finite number >= 1, got "
+                            f"{r_max!r}")
+    if not (_finite(shape) and shape > 0):
+        raise ScenarioError(f"[dispersal] resistance shape must be a finite number > 0, got "
+                            f"{shape!r}")
+    s = np.asarray(s, dtype=np.float64)
+    bad = ~(np.isnan(s) | ((s >= 0) & (s <= 1)))
+    if bad.any():
+        raise InputDataError(f"suitability: values must be in [0, 1] or NaN, got "
+                             f"{s[bad][0]:g} in {int(bad.sum())} cell(s)")
+    return 1.0 + (r_max - 1.0) * (1.0 - s) ** shape
+
+
+class _Surfaces(NamedTuple):
+    """Per-cell arrays the kernels read, derived once from the inputs."""
+
+    perm: np.ndarray  # permeability, 0 = impassable
+    settle: np.ndarray  # settlement probability q ** settle_shape
+    surv1: np.ndarray  # survival of an orthogonal step into the cell
+    surv2: np.ndarray  # survival of a diagonal step into the cell
+
+    def crop(self, ys: slice, xs: slice) -> _Surfaces:
+        return _Surfaces(*(np.ascontiguousarray(a[ys, xs]) for a in self))
+
+
+def _surfaces(permeability, quality, params: WalkParams) -> _Surfaces:
+    perm = np.array(permeability, dtype=np.float64)
+    if perm.ndim != 2:
+        raise ValueError(f"permeability must be 2-D, got shape {perm.shape}")
+    perm[np.isnan(perm)] = 0.0
+    bad = ~(np.isfinite(perm) & (perm >= 0))
+    if bad.any():
+        raise InputDataError(f"permeability: values must be finite and >= 0 (0 or NaN = "
+                             f"impassable), got {perm[bad][0]:g} in {int(bad.sum())} cell(s)")
+    q = np.array(quality, dtype=np.float64)
+    _check_shape("quality", q, perm.shape)
+    q[np.isnan(q)] = 0.0
+    bad = ~((q >= 0) & (q <= 1))
+    if bad.any():
+        raise InputDataError(f"habitat quality: values must be in [0, 1] or NaN, got "
+                             f"{q[bad][0]:g} in {int(bad.sum())} cell(s)")
+    settle = np.where(q > 0, q, 0.0) ** params.settle_shape
+    resist = np.divide(1.0, perm, out=np.zeros_like(perm), where=perm > 0)
+    mu = params.mortality_per_resistance
+    return _Surfaces(perm, settle, np.exp(-mu * resist), np.exp(-mu * math.sqrt(2.0) * resist))
+
+
+def _turn_table(persistence: float) -> np.ndarray:
+    """Turning weights ``(rows, 8)``: row 0 = no previous step (all 1); with persistence, row
+    ``d + 1`` = previous step in direction ``d``, weight ``exp(kappa (cos(turn) - 1))``."""
+    if persistence == 0.0:
+        return np.ones((1, 8))
+    cos = (np.outer(_DY, _DY) + np.outer(_DX, _DX)) / np.outer(_LEN, _LEN)
+    return np.vstack([np.ones((1, 8)), np.exp(persistence * (cos - 1.0))])
+
+
+def _check_shape(name: str, a: np.ndarray, shape: tuple[int, ...]) -> None:
+    if a.shape != shape:
+        raise ValueError(f"{name} has shape {a.shape}, expected {shape}")
+
+
+def _check_dispersers(dispersers, shape, whole: bool) -> np.ndarray:
+    d = np.ascontiguousarray(dispersers, dtype=np.float64)
+    _check_shape("dispersers", d, shape)
+    if not (np.isfinite(d).all() and (d >= 0).all()):
+        raise ValueError("dispersers must be finite and >= 0")
+    if whole and not (d == np.floor(d)).all():
+        raise ValueError("dispersers must be whole numbers in stochastic mode")
+    return d
+
+
+def _check_labels(labels, n_patches: int, shape) -> np.ndarray:
+    lab = np.ascontiguousarray(labels, dtype=np.int32)
+    _check_shape("labels", lab, shape)
+    if lab.size and (lab.min() < 0 or lab.max() > n_patches):
+        raise ValueError(f"labels must be in 0..{n_patches}, got {lab.min()}..{lab.max()}")
+    return lab
+
+
+# --------------------------------------------------------------------------- numba kernels
+
+
+@njit
+def _step_weight(perm, y, x, k):
+    """Unnormalised weight ``P(target) / len`` of a step from (y, x) in direction k."""
+    ny, nx = perm.shape
+    ty = y + _DY[k]
+    tx = x + _DX[k]
+    if ty < 0 or ty >= ny or tx < 0 or tx >= nx:
+        return 0.0
+    p = perm[ty, tx]
+    if p <= 0.0:
+        return 0.0
+    if _DY[k] != 0 and _DX[k] != 0:
+        if perm[ty, x] <= 0.0 and perm[y, tx] <= 0.0:
+            return 0.0
+        return p * _INV_SQRT2
+    return p
+
+
+@njit
+def _norm(perm, y, x, turn, row):
+    z = 0.0
+    for k in range(8):
+        z += _step_weight(perm, y, x, k) * turn[row, k]
+    return z
+
+
+@njit
+def _pick(perm, y, x, turn, row, target):
+    """Direction whose cumulative weight first exceeds ``target`` (in [0, total))."""
+    acc = 0.0
+    last = -1
+    for k in range(8):
+        w = _step_weight(perm, y, x, k) * turn[row, k]
+        if w > 0.0:
+            acc += w
+            last = k
+            if target < acc:
+                return k
+    return last  # target rounded up to the total
+
+
+@pjit
+def _walk_stochastic(dispersers, perm, settle, surv1, surv2, labels, turn, max_steps, mortal,
+                     key, arrivals, visits, lost, retained, stayed):
+    ny, nx = perm.shape
+    persist = turn.shape[0] > 1
+    for i in prange(ny):
+        tid = numba.get_thread_id()
+        for j in range(nx):
+            n = np.int64(dispersers[i, j])
+            if n == 0:
+                continue
+            ck = cell_key(key, i * nx + j)
+            home = labels[i, j]
+            for w in range(n):
+                wk = cell_key(ck, w)
+                y = np.int64(i)
+                x = np.int64(j)
+                row = 0
+                settled = False
+                for t in range(max_steps):
+                    z = _norm(perm, y, x, turn, row)
+                    if z <= 0.0:
+                        break
+                    k = _pick(perm, y, x, turn, row, uniform(wk, 3 * t) * z)
+                    y += _DY[k]
+                    x += _DX[k]
+                    visits[tid, y, x] += 1.0
+                    if mortal:
+                        sv = surv2[y, x] if _DY[k] != 0 and _DX[k] != 0 else surv1[y, x]
+                        if uniform(wk, 3 * t + 1) >= sv:
+                            break
+                    s = settle[y, x]
+                    if s > 0.0 and uniform(wk, 3 * t + 2) < s:
+                        settled = True
+                        break
+                    if persist:
+                        row = k + 1
+                if settled:
+                    arrivals[tid, y, x] += 1.0
+                    if y == i and x == j:
+                        stayed[i, j] += 1.0
+                    if home > 0 and labels[y, x] == home:
+                        retained[tid, home] += 1.0
+                else:
+                    lost[tid, y, x] += 1.0
+
+
+@pjit
+def _inv_norm(perm, turn, out):
+    """``out[r] = 1 / sum_k weight_k turn[r, k]`` per cell, 0 where no neighbour can be entered."""
+    ny, nx = perm.shape
+    for i in prange(ny):
+        for j in range(nx):
+            for r in range(turn.shape[0]):
+                z = _norm(perm, i, j, turn, r)
+                out[r, i, j] = 1.0 / z if z > 0.0 else 0.0
+
+
+@pjit
+def _det_start(dispersers, invz, g, lost):
+    """Scaled start densities ``g = dispersers / norm``; trapped dispersers are lost."""
+    ny, nx = dispersers.shape
+    for i in prange(ny):
+        for j in range(nx):
+            d = dispersers[i, j]
+            g[0, i, j] = d * invz[0, i, j]
+            if invz[0, i, j] == 0.0:
+                lost[i, j] += d
+
+
+@pjit
+def _det_step(g, row0, perm, settle, surv1, surv2, turn, invz, last, g_next, arrivals, visits,
+              lost):
+    """One step of the expected walk.
+
+    ``g[l]`` holds the density of moving walkers in state layer ``l`` divided by the normaliser of
+    their turn row ``row0 + l``, so the flow into cell c from neighbour a = c - d_k is
+    ``weight_k(a) * sum_l g[l, a] * turn[row0 + l, k]``. Each target cell gathers its inflow,
+    removes the dead and the settled, and stores its own scaled density in ``g_next``: one layer per
+    arrival direction with persistence, a single layer without.
+    """
+    ny, nx = perm.shape
+    nl = g.shape[0]
+    persist = turn.shape[0] > 1
+    for i in prange(ny):
+        for j in range(nx):
+            for o in range(g_next.shape[0]):
+                g_next[o, i, j] = 0.0
+            if perm[i, j] <= 0.0:
+                continue
+            s = settle[i, j]
+            acc = 0.0
+            for k in range(8):
+                ay = i - _DY[k]
+                ax = j - _DX[k]
+                if ay < 0 or ay >= ny or ax < 0 or ax >= nx:
+                    continue
+                w = _step_weight(perm, ay, ax, k)
+                if w == 0.0:
+                    continue
+                f = 0.0
+                for layer in range(nl):
+                    f += g[layer, ay, ax] * turn[row0 + layer, k]
+                f *= w
+                if f == 0.0:
+                    continue
+                visits[i, j] += f
+                alive = f * (surv2[i, j] if _DY[k] != 0 and _DX[k] != 0 else surv1[i, j])
+                settled = alive * s
+                arrivals[i, j] += settled
+                lost[i, j] += f - alive
+                moving = alive - settled
+                if persist:
+                    if last or invz[k + 1, i, j] == 0.0:
+                        lost[i, j] += moving
+                    else:
+                        g_next[k, i, j] = moving * invz[k + 1, i, j]
+                else:
+                    acc += moving
+            if not persist:
+                if last or invz[0, i, j] == 0.0:
+                    lost[i, j] += acc
+                else:
+                    g_next[0, i, j] = acc * invz[0, i, j]
+
+
+# --------------------------------------------------------------------------- wrappers
+
+
+def _propagate(dispersers: np.ndarray, surf: _Surfaces, turn: np.ndarray, max_steps: int):
+    """Expected walk of ``dispersers``: (arrivals, visits, lost) maps."""
+    shape = dispersers.shape
+    layers = 8 if turn.shape[0] > 1 else 1
+    invz = np.empty((turn.shape[0],) + shape)
+    _inv_norm(surf.perm, turn, invz)
+    arrivals, visits, lost = np.zeros(shape), np.zeros(shape), np.zeros(shape)
+    buf_a, buf_b = np.zeros((layers,) + shape), np.zeros((layers,) + shape)
+    g = buf_a[:1]
+    _det_start(dispersers, invz, g, lost)
+    row0 = 0
+    for t in range(max_steps):
+        _det_step(g, row0, surf.perm, surf.settle, surf.surv1, surf.surv2, turn, invz,
+                  t == max_steps - 1, buf_b, arrivals, visits, lost)
+        buf_a, buf_b = buf_b, buf_a
+        g = buf_a
+        row0 = 1 if layers == 8 else 0
+    return arrivals, visits, lost
+
+
+def disperse_walk_deterministic(dispersers, permeability, quality, labels, n_patches: int,
+                                params: WalkParams, lost: np.ndarray | None = None):
+    """Expected redistribution of dispersers by the walk (Markov-chain propagation).
+
+    Parameters
+    ----------
+    dispersers : (ny, nx) float64 ndarray
+        Expected number leaving each cell.
+    permeability : (ny, nx) ndarray
+        ``P >= 0``, 0 or NaN = impassable.
+    quality : (ny, nx) ndarray
+        Habitat quality in [0, 1] (NaN = 0) driving settlement.
+    labels : (ny, nx) int32 ndarray
+        Patch labels, 0 = no patch.
+    n_patches : int
+        Number of patches.
+    params : WalkParams
+    lost : (ny, nx) float64 ndarray, optional
+        If given, the expected number lost in each cell (died, trapped or out of steps) is added.
+
+    Returns
+    -------
+    arrivals : (ny, nx) float64 ndarray
+        Expected number settling in each cell.
+    stayed : (ny, nx) float64 ndarray
+        Zeros: origins are not tracked in this mode (see the module docstring).
+    retained : (n_patches + 1,) float64 ndarray
+        Zeros, for the same reason.
+    visits : (ny, nx) float64 ndarray
+        Expected number of walker entries into each cell.
+    """
+    surf = _surfaces(permeability, quality, params)
+    d = _check_dispersers(dispersers, surf.perm.shape, whole=False)
+    _check_labels(labels, n_patches, surf.perm.shape)
+    arrivals, visits, lost_map = _propagate(d, surf, _turn_table(params.persistence),
+                                            params.max_steps)
+    if lost is not None:
+        lost += lost_map
+    return arrivals, np.zeros_like(arrivals), np.zeros(n_patches + 1), visits
+
+
+def disperse_walk_stochastic(dispersers, permeability, quality, labels, n_patches: int,
+                             params: WalkParams, key, lost: np.ndarray | None = None):
+    """Move whole dispersers, each on its own walk.
+
+    Parameters
+    ----------
+    dispersers : (ny, nx) float64 ndarray
+        Whole number of individuals leaving each cell.
+    permeability, quality, labels, n_patches, params
+        As in :func:`disperse_walk_deterministic`.
+    key : uint64
+        Year key of the walk, ``rng.year_key(seed, replicate, year, rng.STREAM_WALK)``.
+    lost : (ny, nx) float64 ndarray, optional
+        If given, the number lost in each cell (died, trapped or out of steps) is added.
+
+    Returns
+    -------
+    arrivals : (ny, nx) float64 ndarray
+        Number settling in each cell (whole numbers).
+    stayed : (ny, nx) float64 ndarray
+        Dispersers of each cell that settled back in that cell (included in ``arrivals``).
+    retained : (n_patches + 1,) float64 ndarray
+        ``retained[p]``: dispersers from patch p that settled in patch p (``retained[0] = 0``).
+    visits : (ny, nx) float64 ndarray
+        Number of walker entries into each cell.
+    """
+    surf = _surfaces(permeability, quality, params)
+    shape = surf.perm.shape
+    d = _check_dispersers(dispersers, shape, whole=True)
+    lab = _check_labels(labels, n_patches, shape)
+    nt = numba.get_num_threads()
+    arrivals, visits, lost_t = (np.zeros((nt,) + shape) for _ in range(3))
+    retained = np.zeros((nt, n_patches + 1))
+    stayed = np.zeros(shape)
+    _walk_stochastic(d, surf.perm, surf.settle, surf.surv1, surf.surv2, lab,
+                     _turn_table(params.persistence), int(params.max_steps),
+                     params.mortality_per_resistance > 0, np.uint64(key),
+                     arrivals, visits, lost_t, retained, stayed)
+    if lost is not None:
+        lost += lost_t.sum(axis=0)
+    return arrivals.sum(axis=0), stayed, retained.sum(axis=0), visits.sum(axis=0)
+
+
+def patch_connectivity(labels, n_patches: int, permeability, quality, params: WalkParams,
+                       weights=None) -> np.ndarray:
+    """Probability that a disperser leaving patch i settles in patch j, by the expected walk.
+
+    Parameters
+    ----------
+    labels : (ny, nx) int32 ndarray
+        Patch labels, 0 = no patch.
+    n_patches : int
+    permeability, quality, params
+        As in :func:`disperse_walk_deterministic`.
+    weights : (ny, nx) ndarray, optional
+        Where in its patch a disperser starts: proportional to ``weights`` (e.g. capacity K);
+        default uniform over the patch's cells.
+
+    Returns
+    -------
+    (n_patches, n_patches) float64 ndarray
+        Row i (patch i + 1): settlement probabilities in each patch, the diagonal included (return
+        to the home patch). A row sums to less than 1 by the share lost or settling outside
+        patches; a patch whose weights are all 0 has a row of zeros.
+
+    Notes
+    -----
+    Each patch's walk is computed on its bounding box widened by ``max_steps + 1`` cells, the
+    farthest a walker can reach, so the result is the same as on the full grid.
+    """
+    surf = _surfaces(permeability, quality, params)
+    shape = surf.perm.shape
+    lab = _check_labels(labels, n_patches, shape)
+    w = np.ones(shape) if weights is None else np.asarray(weights, dtype=np.float64)
+    _check_shape("weights", w, shape)
+    if not (np.isfinite(w).all() and (w >= 0).all()):
+        raise ValueError("weights must be finite and >= 0")
+    turn = _turn_table(params.persistence)
+    margin = params.max_steps + 1
+    out = np.zeros((n_patches, n_patches))
+    for p, box in enumerate(ndimage.find_objects(lab, max_label=n_patches), start=1):
+        if box is None:
+            continue
+        ys = slice(max(box[0].start - margin, 0), min(box[0].stop + margin, shape[0]))
+        xs = slice(max(box[1].start - margin, 0), min(box[1].stop + margin, shape[1]))
+        lab_w = lab[ys, xs]
+        start = np.where(lab_w == p, w[ys, xs], 0.0)
+        total = start.sum()
+        if total == 0.0:
+            continue
+        arrivals, _, _ = _propagate(start / total, surf.crop(ys, xs), turn, params.max_steps)
+        out[p - 1] = np.bincount(lab_w.ravel(), weights=arrivals.ravel(),
+                                 minlength=n_patches + 1)[1:]
+    return out
