@@ -101,6 +101,10 @@ _DX = np.array([-1, 0, 1, -1, 1, -1, 0, 1], dtype=np.int64)
 _LEN = np.sqrt(_DY**2 + _DX**2).astype(np.float64)
 _INV_SQRT2 = 1.0 / math.sqrt(2.0)
 
+SERIAL_CELLS = 32768
+"""Grids with fewer cells propagate the expected walk on one thread: there, starting a parallel
+region for each step costs more than the step."""
+
 
 @dataclass(frozen=True)
 class WalkParams:
@@ -398,42 +402,51 @@ def _det_step(g, row0, perm, settle, surv1, surv2, turn, invz, last, g_next, arr
         for j in range(nx):
             for o in range(g_next.shape[0]):
                 g_next[o, i, j] = 0.0
-            if perm[i, j] <= 0.0:
+            pc = perm[i, j]
+            if pc <= 0.0:
                 continue
             s = settle[i, j]
+            sv1 = surv1[i, j]
+            sv2 = surv2[i, j]
+            seen = 0.0
+            dead = 0.0
+            arrived = 0.0
             acc = 0.0
             for k in range(8):
                 ay = i - _DY[k]
                 ax = j - _DX[k]
                 if ay < 0 or ay >= ny or ax < 0 or ax >= nx:
                     continue
-                w = _step_weight(perm, ay, ax, k)
-                if w == 0.0:
-                    continue
+                diagonal = _DY[k] != 0 and _DX[k] != 0
+                if diagonal and perm[i, ax] <= 0.0 and perm[ay, j] <= 0.0:
+                    continue  # no corner cutting (as in _step_weight)
                 f = 0.0
                 for layer in range(nl):
                     f += g[layer, ay, ax] * turn[row0 + layer, k]
-                f *= w
                 if f == 0.0:
                     continue
-                visits[i, j] += f
-                alive = f * (surv2[i, j] if _DY[k] != 0 and _DX[k] != 0 else surv1[i, j])
+                f *= pc * _INV_SQRT2 if diagonal else pc
+                seen += f
+                alive = f * (sv2 if diagonal else sv1)
                 settled = alive * s
-                arrivals[i, j] += settled
-                lost[i, j] += f - alive
+                arrived += settled
+                dead += f - alive
                 moving = alive - settled
                 if persist:
                     if last or invz[k + 1, i, j] == 0.0:
-                        lost[i, j] += moving
+                        dead += moving
                     else:
                         g_next[k, i, j] = moving * invz[k + 1, i, j]
                 else:
                     acc += moving
             if not persist:
                 if last or invz[0, i, j] == 0.0:
-                    lost[i, j] += acc
+                    dead += acc
                 else:
                     g_next[0, i, j] = acc * invz[0, i, j]
+            visits[i, j] += seen
+            arrivals[i, j] += arrived
+            lost[i, j] += dead
 
 
 # --------------------------------------------------------------------------- wrappers
@@ -441,21 +454,27 @@ def _det_step(g, row0, perm, settle, surv1, surv2, turn, invz, last, g_next, arr
 
 def _propagate(dispersers: np.ndarray, surf: _Surfaces, turn: np.ndarray, max_steps: int):
     """Expected walk of ``dispersers``: (arrivals, visits, lost) maps."""
-    shape = dispersers.shape
-    layers = 8 if turn.shape[0] > 1 else 1
-    invz = np.empty((turn.shape[0],) + shape)
-    _inv_norm(surf.perm, turn, invz)
-    arrivals, visits, lost = np.zeros(shape), np.zeros(shape), np.zeros(shape)
-    buf_a, buf_b = np.zeros((layers,) + shape), np.zeros((layers,) + shape)
-    g = buf_a[:1]
-    _det_start(dispersers, invz, g, lost)
-    row0 = 0
-    for t in range(max_steps):
-        _det_step(g, row0, surf.perm, surf.settle, surf.surv1, surf.surv2, turn, invz,
-                  t == max_steps - 1, buf_b, arrivals, visits, lost)
-        buf_a, buf_b = buf_b, buf_a
-        g = buf_a
-        row0 = 1 if layers == 8 else 0
+    threads = numba.get_num_threads()
+    if dispersers.size < SERIAL_CELLS:
+        numba.set_num_threads(1)
+    try:
+        shape = dispersers.shape
+        layers = 8 if turn.shape[0] > 1 else 1
+        invz = np.empty((turn.shape[0],) + shape)
+        _inv_norm(surf.perm, turn, invz)
+        arrivals, visits, lost = np.zeros(shape), np.zeros(shape), np.zeros(shape)
+        buf_a, buf_b = np.zeros((layers,) + shape), np.zeros((layers,) + shape)
+        g = buf_a[:1]
+        _det_start(dispersers, invz, g, lost)
+        row0 = 0
+        for t in range(max_steps):
+            _det_step(g, row0, surf.perm, surf.settle, surf.surv1, surf.surv2, turn, invz,
+                      t == max_steps - 1, buf_b, arrivals, visits, lost)
+            buf_a, buf_b = buf_b, buf_a
+            g = buf_a
+            row0 = 1 if layers == 8 else 0
+    finally:
+        numba.set_num_threads(threads)
     return arrivals, visits, lost
 
 
