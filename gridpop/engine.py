@@ -240,8 +240,8 @@ def simulate_replicate(model: Model, replicate: int, sink: BatchSink, row: int) 
         if model.stochastic:
             step_stochastic(n, k, env, out, births, deaths, model.model_code, model.rate,
                             model.survival, model.theta, model.allee_cells,
-                            rng.year_key(model.seed, replicate, year, rng.STREAM_SURVIVAL),
-                            rng.year_key(model.seed, replicate, year, rng.STREAM_BIRTHS))
+                            _key(model, replicate, year, rng.STREAM_SURVIVAL),
+                            _key(model, replicate, year, rng.STREAM_BIRTHS))
         else:
             step_deterministic(n, k, env, out, births, deaths, model.model_code, model.rate,
                                model.survival, model.theta, model.allee_cells)
@@ -251,17 +251,20 @@ def simulate_replicate(model: Model, replicate: int, sink: BatchSink, row: int) 
         census(t)
 
 
+def _key(model: Model, replicate: int, year: int, stream: int) -> np.uint64:
+    return np.uint64(rng.year_key(model.seed, replicate, year, stream))
+
+
 def _disperse(model: Model, replicate: int, year: int, n: np.ndarray, settle: np.ndarray,
               row: np.ndarray) -> None:
     """Move dispersers in place in ``n`` and write the movement columns of one ledger row."""
     if model.stochastic:
         leaving = leaving_stochastic(n, model.capacity, model.fraction,
                                      model.density_dependence,
-                                     rng.year_key(model.seed, replicate, year,
-                                                  rng.STREAM_EMIGRATION))
+                                     _key(model, replicate, year, rng.STREAM_EMIGRATION))
         arrivals, stayed, retained = disperse_stochastic(
             leaving, settle, model.labels, model.n_patches, model.kernel, model.edge,
-            rng.year_key(model.seed, replicate, year, rng.STREAM_DISPERSAL))
+            _key(model, replicate, year, rng.STREAM_DISPERSAL))
     else:
         leaving = leaving_deterministic(n, model.capacity, model.fraction,
                                         model.density_dependence)

@@ -20,6 +20,8 @@ seed = 11
 [habitat]
 suitability = "{suitability}"
 capacity_per_ha = 40.0
+response = "threshold"
+threshold = 0.3
 
 [initial]
 fraction_of_capacity = 0.5
@@ -34,6 +36,11 @@ fraction = 0.2
 kernel = "gaussian"
 mean_distance_m = 60.0
 """
+
+
+def read_rows(path):
+    with open(path, newline="") as fh:
+        return list(csv.DictReader(fh))
 
 
 def run_cli(*args):
@@ -67,7 +74,7 @@ def test_run_writes_aligned_stacks_and_complete_manifest(make_scenario, tmp_path
     assert manifest["replicates"] == 3 and manifest["years"] == 5 and manifest["seed"] == 11
     assert set(manifest["files"]) >= {"abundance.tif", "timeseries.csv", "patches.csv"}
     assert not (tmp_path / ".res.partial").exists()
-    rows = list(csv.DictReader(open(out / "timeseries.csv")))
+    rows = read_rows(out / "timeseries.csv")
     assert len(rows) == 3 * 6
     assert set(rows[0]) >= {"replicate", "year", "abundance", "births", "deaths",
                             "emigrants", "immigrants", "losses", "occupied_cells"}
@@ -78,7 +85,7 @@ def test_mean_abundance_stack_matches_ledger(make_scenario, tmp_path):
     total abundance for the same year."""
     out = tmp_path / "res"
     assert run_cli("run", make_scenario(BASE), "--out", out, "--quiet") == 0
-    rows = list(csv.DictReader(open(out / "timeseries.csv")))
+    rows = read_rows(out / "timeseries.csv")
     with rasterio.open(out / "abundance.tif") as ds:
         for t in (1, 6):
             band = ds.read(t, masked=True)

@@ -22,6 +22,8 @@ batch_size = {batch}
 [habitat]
 suitability = "{{suitability}}"
 capacity_per_ha = 30.0
+response = "threshold"
+threshold = 0.3
 
 [initial]
 fraction_of_capacity = 0.6
@@ -44,12 +46,17 @@ edge = "absorbing"
 """
 
 
+def read_rows(path):
+    with open(path, newline="") as fh:
+        return list(csv.DictReader(fh))
+
+
 def scenario_text(stochastic=True, batch=2):
     return SCEN.format(stochastic="true" if stochastic else "false", batch=batch)
 
 
 def read_ledger(path, patches=False):
-    rows = list(csv.DictReader(open(path)))
+    rows = read_rows(path)
     key = ("replicate", "year", "patch") if patches else ("replicate", "year")
     return {tuple(int(r[k]) for k in key): np.array([float(r[f]) for f in LEDGER_FIELDS])
             for r in rows}
@@ -130,10 +137,11 @@ def test_outside_study_area_and_matrix_hold_nobody(make_scenario, tmp_path):
     gridpop.run(make_scenario(scenario_text()), out)
     with rasterio.open(tmp_path / "suitability.tif") as s:
         suit = s.read(1)
-    cap = np.where(suit >= 0, suit, 0) * 30.0 * 0.09
+    inside = suit != -9999.0
+    matrix = inside & (suit < 0.3)  # the threshold response gives these cells no capacity
+    assert matrix.sum() > 100
     with rasterio.open(out / "abundance.tif") as ds:
-        last = ds.read(ds.count)
-    assert np.all(last[suit == -9999.0] == ds.nodata)
-    # capacity is positive wherever suitability is positive here, so check the nodata corner and
-    # that abundance never sits where capacity is zero
-    assert np.all(last[(cap == 0) & (suit != -9999.0)] == 0)
+        stack = ds.read()
+    assert np.all(stack[:, ~inside] == ds.nodata)
+    assert np.all(stack[:, matrix] == 0)
+    assert stack[-1, inside & ~matrix].sum() > 0
