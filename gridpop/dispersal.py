@@ -1,0 +1,800 @@
+"""Dispersal: how many individuals leave their cell, and where they land.
+
+A kernel gives the probability that a disperser leaving the centre of a cell lands in each cell
+of a stencil around it. The weights are *cell-integrated*: the kernel's density integrated over
+each destination cell (not sampled at the cell centre, which biases the displacement distance on
+coarse grids), truncated at a maximum distance and renormalised to sum 1.
+
+Two engines move dispersers with a kernel:
+
+- :func:`disperse_deterministic` moves expected numbers: a convolution of the disperser field
+  with the kernel, by a direct stencil (small radius) or by FFT (large radius).
+- :func:`disperse_stochastic` moves whole individuals: each draws its own destination, so
+  individuals are conserved exactly.
+
+Grid edges: *absorbing* (what lands off the grid is lost) or *reflecting* (a destination off the
+grid is mirrored back across the grid boundary, repeatedly if the kernel reaches further than the
+grid is wide; mass is conserved).
+
+How many leave: :func:`leaving_deterministic` and :func:`leaving_stochastic`, a fraction
+``fraction * min(1, N / K) ** density_dependence`` of each cell's individuals.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numba
+import numpy as np
+import scipy.fft as sfft
+from scipy import ndimage
+from scipy.special import erf, lambertw, ndtr
+
+from . import rng
+from ._jit import njit, pjit, prange
+from .errors import ScenarioError, where
+
+KERNELS = {"gaussian": 0, "exponential": 1, "2dt": 2}
+"""Kernel shapes and their integer codes (keys equal :data:`gridpop.scenario.KERNELS`)."""
+
+EDGES = {"absorbing": 0, "reflecting": 1}
+"""Grid edge behaviours and their integer codes (keys equal :data:`gridpop.scenario.EDGES`)."""
+
+TAIL_MASS = 1e-6
+"""Default truncation: the distance at which the kernel's distance CDF reaches 1 - TAIL_MASS."""
+
+TWODT_CAP_MEANS = 50.0
+"""Cap of the default 2dt truncation, in mean distances. The 2dt tail is so fat that its 1 - 1e-6
+distance is 100 (p = 1.5) to 600 (p = 1) mean distances; at 50 means the mass beyond is 8e-6
+(p = 1.5) or 1.6e-4 (p = 1), and it is redistributed over the stencil by the renormalisation."""
+
+MIN_MEAN_CELLS = 0.1
+"""Smallest mean distance, in cells of the grid's shorter side."""
+
+FFT_FLOOR = 1e-12
+"""FFT output below FFT_FLOOR times its maximum is set to 0. Round-off of order 1e-16 ahead of an
+invasion front would otherwise be multiplied by the growth rate every year and move the front
+(the floor itself slows a front only by about pi^2 sigma^2 / (2 ln(1e-12)^2) = 0.0065 sigma per
+year, Brunet and Derrida 1997)."""
+
+# Crossover of the deterministic engine, measured with benchmarks/bench_dispersal.py on a
+# 2048 x 2048 grid, 2 numba threads (results in benchmarks/results/bench_dispersal.json): the
+# separable stencil (two 1-D passes, cost ~ 2 (2R + 1) per cell) beats the FFT (cost nearly flat
+# in R) up to R = 60 cells (gaussian sigma ~ 11 cells); the full 2-D stencil (cost ~ pi R^2 per
+# cell) only up to R = 6.
+STENCIL_MAX_RADIUS_SEPARABLE = 60
+STENCIL_MAX_RADIUS = 6
+
+# Stochastic engine: a cell's n dispersers are placed one by one (binary search of the kernel CDF,
+# ~log2(S) steps each, S = stencil cells with weight > 0) unless n >= MULTINOMIAL_PER_CELL * S, in
+# which case a sequential-binomial multinomial over the stencil (one binomial per stencil cell,
+# largest weights first) is cheaper. Measured with benchmarks/bench_dispersal.py.
+MULTINOMIAL_PER_CELL = 1.0
+
+_CACHE_SIZE = 16  # kernel transforms and stay fractions kept per kernel (grid shapes, sub-boxes)
+
+_GL_NODES, _GL_WEIGHTS = np.polynomial.legendre.leggauss(6)
+_GL_NODES = 0.5 * (_GL_NODES + 1.0)  # on [0, 1]
+_GL_WEIGHTS = 0.5 * _GL_WEIGHTS  # sum 1
+_GL_THETA_NODES, _GL_THETA_WEIGHTS = np.polynomial.legendre.leggauss(24)
+_GL_THETA_NODES = 0.5 * (_GL_THETA_NODES + 1.0)
+_GL_THETA_WEIGHTS = 0.5 * _GL_THETA_WEIGHTS
+
+
+@dataclass(frozen=True, eq=False)
+class Kernel:
+    """A dispersal kernel on the grid.
+
+    Attributes
+    ----------
+    kind : str
+        One of :data:`KERNELS`.
+    weights : (2R+1, 2R+1) ndarray of float64
+        Probability that a disperser from the centre cell lands in each cell (row offset
+        ``a - R``, column offset ``b - R``); cell-integrated, truncated and renormalised to sum 1.
+        Symmetric under flipping either axis.
+    radius : int
+        R = max(ry, rx), cells.
+    ry, rx : int
+        Reach of the stencil along rows and columns (differ when cells are not square).
+    separable : tuple of two ndarrays or None
+        ``(wy, wx)`` with ``weights[R-ry:R+ry+1, R-rx:R+rx+1] == outer(wy, wx)`` for the gaussian
+        kernel, else None.
+    mean_distance_m, max_distance_m : float
+        Mean displacement of the untruncated kernel and truncation distance, metres.
+    offsets : (S, 2) ndarray of int64
+        Row and column offsets of the S stencil cells with weight > 0, largest weight first.
+    cdf : (S,) ndarray of float64
+        Cumulative weights in that order; the last is exactly 1.
+    conditional : (S,) ndarray of float64
+        ``p_k / sum(p_k, p_k+1, ...)`` in that order (last 1): the success probabilities of the
+        sequential-binomial multinomial.
+    """
+
+    kind: str
+    weights: np.ndarray
+    radius: int
+    ry: int
+    rx: int
+    separable: tuple | None
+    mean_distance_m: float
+    max_distance_m: float
+    offsets: np.ndarray
+    cdf: np.ndarray
+    conditional: np.ndarray
+    _cache: dict = field(default_factory=dict, repr=False)
+
+    @property
+    def stencil(self) -> np.ndarray:
+        """The weights trimmed to (2 ry + 1, 2 rx + 1)."""
+        r = self.radius
+        return self.weights[r - self.ry:r + self.ry + 1, r - self.rx:r + self.rx + 1]
+
+    def _cached(self, key, make):
+        if key not in self._cache:
+            if len(self._cache) >= _CACHE_SIZE:
+                del self._cache[next(iter(self._cache))]
+            self._cache[key] = make()
+        return self._cache[key]
+
+
+# --------------------------------------------------------------------------------------------
+# Kernel construction
+
+
+def _scale(code: int, mean: float, p: float) -> float:
+    """Scale parameter from the mean displacement: sigma, a, or u (2dt)."""
+    if code == 0:
+        return mean / math.sqrt(math.pi / 2.0)  # Rayleigh mean sigma sqrt(pi / 2)
+    if code == 1:
+        return mean / 2.0  # distance ~ Gamma(2, a)
+    # Clark et al. (1999): mean = (sqrt(pi u) / 2) Gamma(p - 1/2) / Gamma(p)
+    root_u = 2.0 * mean * math.exp(math.lgamma(p) - math.lgamma(p - 0.5)) / math.sqrt(math.pi)
+    return root_u * root_u
+
+
+def _default_truncation(code: int, scale: float, p: float) -> float:
+    """Distance where the distance CDF reaches 1 - TAIL_MASS."""
+    if code == 0:
+        return scale * math.sqrt(-2.0 * math.log(TAIL_MASS))
+    if code == 1:  # e^-x (1 + x) = q  <=>  x = -W_-1(-q / e) - 1
+        return scale * (-lambertw(-TAIL_MASS / math.e, k=-1).real - 1.0)
+    return math.sqrt(scale * (TAIL_MASS ** (-1.0 / p) - 1.0))
+
+
+@njit
+def _radial_cdf(code, r, scale, p):
+    """Distance CDF of the radial kernels: exponential (code 1) or 2dt (code 2)."""
+    if code == 1:
+        x = r / scale
+        return -math.expm1(-x) - x * math.exp(-x)
+    return -math.expm1(-p * math.log1p(r * r / scale))
+
+
+@njit
+def _radial_density(code, r2, scale, p):
+    """Density per unit area at squared distance r2."""
+    if code == 1:
+        return math.exp(-math.sqrt(r2) / scale) / (2.0 * math.pi * scale * scale)
+    return p / (math.pi * scale) * math.exp(-(p + 1.0) * math.log1p(r2 / scale))
+
+
+@njit
+def _centre_cell_mass(code, scale, p, w, h, tn, tw):
+    """Mass of the cell centred on the origin, in polar coordinates (exact radial integral).
+
+    By symmetry 4 quadrants, each split at its corner into a triangle reaching the edge
+    x = w/2 (angles 0..atan(h/w)) and one reaching y = h/2; along a ray the radial integral is the
+    distance CDF at the edge. The remaining angular integrand is smooth: no trouble with the
+    exponential kernel's cusp at the origin.
+    """
+    tc = math.atan2(h, w)
+    s = 0.0
+    for q in range(tn.size):
+        t = tc * tn[q]
+        s += tw[q] * tc * _radial_cdf(code, 0.5 * w / math.cos(t), scale, p)
+        t = (0.5 * math.pi - tc) * tn[q]
+        s += tw[q] * (0.5 * math.pi - tc) * _radial_cdf(code, 0.5 * h / math.cos(t), scale, p)
+    return 2.0 / math.pi * s
+
+
+@pjit
+def _radial_cell_masses(code, scale, p, w, h, ry, rx, dmax, gn, gw, tn, tw):
+    """Unnormalised cell masses of a radial kernel over one quadrant (row offset ky = 0..ry,
+    column offset kx = 0..rx); cells whose centre is beyond dmax get 0.
+
+    Each cell is split into m x m sub-cells, each integrated with a 6 x 6 Gauss-Legendre rule; m
+    keeps sub-cells below half the local length scale of the density (a for the exponential,
+    sqrt(u + r^2) for the 2dt) and is at least 4 next to the centre, where the distance function's
+    complex branch points (x = +-i y) come close.
+    """
+    out = np.zeros((ry + 1, rx + 1))
+    big = max(w, h)
+    for ky in prange(ry + 1):
+        for kx in range(rx + 1):
+            if (ky * h) ** 2 + (kx * w) ** 2 > dmax * dmax * (1.0 + 1e-12):
+                continue
+            if ky == 0 and kx == 0:
+                out[0, 0] = _centre_cell_mass(code, scale, p, w, h, tn, tw)
+                continue
+            ny_ = max(0.0, (ky - 0.5) * h)
+            nx_ = max(0.0, (kx - 0.5) * w)
+            if code == 1:
+                length = scale
+            else:
+                length = math.sqrt(scale + ny_ * ny_ + nx_ * nx_)
+            m = min(64, max(1, int(math.ceil(big / (0.5 * length)))))
+            if ky <= 1 and kx <= 1:
+                m = max(m, 4)
+            sh = h / m
+            sw = w / m
+            s = 0.0
+            for sy in range(m):
+                for a in range(gn.size):
+                    y = (ky - 0.5) * h + (sy + gn[a]) * sh
+                    for sx in range(m):
+                        for b in range(gn.size):
+                            x = (kx - 0.5) * w + (sx + gn[b]) * sw
+                            s += gw[a] * gw[b] * _radial_density(code, x * x + y * y, scale, p)
+            out[ky, kx] = s * w * h / (m * m)
+    return out
+
+
+def _gaussian_axis(sigma: float, cell: float, r: int) -> np.ndarray:
+    """Cell-integrated 1-D gaussian over offsets -r..r, renormalised to sum 1."""
+    k = np.arange(1, r + 1)
+    half = np.empty(r + 1)
+    half[0] = erf(0.5 * cell / (sigma * math.sqrt(2.0)))
+    half[1:] = ndtr(-(k - 0.5) * cell / sigma) - ndtr(-(k + 0.5) * cell / sigma)
+    wts = np.concatenate([half[:0:-1], half])
+    return wts / wts.sum()
+
+
+def _mirror_quadrant(q: np.ndarray) -> np.ndarray:
+    """Full (2ry+1, 2rx+1) array from the quadrant ky, kx >= 0."""
+    top = np.concatenate([q[:, :0:-1], q], axis=1)
+    return np.concatenate([top[:0:-1], top], axis=0)
+
+
+def make_kernel(kind, *, mean_distance_m, tail=1.5, max_distance_m=None, cell_w_m, cell_h_m,
+                grid_shape=None, file="scenario") -> Kernel:
+    """Build the cell-integrated dispersal kernel for a grid.
+
+    Parameters
+    ----------
+    kind : {'gaussian', 'exponential', '2dt'}
+        Kernel shape, parameterised by the mean displacement distance D:
+
+        - gaussian: per-axis standard deviation sigma = D / sqrt(pi / 2) (the distance is
+          Rayleigh distributed);
+        - exponential: density exp(-r / a) / (2 pi a^2), a = D / 2 (distance Gamma(2, a));
+        - 2dt: density p / (pi u (1 + r^2 / u)^(p + 1)), p = ``tail``, with
+          D = (sqrt(pi u) / 2) Gamma(p - 1/2) / Gamma(p) (Clark et al. 1999).
+    mean_distance_m : float
+        Mean displacement distance D, metres; at least a tenth of the shorter cell side.
+    tail : float
+        Shape p of the 2dt kernel, > 0.5 (smaller = fatter tail). Ignored by the others.
+    max_distance_m : float, optional
+        Truncation distance, metres; at most the grid diagonal. The gaussian kernel is truncated
+        to the square |dx|, |dy| <= max distance (it stays separable), the others to cells whose
+        centre lies within the max distance. Default: the distance where the kernel's distance
+        CDF reaches 1 - 1e-6 (:data:`TAIL_MASS`), for the 2dt at most 50 mean distances
+        (:data:`TWODT_CAP_MEANS`), and at most the grid diagonal.
+    cell_w_m, cell_h_m : float
+        Cell width (along a row) and height, metres.
+    grid_shape : (int, int), optional
+        (ny, nx) of the grid, to check the truncation against the grid.
+    file : str or path
+        Scenario file named in error messages.
+
+    Returns
+    -------
+    Kernel
+
+    Raises
+    ------
+    ScenarioError
+        Unknown kind, mean distance <= 0 or below a tenth of a cell, 2dt tail <= 0.5, maximum
+        distance <= 0 or larger than the grid.
+
+    References
+    ----------
+    Clark, J. S., Silman, M., Kern, R., Macklin, E. and HilleRisLambers, J. (1999). Seed dispersal
+    near and far: patterns across temperate and tropical forests. Ecology 80, 1475-1494.
+    """
+    if kind not in KERNELS:
+        raise ScenarioError(f"{where(file, 'dispersal', 'kernel')} = {kind!r} is not a known "
+                            f"kernel; allowed: {', '.join(repr(k) for k in KERNELS)}.")
+    if not (cell_w_m > 0 and cell_h_m > 0):
+        raise ValueError(f"cell size must be positive, got {cell_w_m!r} x {cell_h_m!r} m")
+    code = KERNELS[kind]
+    mean = float(mean_distance_m)
+    cell = min(cell_w_m, cell_h_m)
+    loc = where(file, "dispersal", "mean_distance_m")
+    if not mean > 0:
+        raise ScenarioError(f"{loc} = {mean:g} must be > 0 (metres).")
+    if mean < MIN_MEAN_CELLS * cell:
+        raise ScenarioError(
+            f"{loc} = {mean:g} m is below a tenth of a cell (cells are {cell_w_m:g} x "
+            f"{cell_h_m:g} m): almost every disperser would land back in its own cell. Use at "
+            f"least {MIN_MEAN_CELLS * cell:g} m, or fraction = 0 for no dispersal.")
+    p = float(tail)
+    if code == 2 and not p > 0.5:
+        raise ScenarioError(f"{where(file, 'dispersal', 'tail')} = {p:g}: the 2dt kernel needs "
+                            f"tail > 0.5 (its mean distance is infinite otherwise).")
+    scale = _scale(code, mean, p)
+    extent = math.inf
+    if grid_shape is not None:
+        extent = math.hypot(grid_shape[0] * cell_h_m, grid_shape[1] * cell_w_m)
+    if max_distance_m is None:
+        dmax = _default_truncation(code, scale, p)
+        if code == 2:
+            dmax = min(dmax, TWODT_CAP_MEANS * mean)
+        dmax = min(dmax, extent)
+    else:
+        dmax = float(max_distance_m)
+        loc = where(file, "dispersal", "max_distance_m")
+        if not dmax > 0:
+            raise ScenarioError(f"{loc} = {dmax:g} must be > 0 (metres).")
+        if dmax > extent:
+            raise ScenarioError(
+                f"{loc} = {dmax:g} m is larger than the grid ({grid_shape[0]} x {grid_shape[1]} "
+                f"cells of {cell_w_m:g} x {cell_h_m:g} m, diagonal {extent:.6g} m); allowed: "
+                f"0 < value <= {extent:.6g}.")
+    ry = int(math.floor(dmax / cell_h_m * (1.0 + 1e-12)))
+    rx = int(math.floor(dmax / cell_w_m * (1.0 + 1e-12)))
+    if code == 0:
+        wy = _gaussian_axis(scale, cell_h_m, ry)
+        wx = _gaussian_axis(scale, cell_w_m, rx)
+        stencil = np.outer(wy, wx)
+        separable = (wy, wx)
+    else:
+        q = _radial_cell_masses(code, scale, p, float(cell_w_m), float(cell_h_m), ry, rx, dmax,
+                                _GL_NODES, _GL_WEIGHTS, _GL_THETA_NODES, _GL_THETA_WEIGHTS)
+        stencil = _mirror_quadrant(q)
+        stencil /= stencil.sum()
+        separable = None
+    r = max(ry, rx)
+    weights = np.zeros((2 * r + 1, 2 * r + 1))
+    weights[r - ry:r + ry + 1, r - rx:r + rx + 1] = stencil
+    flat = stencil.ravel()
+    nz = np.flatnonzero(flat > 0)
+    order = nz[np.argsort(-flat[nz], kind="stable")]
+    probs = flat[order]
+    cdf = np.cumsum(probs)
+    cdf /= cdf[-1]
+    cdf[-1] = 1.0
+    remaining = np.cumsum(probs[::-1])[::-1]
+    conditional = np.minimum(probs / remaining, 1.0)
+    conditional[-1] = 1.0
+    offsets = np.stack([order // (2 * rx + 1) - ry, order % (2 * rx + 1) - rx], axis=1)
+    return Kernel(kind=kind, weights=weights, radius=r, ry=ry, rx=rx, separable=separable,
+                  mean_distance_m=mean, max_distance_m=dmax,
+                  offsets=np.ascontiguousarray(offsets, dtype=np.int64), cdf=cdf,
+                  conditional=conditional)
+
+
+# --------------------------------------------------------------------------------------------
+# Deterministic engine
+
+
+def _edge_code(edge) -> int:
+    if edge not in EDGES:
+        raise ScenarioError(f"[dispersal] edge = {edge!r} is not known; allowed: "
+                            f"{', '.join(repr(e) for e in EDGES)}.")
+    return EDGES[edge]
+
+
+@pjit
+def _stencil_separable(padded, wy, wx, out):
+    """Valid convolution of a padded field with outer(wy, wx): a row pass, then a column pass."""
+    ny, nx = out.shape
+    ry = (wy.size - 1) // 2
+    rx = (wx.size - 1) // 2
+    tmp = np.zeros((padded.shape[0], nx))
+    for i in prange(padded.shape[0]):
+        src = padded[i]
+        t = tmp[i]
+        for b in range(wx.size):
+            wv = wx[b]
+            off = 2 * rx - b
+            for j in range(nx):
+                t[j] += wv * src[j + off]
+    for i in prange(ny):
+        o = out[i]
+        o[:] = 0.0
+        for a in range(wy.size):
+            wv = wy[a]
+            t = tmp[i + 2 * ry - a]
+            for j in range(nx):
+                o[j] += wv * t[j]
+
+
+@pjit
+def _stencil_full(padded, w, out):
+    """Valid convolution of a padded field with a (2ry+1, 2rx+1) stencil."""
+    ny, nx = out.shape
+    ry = (w.shape[0] - 1) // 2
+    rx = (w.shape[1] - 1) // 2
+    for i in prange(ny):
+        o = out[i]
+        o[:] = 0.0
+        for a in range(w.shape[0]):
+            src = padded[i + 2 * ry - a]
+            for b in range(w.shape[1]):
+                wv = w[a, b]
+                if wv == 0.0:
+                    continue
+                off = 2 * rx - b
+                for j in range(nx):
+                    o[j] += wv * src[j + off]
+
+
+def _fft_valid(padded, kernel: Kernel, shape) -> np.ndarray:
+    ny, nx = shape
+    ry, rx = kernel.ry, kernel.rx
+    s = (sfft.next_fast_len(padded.shape[0], real=True),
+         sfft.next_fast_len(padded.shape[1], real=True))
+    workers = numba.get_num_threads()
+    wk = kernel._cached(("fft", s), lambda: sfft.rfft2(kernel.stencil, s, workers=workers))
+    full = sfft.irfft2(sfft.rfft2(padded, s, workers=workers) * wk, s, workers=workers)
+    out = np.ascontiguousarray(full[2 * ry:2 * ry + ny, 2 * rx:2 * rx + nx])
+    out[out < FFT_FLOOR * out.max()] = 0.0
+    return out
+
+
+def _spread(d: np.ndarray, kernel: Kernel, edge_code: int, method: str) -> np.ndarray:
+    """Where the dispersers ``d`` land (expected numbers).
+
+    Reflecting edge: the destination off the grid is folded back (``A`` below). The kernel is
+    symmetric under flipping either axis, which makes the fold operator symmetric, so the
+    forward scatter ``A d`` equals the gather over the mirror-padded field (``np.pad`` mode
+    'symmetric', repeated when the kernel reaches beyond the grid), a plain valid convolution.
+    """
+    ry, rx = kernel.ry, kernel.rx
+    mode = "constant" if edge_code == 0 else "symmetric"
+    padded = np.pad(d, ((ry, ry), (rx, rx)), mode=mode)
+    if method == "auto":
+        limit = STENCIL_MAX_RADIUS_SEPARABLE if kernel.separable else STENCIL_MAX_RADIUS
+        method = "stencil" if kernel.radius <= limit else "fft"
+    if method == "fft":
+        return _fft_valid(padded, kernel, d.shape)
+    out = np.empty(d.shape)
+    if kernel.separable is not None:
+        _stencil_separable(padded, kernel.separable[0], kernel.separable[1], out)
+    else:
+        _stencil_full(padded, np.ascontiguousarray(kernel.stencil), out)
+    return out
+
+
+def _fold_indicator(n: int, r: int) -> np.ndarray:
+    """(n, 2r+1): 1 where offset a - r from cell i folds back onto cell i (reflecting edge)."""
+    g = np.arange(n)[:, None] + np.arange(-r, r + 1)[None, :]
+    m = g % (2 * n)
+    return (np.where(m < n, m, 2 * n - 1 - m) == np.arange(n)[:, None]).astype(np.float64)
+
+
+def _stay_fraction(kernel: Kernel, shape, edge_code: int):
+    """Fraction of a cell's dispersers that land back in it (per cell when reflecting)."""
+    if edge_code == 0:
+        return kernel.stencil[kernel.ry, kernel.rx]
+    return kernel._cached(("stay", shape), lambda: _fold_indicator(shape[0], kernel.ry)
+                          @ kernel.stencil @ _fold_indicator(shape[1], kernel.rx).T)
+
+
+def _as_field(a, name: str) -> np.ndarray:
+    a = np.ascontiguousarray(a, dtype=np.float64)
+    if a.ndim != 2:
+        raise ValueError(f"{name} must be a 2-D (ny, nx) array, got shape {a.shape}")
+    return a
+
+
+def _check_method(method: str) -> None:
+    if method not in ("auto", "stencil", "fft"):
+        raise ValueError(f"method must be 'auto', 'stencil' or 'fft', got {method!r}")
+
+
+def disperse_deterministic(dispersers, kernel: Kernel, edge: str, *, method: str = "auto"):
+    """Move expected numbers of dispersers with a kernel.
+
+    Parameters
+    ----------
+    dispersers : (ny, nx) array_like of float
+        Expected number leaving each cell this year, >= 0.
+    kernel : Kernel
+    edge : {'absorbing', 'reflecting'}
+    method : {'auto', 'stencil', 'fft'}
+        'auto' takes the direct stencil up to :data:`STENCIL_MAX_RADIUS_SEPARABLE` (gaussian)
+        or :data:`STENCIL_MAX_RADIUS` cells of radius, the FFT beyond. FFT output below
+        :data:`FFT_FLOOR` times its maximum is set to 0.
+
+    Returns
+    -------
+    arrivals : (ny, nx) ndarray of float64
+        Where the dispersers land, including those that land back in their own cell. With an
+        absorbing edge ``dispersers.sum() - arrivals.sum()`` is the kernel mass off the grid;
+        with a reflecting edge mass is conserved.
+    stayed : (ny, nx) ndarray of float64
+        The part of each cell's dispersers that landed back in the same cell.
+    """
+    _check_method(method)
+    d = _as_field(dispersers, "dispersers")
+    code = _edge_code(edge)
+    return _spread(d, kernel, code, method), d * _stay_fraction(kernel, d.shape, code)
+
+
+def patch_retention_deterministic(dispersers, labels, settle, kernel: Kernel, edge: str,
+                                  n_patches: int, *, method: str = "auto") -> np.ndarray:
+    """Expected dispersers that land back in their own patch, in a cell where they may settle.
+
+    Per patch, only the patch's bounding box expanded by the kernel radius is convolved.
+
+    Parameters
+    ----------
+    dispersers : (ny, nx) array_like of float
+    labels : (ny, nx) array_like of int
+        0 = no patch, 1..n_patches the patches.
+    settle : (ny, nx) array_like of bool
+        Cells where a disperser may settle.
+    kernel, edge, method
+        As in :func:`disperse_deterministic`.
+    n_patches : int
+
+    Returns
+    -------
+    (n_patches + 1,) ndarray of float64
+        ``retained[p]``: dispersers from cells of patch p landing in settle cells of patch p;
+        ``retained[0] = 0``.
+    """
+    _check_method(method)
+    d = _as_field(dispersers, "dispersers")
+    labels = np.asarray(labels)
+    settle = np.asarray(settle, dtype=bool)
+    code = _edge_code(edge)
+    ny, nx = d.shape
+    out = np.zeros(n_patches + 1)
+    for p, box in enumerate(ndimage.find_objects(labels, max_label=n_patches), start=1):
+        if box is None:
+            continue
+        y0, y1 = max(0, box[0].start - kernel.ry), min(ny, box[0].stop + kernel.ry)
+        x0, x1 = max(0, box[1].start - kernel.rx), min(nx, box[1].stop + kernel.rx)
+        mine = labels[y0:y1, x0:x1] == p
+        src = np.where(mine, d[y0:y1, x0:x1], 0.0)
+        if not src.any():
+            continue
+        # Sides of the box inside the grid lie a kernel radius beyond the patch: nothing from
+        # the patch gets past them, and the mirror padding there reflects only zeros.
+        arrived = _spread(src, kernel, code, method)
+        out[p] = arrived[mine & settle[y0:y1, x0:x1]].sum()
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# Stochastic engine
+
+
+@njit
+def _fold(g, n):
+    """Mirror a coordinate back into 0..n-1 (reflecting edge), repeatedly if needed."""
+    m = g % (2 * n)
+    if m < n:
+        return m
+    return 2 * n - 1 - m
+
+
+@njit
+def _search(cdf, u):
+    """First index k with u < cdf[k] (cdf[-1] == 1 and 0 < u < 1)."""
+    lo = 0
+    hi = cdf.size - 1
+    while lo < hi:
+        mid = (lo + hi) >> 1
+        if u < cdf[mid]:
+            hi = mid
+        else:
+            lo = mid + 1
+    return lo
+
+
+@njit
+def _land(i, j, k, cnt, offsets, edge_code, labels, settle, buf, start, b0, stayed, ret, c):
+    """Put cnt dispersers from cell (i, j) at stencil entry k; off the grid (absorbing) they
+    are dropped."""
+    ny, nx = labels.shape
+    y = i + offsets[k, 0]
+    x = j + offsets[k, 1]
+    if y < 0 or y >= ny or x < 0 or x >= nx:
+        if edge_code == 0:
+            return
+        y = _fold(y, ny)
+        x = _fold(x, nx)
+    buf[start + (y - b0) * nx + x] += cnt
+    if y == i and x == j:
+        stayed[i, j] += cnt
+    lab = labels[i, j]
+    if lab > 0 and labels[y, x] == lab and settle[y, x]:
+        ret[c, lab] += cnt
+
+
+@pjit
+def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, cdf, cond,
+                                ry, edge_code, key, multinomial_min, bounds, starts, buf,
+                                arrivals, stayed, retained):
+    """Each disperser of cell (i, j) draws its destination from the kernel.
+
+    Row chunk c (rows bounds[c]..bounds[c+1]) writes its landings into its own band of ``buf``
+    (rows b0..b1 of the grid at flat offset starts[c]): destinations lie within ry rows, and a
+    folded destination stays in the band. Counts are whole numbers, so the sums are exact and
+    the result does not depend on the chunking or the number of threads.
+
+    A cell with n >= multinomial_min dispersers draws a multinomial over the stencil by
+    sequential binomials ``Binomial(remaining, cond[k])`` on cell key ``cell_key(ck, k)``;
+    otherwise disperser t takes ``uniform(ck, t)`` through the CDF (ck the cell's key).
+    """
+    ny, nx = dispersers.shape
+    nch = bounds.size - 1
+    ret = np.zeros((nch, n_patches + 1))
+    for c in prange(nch):
+        r0 = bounds[c]
+        b0 = max(0, r0 - ry)
+        start = starts[c]
+        for i in range(r0, bounds[c + 1]):
+            for j in range(nx):
+                n = np.int64(dispersers[i, j])
+                if n <= 0:
+                    continue
+                ck = rng.cell_key(key, i * nx + j)
+                if n >= multinomial_min:
+                    rem = n
+                    for k in range(cdf.size):
+                        if rem == 0:
+                            break
+                        cnt = rng.binomial(rem, cond[k], rng.cell_key(ck, k))
+                        if cnt > 0:
+                            rem -= cnt
+                            _land(i, j, k, cnt, offsets, edge_code, labels, settle, buf, start,
+                                  b0, stayed, ret, c)
+                else:
+                    for t in range(n):
+                        k = _search(cdf, rng.uniform(ck, t))
+                        _land(i, j, k, 1, offsets, edge_code, labels, settle, buf, start, b0,
+                              stayed, ret, c)
+    for i in prange(ny):
+        for c in range(nch):
+            b0 = max(0, bounds[c] - ry)
+            b1 = min(ny, bounds[c + 1] + ry)
+            if b0 <= i < b1:
+                base = starts[c] + (i - b0) * nx
+                for j in range(nx):
+                    arrivals[i, j] += buf[base + j]
+    for c in range(nch):
+        for p in range(n_patches + 1):
+            retained[p] += ret[c, p]
+
+
+def _row_chunks(dispersers: np.ndarray, multinomial_min: float, ry: int):
+    """Split the rows into one chunk per numba thread of about equal work (work: dispersers
+    placed one by one, or stencil cells of a multinomial)."""
+    ny = dispersers.shape[0]
+    nch = max(1, min(ny, numba.get_num_threads()))
+    work = np.minimum(dispersers, multinomial_min).sum(axis=1) + 1.0
+    cum = np.concatenate([[0.0], np.cumsum(work)])
+    bounds = np.searchsorted(cum, cum[-1] * np.arange(nch + 1) / nch).astype(np.int64)
+    bounds[0], bounds[-1] = 0, ny
+    bounds = np.maximum.accumulate(bounds)
+    band = np.minimum(ny, bounds[1:] + ry) - np.maximum(0, bounds[:-1] - ry)
+    starts = np.concatenate([[0], np.cumsum(band * dispersers.shape[1])]).astype(np.int64)
+    return bounds, starts
+
+
+def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kernel, edge: str,
+                        key):
+    """Move whole individuals: each disperser draws its destination from the kernel.
+
+    Parameters
+    ----------
+    dispersers : (ny, nx) array_like of float
+        Whole numbers of individuals leaving each cell.
+    settle : (ny, nx) array_like of bool
+        Cells where a disperser may settle (the caller removes those landing elsewhere).
+    labels : (ny, nx) array_like of int
+        Patch labels, 0 = no patch.
+    n_patches : int
+    kernel : Kernel
+    edge : {'absorbing', 'reflecting'}
+    key : int
+        ``rng.year_key(seed, replicate, year, rng.STREAM_DISPERSAL)``; cell (i, j) uses
+        ``rng.cell_key(key, i * nx + j)``.
+
+    Returns
+    -------
+    arrivals : (ny, nx) ndarray of float64
+        Landings per cell (whole numbers), wherever they land. ``dispersers.sum() -
+        arrivals.sum()`` is exactly the number that left the grid (0 with a reflecting edge).
+    stayed : (ny, nx) ndarray of float64
+        Dispersers of each cell that landed back in it.
+    retained : (n_patches + 1,) ndarray of float64
+        Dispersers from patch p that landed in a settle cell of patch p; ``retained[0] = 0``.
+    """
+    d = _as_field(dispersers, "dispersers")
+    settle = np.ascontiguousarray(settle, dtype=np.bool_)
+    labels = np.ascontiguousarray(labels, dtype=np.int32)
+    if settle.shape != d.shape or labels.shape != d.shape:
+        raise ValueError(f"dispersers {d.shape}, settle {settle.shape} and labels "
+                         f"{labels.shape} must have the same shape")
+    code = _edge_code(edge)
+    multinomial_min = MULTINOMIAL_PER_CELL * kernel.cdf.size
+    bounds, starts = _row_chunks(d, multinomial_min, kernel.ry)
+    buf = np.zeros(starts[-1])
+    arrivals = np.zeros(d.shape)
+    stayed = np.zeros(d.shape)
+    retained = np.zeros(n_patches + 1)
+    _disperse_stochastic_kernel(d, settle, labels, n_patches, kernel.offsets, kernel.cdf,
+                                kernel.conditional, kernel.ry, code, np.uint64(key),
+                                multinomial_min, bounds, starts, buf, arrivals, stayed, retained)
+    return arrivals, stayed, retained
+
+
+# --------------------------------------------------------------------------------------------
+# How many leave
+
+
+@njit
+def _emigration_fraction(n, k, fraction, dd):
+    """fraction * min(1, n / k) ** dd; the plain fraction when dd == 0 or k <= 0."""
+    if dd == 0.0 or not k > 0.0 or n >= k:
+        return fraction
+    return fraction * (n / k) ** dd
+
+
+@pjit
+def _leaving_deterministic_kernel(n, k, fraction, dd, out):
+    ny, nx = n.shape
+    for i in prange(ny):
+        for j in range(nx):
+            out[i, j] = n[i, j] * _emigration_fraction(n[i, j], k[i, j], fraction, dd)
+
+
+@pjit
+def _leaving_stochastic_kernel(n, k, fraction, dd, key, out):
+    ny, nx = n.shape
+    for i in prange(ny):
+        for j in range(nx):
+            c = np.int64(n[i, j])
+            if c > 0:
+                f = _emigration_fraction(n[i, j], k[i, j], fraction, dd)
+                out[i, j] = rng.binomial(c, f, rng.cell_key(key, i * nx + j))
+
+
+def _leaving_args(n, k):
+    n = _as_field(n, "n")
+    k = _as_field(k, "k")
+    if k.shape != n.shape:
+        raise ValueError(f"n {n.shape} and k {k.shape} must have the same shape")
+    return n, k
+
+
+def leaving_deterministic(n, k, fraction: float, density_dependence: float) -> np.ndarray:
+    """Expected emigrants per cell: ``n * fraction * min(1, n / k) ** density_dependence``.
+
+    Cells with ``k <= 0``, and every cell when ``density_dependence == 0``, lose the plain
+    ``fraction``.
+    """
+    n, k = _leaving_args(n, k)
+    out = np.empty(n.shape)
+    _leaving_deterministic_kernel(n, k, float(fraction), float(density_dependence), out)
+    return out
+
+
+def leaving_stochastic(n, k, fraction: float, density_dependence: float, key) -> np.ndarray:
+    """Emigrants per cell, ``Binomial(n, f)`` with f as in :func:`leaving_deterministic`.
+
+    ``key = rng.year_key(seed, replicate, year, rng.STREAM_EMIGRATION)``; cell (i, j) draws on
+    ``rng.cell_key(key, i * nx + j)``. ``n`` holds whole numbers.
+    """
+    n, k = _leaving_args(n, k)
+    out = np.zeros(n.shape)
+    _leaving_stochastic_kernel(n, k, float(fraction), float(density_dependence), np.uint64(key),
+                               out)
+    return out
