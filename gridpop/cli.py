@@ -29,9 +29,8 @@ def cmd_check(args) -> int:
     from .landscape import build_landscape
 
     scenario = _scenario_with_overrides(args)
-    landscape = build_landscape(scenario, stochastic=scenario.growth.stochastic)
-    model = build_model(scenario, landscape)
-    print("\n".join(describe(scenario, landscape, model)))
+    model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
+    print("\n".join(describe(scenario, model)))
     return 0
 
 

@@ -36,6 +36,7 @@ import numpy as np
 
 from . import __version__, rng
 from ._jit import njit, pjit, prange
+from .actions import Actions, apply_actions
 from .demography import MODELS, EnvironmentalNoise, step_deterministic, step_stochastic
 from .dispersal import (
     Kernel,
@@ -46,12 +47,14 @@ from .dispersal import (
     make_kernel,
     patch_retention_deterministic,
 )
+from .disturbance import Regime, build_regime
 from .landscape import Landscape, build_landscape
 from .outputs import (
     LEDGER_FIELDS,
     check_output,
     prepare_output,
     publish,
+    write_events_csv,
     write_json,
     write_ledger_csv,
     write_stack,
@@ -61,12 +64,6 @@ from .outputs import (
 N_FIELDS = len(LEDGER_FIELDS)
 F_ABUND, F_BIRTHS, F_DEATHS, F_DIST, F_EMIG, F_IMMIG, F_LOSS, F_OCC = range(N_FIELDS)
 
-ACCUMULATORS = {
-    # name: (dtype, what one replicate adds per year and cell)
-    "sum_n": (np.float64, "abundance"),
-    "occupied": (np.int32, "1 if occupied"),
-    "ever": (np.int32, "1 if occupied in this or an earlier year"),
-}
 
 
 @dataclass(frozen=True)
@@ -83,9 +80,9 @@ class Model:
     survival: float
     theta: float
     allee_cells: float  # Allee density times cell area: individuals per cell
+    landscape: Landscape  # with the actions applied
     capacity: np.ndarray
     initial: np.ndarray
-    mask: np.ndarray
     labels: np.ndarray
     n_patches: int
     fraction: float
@@ -94,10 +91,27 @@ class Model:
     edge: str
     env: EnvironmentalNoise | None
     occupancy_threshold: float
+    actions: Actions
+    regime: Regime | None
+
+    @property
+    def accumulators(self) -> dict:
+        """Per-year per-cell sums this model writes: name -> dtype."""
+        acc = {"sum_n": np.float64, "occupied": np.int32, "ever": np.int32}
+        if self.regime is not None:
+            acc.update({f"n_{kind}": np.int32 for kind in self.disturbance_kinds})
+        return acc
+
+    @property
+    def disturbance_kinds(self) -> list[str]:
+        return sorted({t.kind for t in self.regime.tables}) if self.regime else []
 
 
-def build_model(scenario, landscape: Landscape) -> Model:
-    """Convert a scenario's user units (metres, hectares, years) to cell units on the grid."""
+def build_model(scenario, base: Landscape) -> Model:
+    """Apply the scenario's actions to its base landscape and convert its user units (metres,
+    hectares, years) to cell units on the grid: the one place where this happens."""
+    actions = apply_actions(scenario, base)
+    landscape = actions.landscape
     g, d, grid = scenario.growth, scenario.dispersal, landscape.grid
     kernel = None
     if d.fraction > 0:
@@ -116,10 +130,11 @@ def build_model(scenario, landscape: Landscape) -> Model:
         theta=g.theta, allee_cells=g.allee_density * grid.cell_area_ha,
         capacity=np.ascontiguousarray(landscape.capacity, dtype=np.float64),
         initial=np.ascontiguousarray(landscape.initial, dtype=np.float64),
-        mask=landscape.mask, labels=np.ascontiguousarray(landscape.patches.labels, np.int32),
+        landscape=landscape, labels=np.ascontiguousarray(landscape.patches.labels, np.int32),
         n_patches=landscape.patches.n, fraction=d.fraction,
         density_dependence=d.density_dependence, kernel=kernel, edge=d.edge, env=env,
         occupancy_threshold=scenario.output.occupancy_threshold,
+        actions=actions, regime=build_regime(scenario, landscape, actions),
     )
 
 
@@ -184,16 +199,22 @@ def _patch_sum(labels, n_patches, x):
 
 
 class BatchSink:
-    """Per-year accumulators and ledger of one batch, memory-mapped in the batch folder."""
+    """Per-year accumulators, ledger and events of one batch, kept in the batch folder.
+
+    Accumulators (:attr:`Model.accumulators`) are memory-mapped ``(years + 1, ny, nx)`` arrays:
+    ``sum_n`` (abundance), ``occupied`` (1 if occupied), ``ever`` (1 if occupied in this or an
+    earlier year) and, with disturbance, ``n_fire`` / ``n_flood`` (1 if hit that year).
+    """
 
     def __init__(self, folder: Path, model: Model, replicates: range):
         folder.mkdir(parents=True, exist_ok=True)
         shape = (model.years + 1, *model.capacity.shape)
         self.acc = {name: np.lib.format.open_memmap(folder / f"{name}.npy", mode="w+",
                                                     dtype=dt, shape=shape)
-                    for name, (dt, _) in ACCUMULATORS.items()}
+                    for name, dt in model.accumulators.items()}
         self.ledger = np.zeros((len(replicates), model.years + 1, model.n_patches + 1,
                                 N_FIELDS))
+        self.events: list[tuple] = []
         self.folder = folder
         self.replicates = replicates
 
@@ -201,72 +222,107 @@ class BatchSink:
         for a in self.acc.values():
             a.flush()
         np.save(self.folder / "ledger.npy", self.ledger)
+        with open(self.folder / "events.json", "w") as fh:
+            json.dump(self.events, fh)
         (self.folder / "done").write_text("ok\n")
+
+
+class Replicate:
+    """One replicate's state and the yearly cycle that advances it (see the module docstring).
+
+    ``advance(t)`` moves the population from census year ``t - 1`` to census year ``t`` and
+    writes ledger row ``t``. The random numbers of that transition are those of year ``t - 1``.
+    """
+
+    def __init__(self, model: Model, replicate: int, ledger: np.ndarray):
+        self.model, self.replicate, self.ledger = model, replicate, ledger
+        shape = model.capacity.shape
+        self.n = model.initial.copy()
+        self._out = np.empty(shape)
+        self.births = np.zeros(shape)
+        self.deaths = np.zeros(shape)
+        self.dist_deaths = np.zeros(shape)
+        self.ever = np.zeros(shape, np.uint8)
+        self._zeros = np.zeros(shape)
+        self._env_state = None
+        self._dist_state = model.regime.start() if model.regime is not None else None
+        self.effects = None  # the last year's disturbance effects
+
+    def advance(self, t: int) -> None:
+        m, year = self.model, t - 1
+        env = self._zeros
+        if m.env is not None:
+            env, self._env_state = m.env.draw(m.seed, self.replicate, year, self._env_state)
+        k = m.actions.capacity_for_year(year)
+        if m.regime is not None:
+            self.effects = m.regime.apply(self._dist_state, self.n, k, seed=m.seed,
+                                          replicate=self.replicate, year=year,
+                                          stochastic=m.stochastic)
+            self.dist_deaths = self.effects.deaths
+            k = self.effects.capacity
+        if m.stochastic:
+            step_stochastic(self.n, k, env, self._out, self.births, self.deaths, m.model_code,
+                            m.rate, m.survival, m.theta, m.allee_cells,
+                            _key(m, self.replicate, year, rng.STREAM_SURVIVAL),
+                            _key(m, self.replicate, year, rng.STREAM_BIRTHS))
+        else:
+            step_deterministic(self.n, k, env, self._out, self.births, self.deaths,
+                               m.model_code, m.rate, m.survival, m.theta, m.allee_cells)
+        self.n, self._out = self._out, self.n
+        row = self.ledger[t]
+        row[:, F_EMIG:F_LOSS + 1] = 0.0
+        if m.kernel is not None:
+            _disperse(m, self.replicate, year, self.n, k, row)
+
+    def census(self, t: int, sink: BatchSink) -> None:
+        m = self.model
+        part = _census(m.labels, m.n_patches, self.n, self.births, self.deaths,
+                       self.dist_deaths, m.occupancy_threshold, self.ever,
+                       sink.acc["sum_n"][t], sink.acc["occupied"][t], sink.acc["ever"][t])
+        s = part.sum(axis=0)
+        row = self.ledger[t]
+        row[:, F_ABUND] = s[:, 0]
+        row[:, F_BIRTHS] = s[:, 1]
+        row[:, F_DEATHS] = s[:, 2]
+        row[:, F_DIST] = s[:, 3]
+        row[:, F_OCC] = s[:, 4]
+        eff = self.effects
+        if t > 0 and eff is not None:
+            for kind, hit in (("fire", eff.burned), ("flood", eff.flooded)):
+                if hit is not None:
+                    sink.acc[f"n_{kind}"][t] += hit
+            sink.events += [(self.replicate, t, *e) for e in eff.events]
 
 
 def simulate_replicate(model: Model, replicate: int, sink: BatchSink, row: int) -> None:
     """Run one replicate through all years, adding its results to ``sink`` at ledger ``row``."""
-    shape = model.capacity.shape
-    n = model.initial.copy()
-    out = np.empty(shape)
-    births = np.zeros(shape)
-    deaths = np.zeros(shape)
-    dist_deaths = np.zeros(shape)
-    ever = np.zeros(shape, np.uint8)
-    ledger = sink.ledger[row]
-    settle = model.capacity > 0
-    env_state = None
-    zeros = np.zeros(shape)
-
-    def census(t):
-        part = _census(model.labels, model.n_patches, n, births, deaths, dist_deaths,
-                       model.occupancy_threshold, ever, sink.acc["sum_n"][t],
-                       sink.acc["occupied"][t], sink.acc["ever"][t])
-        s = part.sum(axis=0)
-        ledger[t, :, F_ABUND] = s[:, 0]
-        ledger[t, :, F_BIRTHS] = s[:, 1]
-        ledger[t, :, F_DEATHS] = s[:, 2]
-        ledger[t, :, F_DIST] = s[:, 3]
-        ledger[t, :, F_OCC] = s[:, 4]
-
-    census(0)
+    rep = Replicate(model, replicate, sink.ledger[row])
+    rep.census(0, sink)
     for t in range(1, model.years + 1):
-        year = t - 1  # the transition from census year t-1 to t draws the numbers of year t-1
-        if model.env is not None:
-            env, env_state = model.env.draw(model.seed, replicate, year, env_state)
-        else:
-            env = zeros
-        k = model.capacity
-        if model.stochastic:
-            step_stochastic(n, k, env, out, births, deaths, model.model_code, model.rate,
-                            model.survival, model.theta, model.allee_cells,
-                            _key(model, replicate, year, rng.STREAM_SURVIVAL),
-                            _key(model, replicate, year, rng.STREAM_BIRTHS))
-        else:
-            step_deterministic(n, k, env, out, births, deaths, model.model_code, model.rate,
-                               model.survival, model.theta, model.allee_cells)
-        n, out = out, n
-        if model.kernel is not None:
-            _disperse(model, replicate, year, n, settle, ledger[t])
-        census(t)
+        rep.advance(t)
+        rep.census(t, sink)
 
 
 def _key(model: Model, replicate: int, year: int, stream: int) -> np.uint64:
     return np.uint64(rng.year_key(model.seed, replicate, year, stream))
 
 
-def _disperse(model: Model, replicate: int, year: int, n: np.ndarray, settle: np.ndarray,
+def _disperse(model: Model, replicate: int, year: int, n: np.ndarray, k: np.ndarray,
               row: np.ndarray) -> None:
-    """Move dispersers in place in ``n`` and write the movement columns of one ledger row."""
+    """Move dispersers in place in ``n`` and write the movement columns of one ledger row.
+
+    Dispersers settle only where the capacity of the year ``k`` is positive; the rest are lost.
+    """
+    settle = k > 0
     if model.stochastic:
-        leaving = leaving_stochastic(n, model.capacity, model.fraction,
+        leaving = leaving_stochastic(n, k, model.fraction,
                                      model.density_dependence,
                                      _key(model, replicate, year, rng.STREAM_EMIGRATION))
         arrivals, stayed, retained = disperse_stochastic(
             leaving, settle, model.labels, model.n_patches, model.kernel, model.edge,
             _key(model, replicate, year, rng.STREAM_DISPERSAL))
     else:
-        leaving = leaving_deterministic(n, model.capacity, model.fraction,
+        leaving = leaving_deterministic(n, k, model.fraction,
                                         model.density_dependence)
         arrivals, stayed = disperse_deterministic(leaving, model.kernel, model.edge)
         retained = patch_retention_deterministic(leaving, model.labels, settle, model.kernel,
@@ -303,15 +359,16 @@ def run_batch(model: Model, reps: range, folder: Path, progress=None) -> None:
 def combine(work: Path, model: Model, parts: list[Path]) -> dict[str, np.ndarray]:
     """Add the batches' accumulators in batch order into memory-mapped totals."""
     shape = (model.years + 1, *model.capacity.shape)
-    totals = {name: np.lib.format.open_memmap(work / f"total_{name}.npy", mode="w+",
-                                              dtype=dt, shape=shape)
-              for name, (dt, _) in ACCUMULATORS.items()}
-    for name, total in totals.items():
+    totals = {}
+    for name, dt in model.accumulators.items():
+        total = np.lib.format.open_memmap(work / f"total_{name}.npy", mode="w+", dtype=dt,
+                                          shape=shape)
         for part in parts:
             src = np.load(part / f"{name}.npy", mmap_mode="r")
             for t in range(shape[0]):
                 total[t] += src[t]
         total.flush()
+        totals[name] = total
     return totals
 
 
@@ -322,8 +379,7 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False) -
     started = time.time()
     out_dir = Path(out_dir)
     check_output(out_dir, overwrite=overwrite)
-    landscape = build_landscape(scenario, stochastic=scenario.growth.stochastic)
-    model = build_model(scenario, landscape)
+    model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
     work = prepare_output(out_dir, overwrite=overwrite)
     parts = []
     with tqdm(total=model.replicates, unit="replicate", disable=not progress,
@@ -332,7 +388,8 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False) -
             folder = work / "batches" / f"{b:05d}"
             run_batch(model, reps, folder, bar)
             parts.append(folder)
-    files = write_results(work, scenario, model, landscape, parts)
+    files = write_results(work, scenario, model, parts)
+    grid = model.landscape.grid
     manifest = {
         "gridpop_version": __version__,
         "scenario": str(scenario.path),
@@ -341,9 +398,8 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False) -
         "years": model.years,
         "replicates": model.replicates,
         "stochastic": model.stochastic,
-        "grid": {"crs_wkt": landscape.grid.crs.to_wkt(),
-                 "transform": list(landscape.grid.transform)[:6],
-                 "shape": list(landscape.grid.shape)},
+        "grid": {"crs_wkt": grid.crs.to_wkt(), "transform": list(grid.transform)[:6],
+                 "shape": list(grid.shape)},
         "files": sorted(files),
         "numba_threads": numba.get_num_threads(),
         "wall_time_s": round(time.time() - started, 3),
@@ -354,20 +410,27 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False) -
     return out_dir
 
 
-def write_results(work: Path, scenario, model: Model, landscape: Landscape,
-                  parts: list[Path]) -> list[str]:
+STACKS = {
+    # output raster name: (accumulator, what the band holds)
+    "abundance": ("sum_n", "mean abundance over replicates"),
+    "occupancy": ("occupied", "fraction of replicates in which the cell is occupied"),
+    "colonised": ("ever", "fraction of replicates in which the cell has been occupied by then"),
+    "burned": ("n_fire", "fraction of replicates in which the cell burned that year"),
+    "flooded": ("n_flood", "fraction of replicates in which the cell flooded that year"),
+}
+
+
+def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list[str]:
     """Combine batches and write stacks and tables; remove the batch folders."""
     import shutil
 
     totals = combine(work, model, parts)
     reps = model.replicates
-    grid, mask = landscape.grid, landscape.mask
+    grid, mask = model.landscape.grid, model.landscape.mask
     labels = year_labels(model.years)
     files = []
-    wanted = scenario.output.rasters
-    stacks = {"abundance": "sum_n", "occupancy": "occupied", "colonised": "ever"}
-    for name, acc in stacks.items():
-        if name in wanted:
+    for name, (acc, _) in STACKS.items():
+        if acc in totals and (name in scenario.output.rasters or acc.startswith("n_")):
             total = totals[acc]
             write_stack(work / f"{name}.tif", grid, mask,
                         (total[t] / reps for t in range(model.years + 1)), labels)
@@ -379,15 +442,20 @@ def write_results(work: Path, scenario, model: Model, landscape: Landscape,
         write_ledger_csv(work / "patches.csv", ledger[:, :, 1:, :], patches=True,
                          integers=model.stochastic)
         files.append("patches.csv")
-    del totals
-    for name in ACCUMULATORS:
+    if model.regime is not None:
+        events = [e for p in parts for e in json.loads((p / "events.json").read_text())]
+        write_events_csv(work / "events.csv", events)
+        files.append("events.csv")
+    for name in list(totals):
+        del totals[name]
         (work / f"total_{name}.npy").unlink()
     shutil.rmtree(work / "batches")
     return files
 
 
-def describe(scenario, landscape: Landscape, model: Model) -> list[str]:
+def describe(scenario, model: Model) -> list[str]:
     """What the tool understood, for ``gridpop check``."""
+    landscape = model.landscape
     g, grid = scenario.growth, landscape.grid
     p = landscape.patches
     k = model.capacity
@@ -419,6 +487,9 @@ def describe(scenario, landscape: Landscape, model: Model) -> list[str]:
                      f"cells, {d.edge} edge")
     else:
         lines.append("dispersal: none (fraction = 0)")
+    lines += [f"action {note}" for note in model.actions.notes]
+    if model.regime is not None:
+        lines += [f"disturbance {note}" for note in model.regime.notes]
     lines.append(f"run: {model.years} years x {model.replicates} replicates, seed {model.seed}")
     return lines
 

@@ -121,6 +121,19 @@ def write_ledger_csv(path: Path, ledger: np.ndarray, *, first_replicate: int = 0
                     w.writerow([first_replicate + r, t] + [fmt(v) for v in ledger[r, t]])
 
 
+EVENT_FIELDS = ("replicate", "year", "kind", "patches", "cells", "deaths")
+"""Columns of events.csv: one row per fire or flood event."""
+
+
+def write_events_csv(path: Path, events) -> None:
+    """Write disturbance events: (replicate, year, kind, patch ids "1;4", cells, deaths)."""
+    with open(path, "w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow(EVENT_FIELDS)
+        for rep, year, kind, patches, cells, deaths in events:
+            w.writerow([rep, year, kind, patches, cells, f"{deaths:.12g}"])
+
+
 def write_json(path: Path, data: dict) -> None:
     tmp = path.with_suffix(path.suffix + ".tmp")
     tmp.write_text(json.dumps(data, indent=2, default=_jsonable) + "\n")
