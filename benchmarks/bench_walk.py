@@ -3,7 +3,8 @@
 1. Deterministic: one expected redistribution of a 2048 x 2048 grid by walks of n steps, against
    the Gaussian of the same spread (per-axis sigma^2 = n / sqrt(2), the walk's variance on a uniform
    surface) by scipy.ndimage.gaussian_filter and by the kernel engine (gridpop.dispersal).
-2. Stochastic: whole dispersers walking over the same landscape: dispersers and steps per second.
+2. Stochastic: whole dispersers (about one per habitat cell) walking over the same landscape, with
+   persistence 1 and settlement probability q or q^8: dispersers and steps per second.
 
 The landscape is smoothed noise: suitability s in [0, 1], resistance 1 + 49 (1 - s)^2, habitat
 quality s where s > 0.6 (else matrix), a road of infinite resistance across the middle.
@@ -18,6 +19,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import platform
 import time
 from functools import partial
@@ -57,8 +59,9 @@ def make_landscape(size):
     return permeability_from_resistance(r), quality
 
 
-def walk_params(steps, persistence):
-    return WalkParams(max_steps=steps, mortality_per_resistance=0.02, persistence=persistence)
+def walk_params(steps, persistence, settle_shape=1.0):
+    return WalkParams(max_steps=steps, mortality_per_resistance=0.02, persistence=persistence,
+                      settle_shape=settle_shape)
 
 
 def bench_deterministic(size, steps, perm, quality, labels):
@@ -89,16 +92,17 @@ def bench_stochastic(size, steps, perm, quality, labels, per_cell):
     key = rng.year_key(1, 0, 0, rng.STREAM_WALK)
     rows = []
     for n in steps:
-        params = walk_params(n, 1.0)
-        t = best_time(partial(disperse_walk_stochastic, d, perm, quality, labels, 0, params, key),
-                      repeat=2)
-        visits = disperse_walk_stochastic(d, perm, quality, labels, 0, params, key)[3].sum()
-        row = {"steps": n, "dispersers": float(d.sum()), "walk_s": t,
-               "dispersers_per_s": d.sum() / t, "steps_per_s": visits / t,
-               "mean_steps": visits / d.sum()}
-        rows.append(row)
-        print(f"{n:6d} {d.sum():12.0f} {t:9.3f} {row['dispersers_per_s']:14.4g} "
-              f"{row['steps_per_s']:12.4g} {row['mean_steps']:8.2f}", flush=True)
+        for shape in (1.0, 8.0):
+            params = walk_params(n, 1.0, shape)
+            t = best_time(partial(disperse_walk_stochastic, d, perm, quality, labels, 0, params,
+                                  key), repeat=2)
+            visits = disperse_walk_stochastic(d, perm, quality, labels, 0, params, key)[3].sum()
+            row = {"steps": n, "settle_shape": shape, "dispersers": float(d.sum()), "walk_s": t,
+                   "dispersers_per_s": d.sum() / t, "steps_per_s": visits / t,
+                   "mean_steps": visits / d.sum()}
+            rows.append(row)
+            print(f"{n:6d} {shape:6.1f} {d.sum():12.0f} {t:9.3f} {row['dispersers_per_s']:14.4g} "
+                  f"{row['steps_per_s']:12.4g} {row['mean_steps']:8.2f}", flush=True)
     return rows
 
 
@@ -116,13 +120,14 @@ def main():
           f"{'kernel':>9}")
     det = bench_deterministic(size, steps, perm, quality, labels)
     print("stochastic (persistence 1)")
-    print(f"{'steps':>6} {'dispersers':>12} {'seconds':>9} {'dispersers/s':>14} {'steps/s':>12}"
-          f" {'steps/w':>8}")
+    print(f"{'steps':>6} {'shape':>6} {'dispersers':>12} {'seconds':>9} {'dispersers/s':>14} "
+          f"{'steps/s':>12} {'steps/w':>8}")
     sto = bench_stochastic(size, steps, perm, quality, labels, per_cell=1.0)
     out = Path(__file__).parent / "results"
     out.mkdir(exist_ok=True)
     result = {"grid": [size, size], "threads": numba.get_num_threads(),
               "machine": platform.platform(), "processor": platform.processor(),
+              "load_average_1min": os.getloadavg()[0],
               "habitat_share": float((quality > 0).mean()),
               "deterministic": det, "stochastic": sto}
     path = out / ("bench_walk_quick.json" if args.quick else "bench_walk.json")

@@ -63,8 +63,9 @@ any thread count). The origin of a walker is not tracked: ``stayed = 0`` and ``r
 is, a walker that settles back in its own cell or patch counts as an emigrant and an immigrant
 (:func:`patch_connectivity` gives the patch-to-patch probabilities).
 
-Memory: the deterministic engine keeps about 7 (no persistence) or 26 (persistence) float64 grids;
-the stochastic one 3 float64 grids per numba thread.
+Cost: the deterministic engine gathers 8 neighbours per cell and step (8 x 8 with persistence) and
+keeps about 10 float64 grids (33 with persistence); the stochastic one costs per walker step and
+keeps 3 float64 grids per numba thread. ``benchmarks/bench_walk.py`` measures both.
 
 References
 ----------
@@ -363,13 +364,13 @@ def _walk_stochastic(dispersers, perm, settle, surv1, surv2, labels, turn, max_s
 
 @pjit
 def _inv_norm(perm, turn, out):
-    """``out[r] = 1 / sum_k weight_k turn[r, k]`` per cell, 0 where no neighbour can be entered."""
+    """``out[i, j, r] = 1 / sum_k weight_k turn[r, k]``, 0 where no neighbour can be entered."""
     ny, nx = perm.shape
     for i in prange(ny):
         for j in range(nx):
             for r in range(turn.shape[0]):
                 z = _norm(perm, i, j, turn, r)
-                out[r, i, j] = 1.0 / z if z > 0.0 else 0.0
+                out[i, j, r] = 1.0 / z if z > 0.0 else 0.0
 
 
 @pjit
@@ -379,29 +380,31 @@ def _det_start(dispersers, invz, g, lost):
     for i in prange(ny):
         for j in range(nx):
             d = dispersers[i, j]
-            g[0, i, j] = d * invz[0, i, j]
-            if invz[0, i, j] == 0.0:
+            g[i, j, 0] = d * invz[i, j, 0]
+            if invz[i, j, 0] == 0.0:
                 lost[i, j] += d
 
 
 @pjit
-def _det_step(g, row0, perm, settle, surv1, surv2, turn, invz, last, g_next, arrivals, visits,
+def _det_step(g, perm, settle, surv1, surv2, turn, invz, last, g_next, arrivals, visits,
               lost):
     """One step of the expected walk.
 
-    ``g[l]`` holds the density of moving walkers in state layer ``l`` divided by the normaliser of
-    their turn row ``row0 + l``, so the flow into cell c from neighbour a = c - d_k is
-    ``weight_k(a) * sum_l g[l, a] * turn[row0 + l, k]``. Each target cell gathers its inflow,
-    removes the dead and the settled, and stores its own scaled density in ``g_next``: one layer per
-    arrival direction with persistence, a single layer without.
+    ``g[a, l]`` holds the density of moving walkers of cell a in state layer ``l`` divided by the
+    normaliser of their turn row ``r(l)``, so the flow into cell c from neighbour a = c - d_k is
+    ``weight_k(a) * sum_l g[a, l] * turn[r(l), k]``; ``r(l) = l + 1`` for the 8 direction layers,
+    0 for a single layer (no persistence, or before the first step). Each target cell gathers its
+    inflow, removes the dead and the settled, and stores its own scaled density in ``g_next``: one
+    layer per arrival direction with persistence, a single layer without.
     """
     ny, nx = perm.shape
-    nl = g.shape[0]
+    nl = g.shape[2]
+    row0 = 1 if nl == 8 else 0
     persist = turn.shape[0] > 1
     for i in prange(ny):
         for j in range(nx):
-            for o in range(g_next.shape[0]):
-                g_next[o, i, j] = 0.0
+            for o in range(g_next.shape[2]):
+                g_next[i, j, o] = 0.0
             pc = perm[i, j]
             if pc <= 0.0:
                 continue
@@ -422,7 +425,7 @@ def _det_step(g, row0, perm, settle, surv1, surv2, turn, invz, last, g_next, arr
                     continue  # no corner cutting (as in _step_weight)
                 f = 0.0
                 for layer in range(nl):
-                    f += g[layer, ay, ax] * turn[row0 + layer, k]
+                    f += g[ay, ax, layer] * turn[row0 + layer, k]
                 if f == 0.0:
                     continue
                 f *= pc * _INV_SQRT2 if diagonal else pc
@@ -433,17 +436,17 @@ def _det_step(g, row0, perm, settle, surv1, surv2, turn, invz, last, g_next, arr
                 dead += f - alive
                 moving = alive - settled
                 if persist:
-                    if last or invz[k + 1, i, j] == 0.0:
+                    if last or invz[i, j, k + 1] == 0.0:
                         dead += moving
                     else:
-                        g_next[k, i, j] = moving * invz[k + 1, i, j]
+                        g_next[i, j, k] = moving * invz[i, j, k + 1]
                 else:
                     acc += moving
             if not persist:
-                if last or invz[0, i, j] == 0.0:
+                if last or invz[i, j, 0] == 0.0:
                     dead += acc
                 else:
-                    g_next[0, i, j] = acc * invz[0, i, j]
+                    g_next[i, j, 0] = acc * invz[i, j, 0]
             visits[i, j] += seen
             arrivals[i, j] += arrived
             lost[i, j] += dead
@@ -460,19 +463,18 @@ def _propagate(dispersers: np.ndarray, surf: _Surfaces, turn: np.ndarray, max_st
     try:
         shape = dispersers.shape
         layers = 8 if turn.shape[0] > 1 else 1
-        invz = np.empty((turn.shape[0],) + shape)
+        invz = np.empty(shape + (turn.shape[0],))
         _inv_norm(surf.perm, turn, invz)
         arrivals, visits, lost = np.zeros(shape), np.zeros(shape), np.zeros(shape)
-        buf_a, buf_b = np.zeros((layers,) + shape), np.zeros((layers,) + shape)
-        g = buf_a[:1]
+        g = np.empty(shape + (1,))  # no direction before the first step
         _det_start(dispersers, invz, g, lost)
-        row0 = 0
+        g_next = np.empty(shape + (layers,))
         for t in range(max_steps):
-            _det_step(g, row0, surf.perm, surf.settle, surf.surv1, surf.surv2, turn, invz,
-                      t == max_steps - 1, buf_b, arrivals, visits, lost)
-            buf_a, buf_b = buf_b, buf_a
-            g = buf_a
-            row0 = 1 if layers == 8 else 0
+            _det_step(g, surf.perm, surf.settle, surf.surv1, surf.surv2, turn, invz,
+                      t == max_steps - 1, g_next, arrivals, visits, lost)
+            if g.shape[2] != layers:
+                g = np.empty_like(g_next)
+            g, g_next = g_next, g
     finally:
         numba.set_num_threads(threads)
     return arrivals, visits, lost
