@@ -8,13 +8,14 @@
 
 Prints tables and writes benchmarks/results/bench_dispersal.json.
 
-Usage: python benchmarks/bench_dispersal.py [--size 2048] [--quick]
+Usage: python benchmarks/bench_dispersal.py [--size 2048] [--threads 1,2] [--quick]
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import os
 import platform
 import time
 from pathlib import Path
@@ -28,7 +29,7 @@ RADII = (1, 2, 3, 4, 5, 6, 8, 10, 12, 16, 24, 32, 40, 48, 56, 64, 80, 100)
 FULL_STENCIL_MAX_SECONDS = 5.0  # stop timing the full 2-D stencil beyond this
 
 
-def best_time(fn, repeat=3):
+def best_time(fn, repeat=5):
     fn()  # compile / warm the caches
     times = []
     for _ in range(repeat):
@@ -93,21 +94,24 @@ def bench_stochastic(radii=(2, 5, 10), counts=(1, 4, 16, 64, 256, 1024, 4096), s
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--size", type=int, default=2048)
+    ap.add_argument("--threads", default="1,2", help="numba thread counts, comma-separated")
     ap.add_argument("--quick", action="store_true", help="fewer radii (a smoke test)")
     args = ap.parse_args()
     radii = RADII[::4] if args.quick else RADII
-    print(f"deterministic, {args.size} x {args.size} grid, {numba.get_num_threads()} threads "
-          "(seconds per step)")
-    print(f"{'radius':>6} {'separable':>12} {'full 2-D':>12} {'fft':>10}")
-    det = bench_deterministic(args.size, radii)
-    print("stochastic (microseconds per cell)")
-    print(f"{'radius':>6} {'S':>6} {'n':>6} {'individual':>12} {'multinomial':>12}")
-    sto = bench_stochastic(radii=(2, 5) if args.quick else (2, 5, 10))
+    det, sto = {}, {}
+    for nt in (int(t) for t in args.threads.split(",")):
+        numba.set_num_threads(nt)
+        print(f"deterministic, {args.size} x {args.size} grid, {nt} threads (seconds per step)")
+        print(f"{'radius':>6} {'separable':>12} {'full 2-D':>12} {'fft':>10}")
+        det[nt] = bench_deterministic(args.size, radii)
+        print(f"stochastic, {nt} threads (microseconds per cell)")
+        print(f"{'radius':>6} {'S':>6} {'n':>6} {'individual':>12} {'multinomial':>12}")
+        sto[nt] = bench_stochastic(radii=(2, 5) if args.quick else (2, 5, 10))
     out = Path(__file__).parent / "results"
     out.mkdir(exist_ok=True)
-    result = {"grid": [args.size, args.size], "threads": numba.get_num_threads(),
-              "machine": platform.platform(), "processor": platform.processor(),
-              "deterministic": det, "stochastic": sto,
+    result = {"grid": [args.size, args.size], "machine": platform.platform(),
+              "processor": platform.processor(), "cpus": os.cpu_count(),
+              "load_average": os.getloadavg(), "deterministic": det, "stochastic": sto,
               "recorded": {"STENCIL_MAX_RADIUS_SEPARABLE":
                            dispersal.STENCIL_MAX_RADIUS_SEPARABLE,
                            "STENCIL_MAX_RADIUS": dispersal.STENCIL_MAX_RADIUS,

@@ -59,18 +59,20 @@ invasion front would otherwise be multiplied by the growth rate every year and m
 year, Brunet and Derrida 1997)."""
 
 # Crossover of the deterministic engine, measured with benchmarks/bench_dispersal.py on a
-# 2048 x 2048 grid, 2 numba threads (results in benchmarks/results/bench_dispersal.json): the
-# separable stencil (two 1-D passes, cost ~ 2 (2R + 1) per cell) beats the FFT (cost nearly flat
-# in R) up to R = 60 cells (gaussian sigma ~ 11 cells); the full 2-D stencil (cost ~ pi R^2 per
-# cell) only up to R = 6.
-STENCIL_MAX_RADIUS_SEPARABLE = 60
-STENCIL_MAX_RADIUS = 6
+# 2048 x 2048 grid with 1 and 2 numba threads on a shared 2-core machine (results in
+# benchmarks/results/bench_dispersal.json). The FFT costs 0.10-0.15 s per step whatever the
+# radius; the separable stencil (two 1-D passes, ~2 (2R + 1) operations per cell) costs about
+# the same at R = 16-24 cells (0.13-0.26 s), so up to R = 20, a gaussian sigma of 3.8 cells at
+# the default truncation; the full 2-D stencil (~pi R^2 per cell) only up to R = 4 (0.07-0.21 s).
+STENCIL_MAX_RADIUS_SEPARABLE = 20
+STENCIL_MAX_RADIUS = 4
 
 # Stochastic engine: a cell's n dispersers are placed one by one (binary search of the kernel CDF,
-# ~log2(S) steps each, S = stencil cells with weight > 0) unless n >= MULTINOMIAL_PER_CELL * S, in
-# which case a sequential-binomial multinomial over the stencil (one binomial per stencil cell,
-# largest weights first) is cheaper. Measured with benchmarks/bench_dispersal.py.
-MULTINOMIAL_PER_CELL = 1.0
+# ~log2(S) steps each, S = stencil cells with weight > 0) unless n >= MULTINOMIAL_PER_CELL * S;
+# then a sequential-binomial multinomial over the stencil (one binomial per stencil cell, largest
+# weights first, until none remain) is cheaper. Measured with benchmarks/bench_dispersal.py: the
+# two cost the same near n = S (S = 13) and n = S / 2 (S = 81, 317).
+MULTINOMIAL_PER_CELL = 0.5
 
 _CACHE_SIZE = 16  # kernel transforms and stay fractions kept per kernel (grid shapes, sub-boxes)
 
@@ -200,9 +202,10 @@ def _centre_cell_mass(code, scale, p, w, h, tn, tw):
 
 
 @pjit
-def _radial_cell_masses(code, scale, p, w, h, ry, rx, dmax, gn, gw, tn, tw):
+def _radial_cell_masses(code, scale, p, w, h, ry, rx, dmax, touch, gn, gw, tn, tw):
     """Unnormalised cell masses of a radial kernel over one quadrant (row offset ky = 0..ry,
-    column offset kx = 0..rx); cells whose centre is beyond dmax get 0.
+    column offset kx = 0..rx); cells beyond dmax get 0: cells whose nearest point is beyond
+    when ``touch``, else cells whose centre is beyond.
 
     Each cell is split into m x m sub-cells, each integrated with a 6 x 6 Gauss-Legendre rule; m
     keeps sub-cells below half the local length scale of the density (a for the exponential,
@@ -213,13 +216,17 @@ def _radial_cell_masses(code, scale, p, w, h, ry, rx, dmax, gn, gw, tn, tw):
     big = max(w, h)
     for ky in prange(ry + 1):
         for kx in range(rx + 1):
-            if (ky * h) ** 2 + (kx * w) ** 2 > dmax * dmax * (1.0 + 1e-12):
+            ny_ = max(0.0, (ky - 0.5) * h)
+            nx_ = max(0.0, (kx - 0.5) * w)
+            if touch:
+                d2 = ny_ * ny_ + nx_ * nx_
+            else:
+                d2 = (ky * h) ** 2 + (kx * w) ** 2
+            if d2 > dmax * dmax * (1.0 + 1e-12):
                 continue
             if ky == 0 and kx == 0:
                 out[0, 0] = _centre_cell_mass(code, scale, p, w, h, tn, tw)
                 continue
-            ny_ = max(0.0, (ky - 0.5) * h)
-            nx_ = max(0.0, (kx - 0.5) * w)
             if code == 1:
                 length = scale
             else:
@@ -251,6 +258,13 @@ def _gaussian_axis(sigma: float, cell: float, r: int) -> np.ndarray:
     return wts / wts.sum()
 
 
+def _reach(dmax: float, cell: float, touch: bool) -> int:
+    """Stencil reach in cells along one axis: the last cell whose near edge (touch) or centre
+    lies within dmax."""
+    x = dmax / cell * (1.0 + 1e-12)
+    return max(0, math.ceil(x - 0.5) if touch else math.floor(x))
+
+
 def _mirror_quadrant(q: np.ndarray) -> np.ndarray:
     """Full (2ry+1, 2rx+1) array from the quadrant ky, kx >= 0."""
     top = np.concatenate([q[:, :0:-1], q], axis=1)
@@ -276,11 +290,14 @@ def make_kernel(kind, *, mean_distance_m, tail=1.5, max_distance_m=None, cell_w_
     tail : float
         Shape p of the 2dt kernel, > 0.5 (smaller = fatter tail). Ignored by the others.
     max_distance_m : float, optional
-        Truncation distance, metres; at most the grid diagonal. The gaussian kernel is truncated
-        to the square |dx|, |dy| <= max distance (it stays separable), the others to cells whose
-        centre lies within the max distance. Default: the distance where the kernel's distance
-        CDF reaches 1 - 1e-6 (:data:`TAIL_MASS`), for the 2dt at most 50 mean distances
-        (:data:`TWODT_CAP_MEANS`), and at most the grid diagonal.
+        Truncation distance, metres; at most the grid diagonal. The stencil keeps the cells
+        whose centre lies within it (centre-to-centre displacement <= max distance); the
+        gaussian kernel keeps the square |dy|, |dx| <= max distance (it stays separable).
+        Default: the distance where the kernel's distance CDF reaches 1 - 1e-6
+        (:data:`TAIL_MASS`), for the 2dt at most 50 mean distances (:data:`TWODT_CAP_MEANS`)
+        and for all at most the grid diagonal; then the stencil keeps every cell that distance
+        reaches into (the circle, or the gaussian's square, touches the cell), so that no more
+        than 1e-6 is cut off even from a kernel smaller than a cell.
     cell_w_m, cell_h_m : float
         Cell width (along a row) and height, metres.
     grid_shape : (int, int), optional
@@ -342,8 +359,12 @@ def make_kernel(kind, *, mean_distance_m, tail=1.5, max_distance_m=None, cell_w_
                 f"{loc} = {dmax:g} m is larger than the grid ({grid_shape[0]} x {grid_shape[1]} "
                 f"cells of {cell_w_m:g} x {cell_h_m:g} m, diagonal {extent:.6g} m); allowed: "
                 f"0 < value <= {extent:.6g}.")
-    ry = int(math.floor(dmax / cell_h_m * (1.0 + 1e-12)))
-    rx = int(math.floor(dmax / cell_w_m * (1.0 + 1e-12)))
+    # Default truncation: every cell the truncation circle touches, so that at most TAIL_MASS is
+    # cut off even for kernels much smaller than a cell. A given maximum distance: the cells whose
+    # centre is within it, so that no disperser moves further (centre to centre).
+    touch = max_distance_m is None
+    ry = _reach(dmax, cell_h_m, touch)
+    rx = _reach(dmax, cell_w_m, touch)
     if code == 0:
         wy = _gaussian_axis(scale, cell_h_m, ry)
         wx = _gaussian_axis(scale, cell_w_m, rx)
@@ -351,7 +372,7 @@ def make_kernel(kind, *, mean_distance_m, tail=1.5, max_distance_m=None, cell_w_
         separable = (wy, wx)
     else:
         q = _radial_cell_masses(code, scale, p, float(cell_w_m), float(cell_h_m), ry, rx, dmax,
-                                _GL_NODES, _GL_WEIGHTS, _GL_THETA_NODES, _GL_THETA_WEIGHTS)
+                                touch, _GL_NODES, _GL_WEIGHTS, _GL_THETA_NODES, _GL_THETA_WEIGHTS)
         stencil = _mirror_quadrant(q)
         stencil /= stencil.sum()
         separable = None

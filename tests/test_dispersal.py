@@ -105,8 +105,8 @@ def test_cell_masses_match_scipy_dblquad(code, scale, p):
     2Dt (Clark et al. 1999, Ecology 80:1475) densities against scipy.integrate.dblquad, for the
     centre cell (cusp of the exponential), its neighbours and far cells, on 1 x 1.3 cells."""
     w, h = 1.0, 1.3
-    q = D._radial_cell_masses(code, scale, p, w, h, 5, 5, 100.0, D._GL_NODES, D._GL_WEIGHTS,
-                              D._GL_THETA_NODES, D._GL_THETA_WEIGHTS)
+    q = D._radial_cell_masses(code, scale, p, w, h, 5, 5, 100.0, False, D._GL_NODES,
+                              D._GL_WEIGHTS, D._GL_THETA_NODES, D._GL_THETA_WEIGHTS)
     if code == 1:
         def f(y, x):
             return math.exp(-math.hypot(x, y) / scale) / (2 * math.pi * scale ** 2)
@@ -223,6 +223,30 @@ def test_default_truncation_mass():
     assert t.radius == 100
     small = kernel("2dt", mean=1.0, tail=1.5, cell=0.5, grid_shape=(30, 40))
     assert small.max_distance_m == pytest.approx(math.hypot(15.0, 20.0))
+
+
+@pytest.mark.parametrize("kind", ["gaussian", "exponential"])
+def test_default_truncation_keeps_cells_the_circle_touches(kind):
+    """A kernel smaller than a cell (mean 0.2 cell): the default stencil keeps the neighbours the
+    1 - 1e-6 circle reaches into, so the mass leaving the centre cell is within 1e-6 of the
+    untruncated value (gaussian: 1 - erf(h / (2 sqrt(2) sigma))^2, common practice; the others:
+    1 - centre-cell mass by scipy.integrate.dblquad). A given max distance keeps whole cells by
+    centre distance: 0.9 cell keeps the centre only."""
+    h = 1.0
+    k = kernel(kind, mean=0.2, cell=h)
+    assert k.radius == math.ceil(k.max_distance_m / h - 0.5) >= 1
+    code = D.KERNELS[kind]
+    scale = D._scale(code, 0.2, 1.5)
+    if kind == "gaussian":
+        leave = 1 - math.erf(h / (2 * math.sqrt(2) * scale)) ** 2
+    else:
+        def f(y, x):
+            return D._radial_density(code, x * x + y * y, scale, 1.5)
+        leave = 1 - 4 * integrate.dblquad(f, 0, h / 2, 0, h / 2, epsabs=0, epsrel=1e-12)[0]
+    c = k.radius
+    assert 1 - k.weights[c, c] == pytest.approx(leave, abs=1e-6)
+    assert leave > 1e-4
+    assert kernel(kind, mean=0.2, cell=h, max_distance_m=0.9).radius == 0
 
 
 # ------------------------------------------------------------------------------------------
