@@ -25,9 +25,13 @@ so results do not depend on how batches were scheduled.
 from __future__ import annotations
 
 import dataclasses
+import errno
 import json
 import math
+import os
+import shutil
 import time
+import uuid
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -48,12 +52,14 @@ from .dispersal import (
     patch_retention_deterministic,
 )
 from .disturbance import Regime, build_regime
+from .errors import RunStateError
 from .landscape import Landscape, build_landscape
 from .outputs import (
     LEDGER_FIELDS,
     check_output,
     prepare_output,
     publish,
+    working_folder,
     write_events_csv,
     write_json,
     write_ledger_csv,
@@ -372,43 +378,340 @@ def combine(work: Path, model: Model, parts: list[Path]) -> dict[str, np.ndarray
     return totals
 
 
-def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False) -> Path:
-    """Run a scenario and write its results to ``out_dir``; return the output folder."""
+CHECKPOINT = "checkpoint.json"
+"""Manifest of an unfinished run in its working folder: gridpop version, scenario hash, the
+parameters as read (overrides included) and the number of batches. A resumed run must match it."""
+
+NO_SPACE = (errno.ENOSPC, errno.EDQUOT)
+
+
+def batch_folder(work: Path, b: int) -> Path:
+    """Where batch ``b`` of a run lives in its working folder."""
+    return Path(work) / "batches" / f"{b:05d}"
+
+
+def run_checkpointed_batch(model: Model, b: int, reps: range, work, progress=None) -> int:
+    """Run batch ``b`` into a temporary folder, then rename it to :func:`batch_folder`.
+
+    The rename is the checkpoint: the batch folder is either absent or whole. When it is already
+    in place (another attempt at the same batch, e.g. a task Dask retried, finished first) the
+    new copy is discarded, so a batch is never counted twice. Returns ``b``.
+    """
+    final = batch_folder(work, b)
+    tmp = final.with_name(f"{final.name}.{uuid.uuid4().hex[:12]}.tmp")
+    run_batch(model, reps, tmp, progress)
+    try:
+        os.rename(tmp, final)
+    except OSError:
+        if not (final / "done").is_file():
+            raise
+        shutil.rmtree(tmp)
+    return b
+
+
+def _finished(work: Path, n: int) -> set[int]:
+    """Indices of the batches in place (folder with its ``done`` marker) in a working folder."""
+    folder = work / "batches"
+    if not folder.is_dir():
+        return set()
+    return {int(p.name) for p in folder.iterdir()
+            if p.name.isdigit() and int(p.name) < n and (p / "done").is_file()}
+
+
+def _discard_unfinished(work: Path, keep: set[int]) -> None:
+    """Remove everything under ``batches/`` but the finished batches (e.g. the temporary folder
+    of a batch that was interrupted)."""
+    folder = work / "batches"
+    folder.mkdir(exist_ok=True)
+    for p in folder.iterdir():
+        if not (p.name.isdigit() and int(p.name) in keep):
+            shutil.rmtree(p) if p.is_dir() else p.unlink()
+
+
+def _run_identity(scenario, model: Model) -> dict:
+    return {"gridpop_version": __version__, "scenario": str(scenario.path),
+            "scenario_sha256": scenario.sha256, "parameters": scenario_summary(scenario),
+            "batches": len(batches(model))}
+
+
+def _may_continue(work: Path, identity: dict, *, resume: bool, overwrite: bool) -> bool:
+    """Whether the run continues the interrupted run in ``work`` (read only).
+
+    Raises
+    ------
+    RunStateError
+        With ``resume`` when the interrupted run is of another scenario file, other parameters or
+        another gridpop version; without ``resume`` or ``overwrite`` when there is an
+        interrupted run to lose.
+    """
+    path = work / CHECKPOINT
+    if not path.is_file():
+        return False
+    try:
+        saved = json.loads(path.read_text())
+    except (OSError, ValueError) as exc:
+        raise RunStateError(f"{path}: unreadable ({exc}); pass --overwrite without --resume "
+                            "to start over.") from None
+    if not resume:
+        if overwrite:
+            return False
+        raise RunStateError(
+            f"{work}: holds an interrupted run of {saved.get('scenario')}; pass --resume to "
+            "continue it or --overwrite to start over.")
+    scen = identity["scenario"]
+    if saved.get("scenario_sha256") != identity["scenario_sha256"]:
+        raise RunStateError(
+            f"{scen}: the scenario file changed since the interrupted run in {work} started "
+            f"(sha256 {str(saved.get('scenario_sha256'))[:12]}... then, "
+            f"{identity['scenario_sha256'][:12]}... now); --resume continues only the same "
+            "scenario. Restore the file, or run without --resume and with --overwrite to start "
+            "over.")
+    changed = [f"[{sec}] {key} = {old!r} then, {identity['parameters'][sec].get(key)!r} now"
+               for sec, values in saved.get("parameters", {}).items()
+               for key, old in values.items()
+               if identity["parameters"].get(sec, {}).get(key) != old]
+    if saved.get("gridpop_version") != identity["gridpop_version"]:
+        changed.append(f"gridpop {saved.get('gridpop_version')} then, "
+                       f"{identity['gridpop_version']} now")
+    if changed or saved.get("batches") != identity["batches"]:
+        raise RunStateError(
+            f"{scen}: the interrupted run in {work} had other settings: "
+            f"{'; '.join(changed) or 'another number of batches'}. --resume needs the same "
+            "settings (command-line overrides included); or run without --resume and with "
+            "--overwrite to start over.")
+    return True
+
+
+BASE_BYTES = 350 * 2**20
+"""Resident memory of a gridpop process before any grid is loaded (Python, numba's compiled
+kernels, GDAL), measured with benchmarks/bench_memory.py."""
+MODEL_BYTES_PER_CELL = 80
+"""The model's and landscape's per-cell arrays (capacity, initial, labels, mask, ...)."""
+REPLICATE_BYTES_PER_CELL = 240
+"""State and temporaries of one replicate's yearly cycle (population, births, deaths, noise,
+dispersal fields), per cell; calibrated with benchmarks/bench_memory.py."""
+CSV_ROW_BYTES = 170
+"""Upper bound of a ledger row in timeseries.csv / patches.csv (8 numbers of up to 18 chars)."""
+
+
+@dataclass(frozen=True)
+class Footprint:
+    """Estimated resources of a run, bytes (see :func:`footprint`)."""
+
+    base: int  # one process with the model loaded
+    batch: int  # on top of base, while a process runs a batch
+    combine: int  # on top of base, while the batches are combined and the results written
+    output: int  # the published results, GeoTIFF stacks counted uncompressed (an upper bound)
+    work: int  # peak disk use of the working folder (batches, totals and results together)
+
+    def memory(self, *, workers: int | None = None, scheduler: str | None = None) -> int:
+        """Peak memory on this machine: in-process, with ``workers`` local worker processes
+        (plus this one) or with a remote ``scheduler`` (this process only)."""
+        if scheduler is not None:
+            return self.base + self.combine
+        if workers is not None:
+            return workers * (self.base + self.batch) + self.base + self.combine
+        return self.base + max(self.batch, self.combine)
+
+
+def footprint(scenario, model: Model) -> Footprint:
+    """Estimate the memory and disk a run needs.
+
+    Per-year accumulators are memory-mapped files, so memory does not grow with the number of
+    years; what does are the ledgers (replicates x years x patches) and the disk use. The working
+    folder holds every batch's accumulators until they are combined.
+    """
+    ny, nx = model.capacity.shape
+    cells = ny * nx
+    years = model.years + 1
+    rows = years * (model.n_patches + 1)
+    per_cell = sum(np.dtype(dt).itemsize for dt in model.accumulators.values())
+    fft = 0
+    if model.kernel is not None:
+        r = model.kernel.radius
+        fft = 48 * (ny + 2 * r) * (nx + 2 * r)  # padded real field, spectra, kernel transform
+    ledger_row = N_FIELDS * 8
+    n_stacks = sum(1 for name, (acc, _) in STACKS.items() if acc in model.accumulators
+                   and (name in scenario.output.rasters or acc.startswith("n_")))
+    patch_rows = model.replicates * years * model.n_patches if scenario.output.patches_csv else 0
+    output = (n_stacks * years * cells * 4
+              + (model.replicates * years + patch_rows) * CSV_ROW_BYTES)
+    n_batches = len(batches(model))
+    work = (n_batches + 1) * years * cells * per_cell + model.replicates * rows * ledger_row
+    return Footprint(
+        base=BASE_BYTES + cells * MODEL_BYTES_PER_CELL,
+        batch=cells * REPLICATE_BYTES_PER_CELL + fft + model.batch_size * rows * ledger_row,
+        combine=model.replicates * rows * ledger_row + cells * 16,
+        output=output, work=work + output)
+
+
+def free_room(path) -> tuple[int, int]:
+    """Available memory, and free disk space where ``path`` is (or would be created), bytes."""
+    import psutil
+
+    p = Path(path).absolute()
+    while not p.exists():
+        p = p.parent
+    return psutil.virtual_memory().available, shutil.disk_usage(p).free
+
+
+def size_text(n: float) -> str:
+    """A byte count for people: ``'1.5 GB'``."""
+    for unit in ("B", "kB", "MB", "GB", "TB"):
+        if abs(n) < 1000 or unit == "TB":
+            return f"{n:.0f} {unit}" if unit == "B" else f"{n:.1f} {unit}"
+        n /= 1000
+    raise AssertionError("unreachable")
+
+
+def check_room(fp: Footprint, work: Path, *, workers=None, scheduler=None,
+               finished: float = 0.0) -> None:
+    """Refuse a run whose estimate does not fit in free memory or on the working folder's disk.
+
+    ``finished`` is the fraction of batches already on disk (a resumed run needs that much less).
+
+    Raises
+    ------
+    RunStateError
+        With the estimated need and what is free.
+    """
+    memory, disk = free_room(work)
+    need_mem = fp.memory(workers=workers, scheduler=scheduler)
+    need_disk = int(fp.work * (1.0 - finished) + fp.output * finished)
+    short = []
+    if need_mem > memory:
+        short.append(f"about {size_text(need_mem)} of memory but {size_text(memory)} is "
+                     "available")
+    if need_disk > disk:
+        short.append(f"about {size_text(need_disk)} of disk beside {work.parent} but "
+                     f"{size_text(disk)} is free")
+    if short:
+        raise RunStateError(
+            f"{work.parent}: this run needs {' and '.join(short)}. Fewer years, replicates, "
+            "workers or output rasters, a larger [run] batch_size (fewer batch folders on "
+            "disk), or another --out would help; pass --force to start anyway.")
+
+
+def footprint_lines(scenario, model: Model, out_dir) -> list[str]:
+    """The estimate and what is free now, for ``gridpop check``."""
+    fp = footprint(scenario, model)
+    memory, disk = free_room(out_dir)
+    return [f"estimated peak memory: {size_text(fp.memory())} in-process; with --workers N, "
+            f"{size_text(fp.base + fp.batch)} per worker plus "
+            f"{size_text(fp.base + fp.combine)} for this process",
+            f"estimated output: {size_text(fp.output)} (stacks counted uncompressed); working "
+            f"space up to {size_text(fp.work)} beside the output folder",
+            f"free now: {size_text(memory)} of memory, {size_text(disk)} of disk at "
+            f"{Path(out_dir).absolute().parent}"]
+
+
+def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
+        workers: int | None = None, scheduler: str | None = None, resume: bool = False,
+        force: bool = False) -> Path:
+    """Run a scenario and write its results to ``out_dir``; return the output folder.
+
+    Batches of replicates are checkpointed in the working folder beside ``out_dir``
+    (:func:`gridpop.outputs.working_folder`) and combined in batch order when all are done, so
+    results are the same in-process, on any number of Dask workers and after a resume.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    out_dir : path
+    overwrite : bool
+        Replace an existing output folder (and discard an interrupted run of it).
+    progress : bool
+        Show a progress bar.
+    workers : int, optional
+        Run the batches on a new local Dask cluster of this many worker processes.
+    scheduler : str, optional
+        Run the batches on the Dask cluster at this address; the output folder must then be on
+        a filesystem its workers share (:mod:`gridpop.distributed`).
+    resume : bool
+        Continue the interrupted run of ``out_dir``, keeping the batches it finished. Refused
+        when the scenario file, its parameters or the gridpop version differ.
+    force : bool
+        Start even when the estimate (:func:`footprint`) exceeds the free memory or disk.
+
+    Raises
+    ------
+    OutputExistsError
+        ``out_dir`` exists and ``overwrite`` is false.
+    RunStateError
+        Both ``workers`` and ``scheduler``; no room; unreachable scheduler; a changed scenario
+        under ``resume``; an interrupted run in the way; the disk filled up during the run
+        (finished batches are kept for ``resume``).
+    """
     from tqdm import tqdm
 
     started = time.time()
     out_dir = Path(out_dir)
+    if workers is not None and scheduler is not None:
+        raise RunStateError("--workers and --scheduler exclude each other: --workers starts a "
+                            "cluster on this machine, --scheduler uses a running one.")
     check_output(out_dir, overwrite=overwrite)
     model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
-    work = prepare_output(out_dir, overwrite=overwrite)
-    parts = []
-    with tqdm(total=model.replicates, unit="replicate", disable=not progress,
-              desc="gridpop run") as bar:
-        for b, reps in enumerate(batches(model)):
-            folder = work / "batches" / f"{b:05d}"
-            run_batch(model, reps, folder, bar)
-            parts.append(folder)
-    files = write_results(work, scenario, model, parts)
-    grid = model.landscape.grid
-    manifest = {
-        "gridpop_version": __version__,
-        "scenario": str(scenario.path),
-        "scenario_sha256": scenario.sha256,
-        "seed": model.seed,
-        "years": model.years,
-        "replicates": model.replicates,
-        "stochastic": model.stochastic,
-        "grid": {"crs_wkt": grid.crs.to_wkt(), "transform": list(grid.transform)[:6],
-                 "shape": list(grid.shape)},
-        "files": sorted(files),
-        "numba_threads": numba.get_num_threads(),
-        "wall_time_s": round(time.time() - started, 3),
-        "complete": True,
-    }
-    write_json(work / "run.json", manifest)
-    publish(work, out_dir)
-    return out_dir
+    plan = batches(model)
+    work = working_folder(out_dir)
+    resuming = _may_continue(work, _run_identity(scenario, model), resume=resume,
+                             overwrite=overwrite)
+    finished = _finished(work, len(plan)) if resuming else set()
+    if not force:
+        check_room(footprint(scenario, model), work, workers=workers, scheduler=scheduler,
+                   finished=len(finished) / len(plan))
+    work = prepare_output(out_dir, overwrite=overwrite, resume=resuming)
+    try:
+        if not resuming:
+            write_json(work / CHECKPOINT, {**_run_identity(scenario, model), "complete": False})
+        _discard_unfinished(work, finished)
+        todo = [(b, reps) for b, reps in enumerate(plan) if b not in finished]
+        with tqdm(total=model.replicates, initial=model.replicates - sum(len(r) for _, r in todo),
+                  unit="replicate", disable=not progress, desc="gridpop run") as bar:
+            if workers is None and scheduler is None:
+                for b, reps in todo:
+                    run_checkpointed_batch(model, b, reps, work, bar)
+            elif todo:
+                from .distributed import cluster_client, run_batches
 
+                with cluster_client(workers=workers, scheduler=scheduler) as client:
+                    run_batches(client, model, todo, work, bar)
+        files = write_results(work, scenario, model, [batch_folder(work, b)
+                                                      for b in range(len(plan))])
+        grid = model.landscape.grid
+        manifest = {
+            "gridpop_version": __version__,
+            "scenario": str(scenario.path),
+            "scenario_sha256": scenario.sha256,
+            "seed": model.seed,
+            "years": model.years,
+            "replicates": model.replicates,
+            "stochastic": model.stochastic,
+            "grid": {"crs_wkt": grid.crs.to_wkt(), "transform": list(grid.transform)[:6],
+                     "shape": list(grid.shape)},
+            "files": sorted(files),
+            "execution": {  # how the run was carried out: the only part that may differ
+                "mode": ("in-process" if workers is None and scheduler is None
+                         else "local cluster" if workers is not None else "scheduler"),
+                "workers": workers,
+                "numba_threads": (numba.get_num_threads() if workers is None and scheduler is None
+                                  else 1 if workers is not None else None),
+                "resumed_batches": len(finished),
+                "wall_time_s": round(time.time() - started, 3),
+            },
+            "complete": True,
+        }
+        (work / CHECKPOINT).unlink()
+        write_json(work / "run.json", manifest)
+        publish(work, out_dir)
+    except OSError as exc:
+        if exc.errno not in NO_SPACE:
+            raise
+        done = len(_finished(work, len(plan)))
+        raise RunStateError(
+            f"{work}: no space left on the device ({exc.strerror or exc}); {done} of "
+            f"{len(plan)} batches are finished and kept. Free some space, then run the same "
+            "command again with --resume.") from None
+    return out_dir
 
 STACKS = {
     # output raster name: (accumulator, what the band holds)
