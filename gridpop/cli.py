@@ -13,10 +13,10 @@ from . import __version__
 from .errors import GridpopError, OutputExistsError
 
 
-def _scenario_with_overrides(args):
+def _scenario_with_overrides(args, path=None):
     from .scenario import load_scenario
 
-    scenario = load_scenario(args.scenario)
+    scenario = load_scenario(args.scenario if path is None else path)
     overrides = {k: getattr(args, k) for k in ("years", "replicates", "seed")
                  if getattr(args, k, None) is not None}
     if overrides:
@@ -41,7 +41,26 @@ def cmd_run(args) -> int:
     out = Path(args.out) if args.out else Path("results") / scenario.path.stem
     show = not args.quiet and sys.stderr.isatty()
     run(scenario, out, overwrite=args.overwrite, progress=show)
+    if not args.no_plots:
+        from .plots import plot_run
+
+        plot_run(out)
     if not args.quiet:
+        print(f"results written to {out}")
+    return 0
+
+
+def cmd_compare(args) -> int:
+    import json
+
+    from .compare import compare, table
+
+    scenarios = [_scenario_with_overrides(args, path) for path in args.scenarios]
+    show = not args.quiet and sys.stderr.isatty()
+    out = compare(scenarios, args.out, overwrite=args.overwrite, progress=show,
+                  plots=not args.no_plots)
+    if not args.quiet:
+        print(table(json.loads((out / "comparison.json").read_text())))
         print(f"results written to {out}")
     return 0
 
@@ -82,7 +101,19 @@ def parser() -> argparse.ArgumentParser:
     _add_run_overrides(p)
     p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
     p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
+    p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
     p.set_defaults(func=cmd_run)
+
+    p = sub.add_parser("compare", help="run plans with common random numbers and compare them "
+                       "with the first")
+    p.add_argument("scenarios", nargs="+", metavar="SCENARIO",
+                   help="scenario files; the first is the baseline")
+    p.add_argument("--out", required=True, help="output folder")
+    _add_run_overrides(p)
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
+    p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
+    p.set_defaults(func=cmd_compare)
 
     p = sub.add_parser("init", help="write a commented scenario template into DIR")
     p.add_argument("dir")

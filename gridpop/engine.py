@@ -66,6 +66,7 @@ from .outputs import (
     write_stack,
     year_labels,
 )
+from .summary import TargetCensus, target_census, write_summary
 
 N_FIELDS = len(LEDGER_FIELDS)
 F_ABUND, F_BIRTHS, F_DEATHS, F_DIST, F_EMIG, F_IMMIG, F_LOSS, F_OCC = range(N_FIELDS)
@@ -99,6 +100,7 @@ class Model:
     occupancy_threshold: float
     actions: Actions
     regime: Regime | None
+    targets: TargetCensus | None = None  # target areas counted at each census (gridpop.summary)
 
     @property
     def accumulators(self) -> dict:
@@ -141,6 +143,7 @@ def build_model(scenario, base: Landscape) -> Model:
         density_dependence=d.density_dependence, kernel=kernel, edge=d.edge, env=env,
         occupancy_threshold=scenario.output.occupancy_threshold,
         actions=actions, regime=build_regime(scenario, landscape, actions),
+        targets=target_census(scenario, grid),
     )
 
 
@@ -223,6 +226,8 @@ class BatchSink:
         self.events: list[tuple] = []
         self.folder = folder
         self.replicates = replicates
+        self.targets = (model.targets.table(len(replicates), model.years)
+                        if model.targets is not None else None)
 
     def close(self) -> None:
         for a in self.acc.values():
@@ -230,6 +235,8 @@ class BatchSink:
         np.save(self.folder / "ledger.npy", self.ledger)
         with open(self.folder / "events.json", "w") as fh:
             json.dump(self.events, fh)
+        if self.targets is not None:
+            np.save(self.folder / "targets.npy", self.targets)
         (self.folder / "done").write_text("ok\n")
 
 
@@ -292,6 +299,8 @@ class Replicate:
         row[:, F_DEATHS] = s[:, 2]
         row[:, F_DIST] = s[:, 3]
         row[:, F_OCC] = s[:, 4]
+        if m.targets is not None:
+            m.targets.record(sink.targets[self.replicate - sink.replicates.start, t], self.n)
         eff = self.effects
         if t > 0 and eff is not None:
             for kind, hit in (("fire", eff.burned), ("flood", eff.flooded)):
@@ -749,6 +758,7 @@ def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list
         events = [e for p in parts for e in json.loads((p / "events.json").read_text())]
         write_events_csv(work / "events.csv", events)
         files.append("events.csv")
+    files += write_summary(work, scenario, model, ledger, totals, parts)
     for name in list(totals):
         del totals[name]
         (work / f"total_{name}.npy").unlink()

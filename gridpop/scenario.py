@@ -177,6 +177,28 @@ SECTIONS: dict[str, tuple[str, tuple[Key, ...]]] = {
             Key("patches_csv", "bool", True, "Write the per-patch ledger patches.csv."),
         ),
     ),
+    "risk": (
+        "How the run summary measures risk (summary.json, risk.csv).",
+        (
+            Key("quasi_extinction", "float", 10.0, "Quasi-extinction threshold: a replicate is "
+                "below it in a year when abundance < this value.", "individuals", low=0,
+                low_open=True),
+            Key("targets", "path", None, "Vector file of named target areas (polygons): risk "
+                "and colonisation are also reported for the individuals inside each.",
+                example="targets.gpkg"),
+            Key("target_name_field", "str", "name", "Attribute of the target areas holding "
+                "their names (features with the same name form one target)."),
+            Key("confidence", "float", 0.95, "Coverage of the confidence intervals.", low=0,
+                high=1, low_open=True, high_open=True),
+        ),
+    ),
+    "plan": (
+        "What this scenario stands for, for tables and reports.",
+        (
+            Key("description", "str", "", "One line on the plan (e.g. \"two corridors between "
+                "the north blocks\")."),
+        ),
+    ),
 }
 
 
@@ -368,6 +390,8 @@ class Scenario:
     growth: Any
     dispersal: Any
     output: Any
+    risk: Any
+    plan: Any
     extra: dict = field(default_factory=dict)
 
     def replace(self, section: str, **values) -> Scenario:
