@@ -65,6 +65,13 @@ def cmd_compare(args) -> int:
     return 0
 
 
+def cmd_report(args) -> int:
+    from .report import write_report
+
+    print(f"report written to {write_report(args.dir, args.out)}")
+    return 0
+
+
 def cmd_init(args) -> int:
     from .scenario import template_toml
 
@@ -114,6 +121,12 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
     p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
     p.set_defaults(func=cmd_compare)
+
+    p = sub.add_parser("report", help="write a self-contained HTML report of a run or "
+                       "compare folder")
+    p.add_argument("dir", metavar="RUN_OR_COMPARE_DIR")
+    p.add_argument("--out", metavar="FILE", help="report file (default DIR/report.html)")
+    p.set_defaults(func=cmd_report)
 
     p = sub.add_parser("init", help="write a commented scenario template into DIR")
     p.add_argument("dir")

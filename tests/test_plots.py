@@ -1,0 +1,333 @@
+"""Plots of a run and of a comparison, on small fake RUN and COMPARE folders.
+
+The folders hold the files of the issue 5 contract (summary.json, run.json, timeseries.csv, the
+GeoTIFF stacks, comparison.csv, compare.json ...) made up here, so these tests do not need a
+simulation.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+
+import geopandas as gpd
+import matplotlib.image
+import numpy as np
+import pyproj
+import pytest
+from conftest import UTM, write_raster
+from shapely.geometry import LineString, Polygon, box
+
+from gridpop.errors import InputDataError
+from gridpop.outputs import LEDGER_FIELDS
+from gridpop.plots import (
+    abundance_figure,
+    ledger_figure,
+    ledger_means,
+    map_figure,
+    nice_length,
+    outlines,
+    plot_compare,
+    plot_run,
+    read_band,
+    read_plans,
+    read_run,
+    risk_figure,
+)
+
+NY, NX, CELL = 40, 60, 30.0
+X0, Y0 = 500_000.0, 4_000_000.0  # upper-left corner of the conftest grid
+RESERVE = (X0 + 300.0, Y0 - 600.0, X0 + 900.0, Y0 - 150.0)  # a reserve rectangle in UTM 33N
+CAUTIONS = ("Fake cautions: results support decisions and do not replace field data, the "
+            "responsible agency, local regulations or licensed professional judgement.")
+
+
+def _curve(n: np.ndarray, threshold: float) -> dict:
+    below = n < threshold
+    ever = np.maximum.accumulate(below, axis=1).mean(axis=0)
+    now = below.mean(axis=0)
+    return {"year": list(range(n.shape[1])), "ever_below": ever.tolist(),
+            "ever_below_lo": np.clip(ever - 0.1, 0, 1).tolist(),
+            "ever_below_hi": np.clip(ever + 0.1, 0, 1).tolist(), "below_now": now.tolist(),
+            "below_now_lo": np.clip(now - 0.1, 0, 1).tolist(),
+            "below_now_hi": np.clip(now + 0.1, 0, 1).tolist()}
+
+
+def _areas(folder):
+    """A reserve polygon stored in WGS 84 longitude/latitude, a corridor line in UTM, a raster
+    area and a target area."""
+    to_ll = pyproj.Transformer.from_crs(UTM, "EPSG:4326", always_xy=True)
+    x0, y0, x1, y1 = RESERVE
+    corners = [to_ll.transform(x, y) for x, y in ((x0, y0), (x1, y0), (x1, y1), (x0, y1))]
+    reserve = folder / "reserve.gpkg"
+    gpd.GeoDataFrame(geometry=[Polygon(corners)], crs="EPSG:4326").to_file(reserve)
+    corridor = folder / "corridor.geojson"
+    gpd.GeoDataFrame(geometry=[LineString([(X0 + 750, Y0 - 600), (X0 + 1200, Y0 - 900)])],
+                     crs=UTM).to_file(corridor)
+    restoration = write_raster(folder / "restoration.tif", np.ones((NY, NX)))
+    targets = folder / "targets.gpkg"
+    gpd.GeoDataFrame({"name": ["east"]}, geometry=[box(X0 + 1200, Y0 - 1100, X0 + 1600,
+                                                       Y0 - 700)], crs=UTM).to_file(targets)
+    return reserve, corridor, restoration, targets
+
+
+def make_run(folder, name, *, years=12, replicates=8, seed=0, growth=0.0, actions=True):
+    """Write a fake RUN folder (the files of the contract) and return it."""
+    folder.mkdir(parents=True)
+    rng = np.random.default_rng(seed)
+    r, t = replicates, years + 1
+    births = rng.poisson(30, (r, t)).astype(float)
+    deaths = rng.poisson(30 - growth, (r, t)).astype(float)
+    dist = rng.poisson(2, (r, t)).astype(float)
+    emig = rng.poisson(10, (r, t)).astype(float)
+    imm = np.minimum(emig, rng.poisson(9, (r, t))).astype(float)
+    for a in (births, deaths, dist, emig, imm):
+        a[:, 0] = 0
+    n = np.maximum(60 + np.cumsum(births - deaths - dist + imm - emig, axis=1), 0)
+    with open(folder / "timeseries.csv", "w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow(["replicate", "year", *LEDGER_FIELDS])
+        for i in range(r):
+            for k in range(t):
+                w.writerow([i, k, int(n[i, k]), int(births[i, k]), int(deaths[i, k]),
+                            int(dist[i, k]), int(emig[i, k]), int(imm[i, k]),
+                            int(emig[i, k] - imm[i, k]), 10])
+    occ = rng.random((t, NY, NX)) * np.linspace(0, 1, NX)
+    occ[:, :3, -5:] = -9999.0  # outside the study area
+    write_raster(folder / "occupancy.tif", occ)
+    first = np.where(occ[-1] > 0.3, np.floor(occ[-1] * years), -9999.0)
+    first[:3, -5:] = -9999.0
+    write_raster(folder / "colonisation_year.tif", first)
+    reserve, corridor, restoration, targets = _areas(folder)
+    plan_actions = [{"kind": "reserve", "area": str(reserve)},
+                    {"kind": "corridor", "area": str(corridor)},
+                    {"kind": "restoration", "area": str(restoration)}] if actions else []
+    summary = {
+        "quasi_extinction": 50.0, "replicates": r, "years": years, "confidence": 0.95,
+        "risk": _curve(n, 50.0), "target_risk": {"east": _curve(n / 4, 10.0)},
+        "expected_minimum": {"estimate": 41.5, "lo": 30.25, "hi": 52.75},
+        "final_abundance": {"mean": 70.5, "p5": 10.0, "p25": 40.0, "p50": 66.0, "p75": 90.0,
+                            "p95": 130.0},
+        "occupied_patches": {"year": list(range(t)), "mean": [3.0] * (t - 1) + [2.5]},
+        "colonisation": {"east": {"year": list(range(t)),
+                                  "probability": np.linspace(0, 0.625, t).tolist()}},
+        "metapopulation_capacity": {"lambda_M": 12.75, "contribution": [0.5, 0.25, 0.25],
+                                    "removal_drop": [6.0, 2.0, 2.0]},
+        "parameters": {"run": {"years": years, "replicates": r, "seed": 7},
+                       "growth": {"model": "beverton-holt", "rate": 0.35 + growth / 100},
+                       "dispersal": {"kernel": "exponential", "mean_distance_m": 300.0},
+                       "disturbance": [{"kind": "fire", "return_interval": 25.0}],
+                       "action": plan_actions},
+        "plan": {"name": name, "description": f"question <of> plan {name} & more",
+                 "actions": plan_actions},
+        "targets": {"file": str(targets), "name_field": "name", "names": ["east"]},
+        "cautions": CAUTIONS,
+    }
+    (folder / "summary.json").write_text(json.dumps(summary))
+    (folder / "run.json").write_text(json.dumps({
+        "gridpop_version": "0.1.0", "scenario": f"/plans/{name}.toml", "seed": 7,
+        "years": years, "replicates": r, "stochastic": True, "complete": True}))
+    return folder
+
+
+def make_compare(folder, names=("base", "corridor", "reserve")):
+    """Write a fake COMPARE folder: one fake run per plan, the table, difference maps."""
+    folder.mkdir()
+    for i, name in enumerate(names):
+        make_run(folder / name, name, seed=i, growth=2.0 * i, actions=i > 0)
+    base = read_band(folder / names[0] / "occupancy.tif").values
+    rows = []
+    for i, name in enumerate(names):
+        if i:
+            diff = read_band(folder / name / "occupancy.tif").values - base
+            write_raster(folder / f"occupancy_difference_{name}.tif", diff.filled(-9999.0))
+        rows.append({"plan": name, "description": f"plan {name}", "risk": 0.5 - 0.125 * i,
+                     "risk_lo": 0.25, "risk_hi": 0.75, "risk_difference": -0.125 * i,
+                     "expected_minimum": 40.5 + 10 * i, "final_median": 66 + i,
+                     "colonisation_east": 0.375 + 0.25 * i,
+                     "metapopulation_capacity": 12.75 + i, "rank": i + 1,
+                     "distinguishable": i > 0})
+    with open(folder / "comparison.csv", "w", newline="") as fh:
+        w = csv.DictWriter(fh, fieldnames=list(rows[0]))
+        w.writeheader()
+        w.writerows(rows)
+    (folder / "comparison.json").write_text(json.dumps({
+        "paired": "Replicates are paired by common random numbers (seed 7).",
+        "ranking": "Ordered by risk at the horizon.", "notes": [], "plans": rows}))
+    (folder / "compare.json").write_text(json.dumps({
+        "plans": [{"name": n, "folder": n, "scenario": f"/plans/{n}.toml"} for n in names],
+        "complete": True}))
+    return folder
+
+
+@pytest.fixture
+def run_dir(tmp_path):
+    return make_run(tmp_path / "run", "corridor")
+
+
+@pytest.fixture
+def compare_dir(tmp_path):
+    return make_compare(tmp_path / "cmp")
+
+
+def _check_pngs(paths, names):
+    assert sorted(p.name for p in paths) == sorted(f"{n}.png" for n in names)
+    for p in paths:
+        assert p.is_file() and p.stat().st_size > 10_000, p
+        img = matplotlib.image.imread(p)
+        assert img.ndim == 3 and min(img.shape[:2]) > 300
+        assert img[..., :3].std() > 0.05, f"{p.name} looks blank"
+
+
+def test_plot_run_writes_pngs(run_dir):
+    """Every figure of a run is a readable, non-blank PNG in plots/ (common practice)."""
+    paths = plot_run(run_dir)
+    assert all(p.parent == run_dir / "plots" for p in paths)
+    _check_pngs(paths, ["risk", "abundance", "occupancy", "colonisation", "ledger"])
+
+
+def test_plot_compare_one_risk_curve_per_plan(compare_dir):
+    """One risk line per plan, holding that plan's ever_below curve, on one axis per
+    population; the compare figures (with the difference maps) are written (common practice)."""
+    paths = plot_compare(compare_dir)
+    _check_pngs(paths, ["risk", "abundance", "occupancy", "colonisation", "ledger",
+                        "occupancy_difference"])
+    _, plans = read_plans(compare_dir)
+    fig = risk_figure(plans)
+    visible = [ax for ax in fig.axes if ax.get_visible()]
+    assert [ax.get_title() for ax in visible] == ["whole landscape", "target east"]
+    for ax, key in zip(visible, ("risk", "east"), strict=True):
+        lines = [ln for ln in ax.get_lines() if not ln.get_label().startswith("_")]
+        assert [ln.get_label() for ln in lines] == ["base", "corridor", "reserve"]
+        assert len(ax.collections) == 3  # one interval band per plan
+        for ln, plan in zip(lines, plans, strict=True):
+            curve = plan.summary["risk"] if key == "risk" else plan.summary["target_risk"][key]
+            np.testing.assert_array_equal(ln.get_ydata(), curve["ever_below"])
+        colours = {ln.get_color() for ln in lines}
+        assert len(colours) == 3
+    for name in ("abundance", "ledger"):
+        fig = {"abundance": abundance_figure, "ledger": ledger_figure}[name](plans)
+        titles = [ax.get_title() for ax in fig.axes if ax.get_visible()]
+        assert titles == ["base", "corridor", "reserve"], name
+
+
+def test_abundance_median_and_band(tmp_path):
+    """Median and 5-95 % band over replicates of a hand-made set: replicate i has abundance
+    10 i + t, so the median of i = 0..4 is 20 + t and the 5 % and 95 % points (linear
+    interpolation between order statistics, Hyndman and Fan 1996, The American Statistician
+    50:361, definition 7) are 2 + t and 38 + t."""
+    run = make_run(tmp_path / "r", "hand", replicates=5, years=4)
+    with open(run / "timeseries.csv", "w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow(["replicate", "year", *LEDGER_FIELDS])
+        for i in (3, 0, 4, 1, 2):  # rows in any order
+            for t in range(5):
+                w.writerow([i, t, 10 * i + t, 0, 0, 0, 0, 0, 0, 0])
+    fig = abundance_figure([read_run(run)], replicate_lines=2)
+    ax = fig.axes[0]
+    median = [ln for ln in ax.get_lines() if ln.get_label() == "median"][0]
+    np.testing.assert_allclose(median.get_ydata(), 20 + np.arange(5))
+    singles = [ln for ln in ax.get_lines() if ln.get_color() == "0.35"]
+    assert len(singles) == 2
+    np.testing.assert_allclose(singles[1].get_ydata(), 10 + np.arange(5))
+    band = ax.collections[0].get_paths()[0].vertices
+    assert band[:, 1].min() == pytest.approx(2.0) and band[:, 1].max() == pytest.approx(42.0)
+
+
+def test_ledger_means(tmp_path):
+    """Ledger chart values: means over replicates of births, deaths, disturbance deaths and
+    immigrants - emigrants per year 1..T, checked by hand on two replicates (common practice:
+    the ledger identity N(t) = N(t-1) + births - deaths - disturbance deaths + immigrants -
+    emigrants)."""
+    run = make_run(tmp_path / "r", "hand", replicates=2, years=2)
+    rows = [(0, 0, 10, 0, 0, 0, 0, 0), (0, 1, 13, 6, 2, 1, 4, 4), (0, 2, 12, 3, 3, 0, 2, 1),
+            (1, 0, 10, 0, 0, 0, 0, 0), (1, 1, 9, 2, 4, 1, 1, 3), (1, 2, 11, 5, 2, 2, 1, 2)]
+    with open(run / "timeseries.csv", "w", newline="") as fh:
+        w = csv.writer(fh)
+        w.writerow(["replicate", "year", *LEDGER_FIELDS])
+        for rep, t, n, b, d, dd, em, im in rows:
+            w.writerow([rep, t, n, b, d, dd, em, im, em - im, 1])
+    led = read_run(run).ledger()
+    for rep in range(2):  # the hand-made rows keep the ledger identity
+        n, b, d, dd, em, im = (led[k][rep] for k in ("abundance", "births", "deaths",
+                                                      "disturbance_deaths", "emigrants",
+                                                      "immigrants"))
+        np.testing.assert_array_equal(n[1:], n[:-1] + b[1:] - d[1:] - dd[1:] + im[1:] - em[1:])
+    m = ledger_means(led)
+    np.testing.assert_array_equal(m["year"], [1, 2])
+    np.testing.assert_allclose(m["births"], [4.0, 4.0])
+    np.testing.assert_allclose(m["deaths"], [3.0, 2.5])
+    np.testing.assert_allclose(m["disturbance deaths"], [1.0, 1.0])
+    np.testing.assert_allclose(m["net movement"], [1.0, 0.0])
+    ax = ledger_figure([read_run(run)]).axes[0]
+    heights = sorted(round(p.get_height(), 6) for p in ax.patches)
+    assert heights == sorted([4.0, 4.0, -3.0, -2.5, -1.0, -1.0])
+
+
+@pytest.mark.parametrize("width_m, expected", [(1800.0, 200.0), (5000.0, 1000.0),
+                                               (12_000.0, 2000.0), (260.0, 50.0),
+                                               (30_000.0, 5000.0)])
+def test_nice_length(width_m, expected):
+    """Scale-bar length: the largest 1-2-5 x 10^k length not above a fifth of the map width
+    (common practice in cartography)."""
+    assert nice_length(width_m) == expected
+
+
+def test_maps_outline_in_grid_crs_and_scale_bar(run_dir):
+    """Action areas stored in another CRS are drawn in grid coordinates: the reserve polygon
+    saved in WGS 84 lies back on its UTM 33N rectangle (pyproj as reference, Snyder 1987, Map
+    Projections: A Working Manual, USGS Professional Paper 1395, for the transverse Mercator);
+    the raster area is skipped; axes, title and scale bar are in metres of the grid CRS."""
+    plan = read_run(run_dir)
+    layer = read_band(run_dir / "occupancy.tif")
+    areas = outlines(plan, layer.crs)
+    assert [k for k, _ in areas] == ["reserve", "corridor", "target"]
+    x, y = areas[0][1].geometry.iloc[0].exterior.xy
+    np.testing.assert_allclose([min(x), min(y), max(x), max(y)], RESERVE, atol=1e-3)
+    assert layer.extent == (X0, X0 + NX * CELL, Y0 - NY * CELL, Y0)
+    fig = map_figure([("corridor", layer, areas)], cmap="viridis", vmin=0, vmax=1,
+                     label="fraction occupied", title="Occupancy")
+    ax = fig.axes[0]
+    assert "WGS 84 / UTM zone 33N (EPSG:32633)" in fig.get_suptitle()
+    assert ax.get_xlabel() == "Easting (m)" and ax.get_ylabel() == "Northing (m)"
+    assert (ax.get_xlim(), ax.get_ylim()) == ((X0, X0 + NX * CELL), (Y0 - NY * CELL, Y0))
+    drawn = np.concatenate([seg for c in ax.collections for seg in c.get_segments()])
+    assert drawn[:, 0].min() == pytest.approx(RESERVE[0], abs=1e-3)
+    assert drawn[:, 1].max() == pytest.approx(RESERVE[3], abs=1e-3)
+    bars = [a for a in ax.artists if hasattr(a, "size_bar")]
+    assert len(bars) == 1
+    label = bars[0].txt_label.get_children()[0].get_text()
+    assert label == "200 m"  # 1800 m wide map
+
+
+def test_colonisation_map_marks_unreached_cells(run_dir):
+    """Study-area cells never colonised in half of the replicates are grey and listed in the
+    legend; cells outside the study area are not (common practice)."""
+    plots = plot_run(run_dir)
+    assert (run_dir / "plots" / "colonisation.png") in plots
+    from gridpop.plots import _maps
+
+    fig = dict(_maps([read_run(run_dir)]))["colonisation"]
+    texts = [t.get_text() for leg in fig.legends for t in leg.get_texts()]
+    assert "not occupied in half of the replicates" in texts
+    grey = fig.axes[0].images[0].get_array()
+    col = read_band(run_dir / "colonisation_year.tif").values
+    occ = read_band(run_dir / "occupancy.tif").values
+    expected = np.ma.getmaskarray(col) & ~np.ma.getmaskarray(occ)
+    np.testing.assert_array_equal(~np.ma.getmaskarray(grey), expected)
+
+
+def test_missing_area_file_warns(run_dir):
+    """A plan area moved away since the run is left out of the maps with a warning."""
+    (run_dir / "reserve.gpkg").unlink()
+    with pytest.warns(UserWarning, match="reserve area of plan corridor is missing"):
+        areas = outlines(read_run(run_dir), read_band(run_dir / "occupancy.tif").crs)
+    assert [k for k, _ in areas] == ["corridor", "target"]
+
+
+def test_not_a_result_folder(tmp_path):
+    """A folder without run.json or compare.json is refused with a message naming it."""
+    with pytest.raises(InputDataError, match="not a gridpop result folder"):
+        read_plans(tmp_path)
+    with pytest.raises(InputDataError, match="summary.json: missing"):
+        plot_run(tmp_path)

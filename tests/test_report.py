@@ -1,0 +1,186 @@
+"""The HTML report of a run and of a comparison, on the fake folders of test_plots."""
+
+from __future__ import annotations
+
+import base64
+import io
+import os
+import re
+import shutil
+import subprocess
+from html.parser import HTMLParser
+
+import matplotlib.image
+import pytest
+from test_plots import CAUTIONS as RUN_CAUTIONS
+from test_plots import make_compare, make_run
+
+from gridpop.cli import main
+from gridpop.report import ASSUMPTIONS, CAUTIONS, fmt, write_report
+
+VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source",
+        "track", "wbr"}
+
+
+class Document(HTMLParser):
+    """Parses a page and checks every non-void element is closed in order; keeps the
+    attributes of every tag and the text."""
+
+    def __init__(self, text):
+        super().__init__(convert_charrefs=True)
+        self.stack, self.errors, self.tags, self.text = [], [], [], []
+        self.feed(text)
+        self.close()
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+        if tag not in VOID:
+            self.stack.append(tag)
+
+    def handle_endtag(self, tag):
+        if not self.stack or self.stack.pop() != tag:
+            self.errors.append(tag)
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+@pytest.fixture
+def compare_dir(tmp_path):
+    return make_compare(tmp_path / "cmp")
+
+
+@pytest.fixture
+def run_dir(tmp_path):
+    return make_run(tmp_path / "run", "corridor")
+
+
+def _parse(path):
+    text = path.read_text(encoding="utf-8")
+    doc = Document(text)
+    assert doc.errors == [] and doc.stack == [], (doc.errors, doc.stack)
+    return text, doc, " ".join(" ".join(doc.text).split())
+
+
+def _self_contained(doc):
+    """No external resource: every src and href is inline data, no scripts or links."""
+    refs = [a[k] for _, a in doc.tags for k in ("src", "href") if k in a]
+    assert all(r.startswith("data:image/png;base64,") for r in refs)
+    assert not any("http" in r for r in refs)
+    assert not {t for t, _ in doc.tags} & {"script", "link", "iframe", "object"}
+
+
+def test_compare_report_contents(compare_dir):
+    """The comparison report holds the question, the table values (intervals joined), the
+    parameters with the differing rows marked, the assumptions and both caution texts; text
+    from the results is escaped; it parses as balanced HTML (common practice)."""
+    path = write_report(compare_dir)
+    assert path == compare_dir / "report.html"
+    text, doc, words = _parse(path)
+    _self_contained(doc)
+    for heading in ("The question", "Plans", "Results", "Figures", "Parameters as read",
+                    "Model assumptions and limitations", "Cautions"):
+        assert f"<h2>{heading}</h2>" in text
+    assert "question &lt;of&gt; plan corridor &amp; more" in text and "<of>" not in text
+    # comparison.csv values: risk with its interval, colonisation, capacity, rank
+    for value in ("0.5 (0.25 \u2013 0.75)", "0.375 (0.25 \u2013 0.75)", "0.625", "0.875",
+                  "12.75", "13.75", "14.75", "40.5", "60.5", "-0.25"):
+        assert f">{value}<" in text, value
+    assert "Replicates are paired by common random numbers (seed 7)." in words
+    assert "probability target east colonised by the horizon" in words
+    # parameters: one column per plan, the growth rate differs between plans
+    rates = re.search(r'<tr class="differs"><th>growth\.rate</th>(.*?)</tr>', text).group(1)
+    assert re.findall(r">([^<]+)</td>", rates) == ["0.35", "0.37", "0.39"]
+    assert "<th>dispersal.kernel</th>" in text and "differs\"><th>dispersal.kernel" not in text
+    assert "<th>disturbance[1].kind</th>" in text
+    tables = re.search(r'<tr class="differs"><th>action: tables</th>(.*?)</tr>', text).group(1)
+    assert re.findall(r">([^<]+)</td>", tables) == ["0", "3", "3"]
+    assert " ".join(CAUTIONS.split()) in words and RUN_CAUTIONS in words
+    assert "licensed professional judgement" in CAUTIONS
+    for title, body in ASSUMPTIONS:
+        assert title in words and " ".join(body.split()) in words
+
+
+def test_report_images_are_the_plots(compare_dir):
+    """Every figure of plots/ is embedded once as a PNG that decodes (common practice)."""
+    text, doc, _ = _parse(write_report(compare_dir))
+    images = [a["src"] for t, a in doc.tags if t == "img"]
+    pngs = sorted((compare_dir / "plots").glob("*.png"))
+    assert len(images) == len(pngs) == 6
+    embedded = {base64.b64decode(src.split(",", 1)[1]) for src in images}
+    assert embedded == {p.read_bytes() for p in pngs}
+    for data in embedded:
+        assert matplotlib.image.imread(io.BytesIO(data), format="png").shape[0] > 300
+
+
+def test_run_report_contents(run_dir, tmp_path):
+    """A run's report shows its summary metrics with intervals at the horizon (year 12) and is
+    written where --out says (common practice)."""
+    out = write_report(run_dir, tmp_path / "elsewhere" / "r.html")
+    assert out == tmp_path / "elsewhere" / "r.html"
+    text, doc, words = _parse(out)
+    _self_contained(doc)
+    assert "risk of having fallen below it by year 12" in words
+    for value in ("41.5 (30.25 \u2013 52.75)", "70.5", "66 (40 \u2013 90)", "10, 130", "2.5",
+                  "12.75", "0.625"):
+        assert f">{value}<" in text, value
+    assert "question &lt;of&gt; plan corridor &amp; more" in text
+    assert "reserve (reserve.gpkg); corridor (corridor.geojson); restoration " \
+           "(restoration.tif)" in text
+    assert len([t for t, _ in doc.tags if t == "img"]) == 5
+
+
+@pytest.mark.parametrize("value, text", [(0.125, "0.125"), (2 / 3, "0.6667"), (12345.6, "12,346"),
+                                         (3, "3"), (True, "yes"), (None, "\u2014"),
+                                         ([1.5, 2], "1.5, 2"), ([], "none")])
+def test_fmt(value, text):
+    """Numbers to 4 significant digits, thousands separated from 10 000 (common practice)."""
+    assert fmt(value) == text
+
+
+def test_cli_report(compare_dir, tmp_path, capsys):
+    """`gridpop report DIR [--out FILE]`: exit 0 and the file; exit 2 with the folder named
+    when DIR is not a result folder (common practice for command lines)."""
+    assert main(["report", str(compare_dir)]) == 0
+    assert (compare_dir / "report.html").is_file()
+    assert str(compare_dir / "report.html") in capsys.readouterr().out
+    assert main(["report", str(compare_dir / "base"), "--out", str(tmp_path / "b.html")]) == 0
+    assert (tmp_path / "b.html").stat().st_size > 10_000
+    assert main(["report", str(tmp_path)]) == 2
+    assert "not a gridpop result folder" in capsys.readouterr().err
+
+
+PROBE = """<img src="data:image/png;base64,AAAA" alt="broken on purpose">
+<script>window.addEventListener('load', function () {
+  var imgs = document.images, n = 0;
+  for (var i = 0; i < imgs.length; i++) { if (imgs[i].naturalWidth > 0) { n++; } }
+  var p = document.createElement('p'); p.id = 'probe';
+  p.textContent = 'loaded ' + n + ' of ' + imgs.length; document.body.appendChild(p);
+});</script>
+</body>"""
+
+
+def test_report_opens_in_headless_browser(compare_dir, tmp_path):
+    """The report opens in a real browser (Debian's chromium, headless) and all its images
+    load: a probe counts the images with naturalWidth > 0 after the load event. One broken
+    image is added to show the probe sees a failure (HTML Living Standard, WHATWG, the img
+    element's naturalWidth is 0 when the image is not available)."""
+    browser = shutil.which("chromium")
+    if browser is None:
+        if os.environ.get("CI"):
+            pytest.fail("chromium is not installed; .ci/run installs it")
+        pytest.skip("chromium is not installed (apt-get install chromium)")
+    report = write_report(compare_dir)
+    n = report.read_text(encoding="utf-8").count("<img ")
+    page = tmp_path / "probe.html"
+    page.write_text(report.read_text(encoding="utf-8").replace("</body>", PROBE),
+                    encoding="utf-8")
+    profile = tmp_path / "profile"
+    cmd = [browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+           "--no-first-run", "--disable-background-networking", "--disable-component-update",
+           "--disable-sync", f"--user-data-dir={profile}", "--dump-dom", page.as_uri()]
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=180, check=False)
+    probe = re.search(r'<p id="probe">loaded (\d+) of (\d+)</p>', done.stdout)
+    assert probe is not None, done.stderr[-2000:]
+    assert (int(probe.group(1)), int(probe.group(2))) == (n, n + 1)
+    assert n == 6
