@@ -22,7 +22,7 @@ Definitions (the functions of :mod:`gridpop.metrics` do the arithmetic):
   even where a corridor joins two patches into one.
 - Metapopulation capacity: the run's patches (after the plan's actions), each at its centroid
   with its area in hectares, and ``alpha = 1 / [dispersal] mean_distance_m``; null without
-  dispersal.
+  dispersal, and above :data:`CAPACITY_MAX_PATCHES` patches (said in ``"notes"``).
 """
 
 from __future__ import annotations
@@ -64,6 +64,11 @@ CAUTIONS = (
     "parameters. They support decisions and do not replace field data, the responsible agency, "
     "local regulations or licensed professional judgement."
 )
+
+CAPACITY_MAX_PATCHES = 500
+"""Above this many patches the metapopulation capacity is not computed: each patch's removal
+drop is an eigenproblem of the whole network, so the cost grows as P^3 (about 2 s at 500 patches,
+a minute at 1000)."""
 
 FILES = ("summary.json", "risk.csv", "patch_occupancy.csv", "colonisation_year.tif")
 """Files :func:`write_summary` adds to a run folder."""
@@ -150,9 +155,13 @@ def _risk(abundance: np.ndarray, threshold: float, confidence: float) -> dict:
             "below_now_lo": c["below_now_lo"], "below_now_hi": c["below_now_hi"]}
 
 
-def _capacity(scenario, model) -> dict | None:
+def _capacity(scenario, model, notes: list[str]) -> dict | None:
     patches, d = model.landscape.patches, scenario.dispersal
     if patches.n == 0 or d.fraction == 0 or d.mean_distance_m is None:
+        return None
+    if patches.n > CAPACITY_MAX_PATCHES:
+        notes.append(f"metapopulation capacity not computed: {patches.n} patches, more than "
+                     f"{CAPACITY_MAX_PATCHES}")
         return None
     xy = patch_centroids(patches.labels, patches.n, model.landscape.grid)
     m = metapopulation_capacity(xy, patches.area_ha[1:], 1.0 / d.mean_distance_m)
@@ -201,7 +210,7 @@ def summarise(scenario, model, ledger: np.ndarray, target_abundance: np.ndarray 
            "target_risk": {}, "expected_minimum": {"estimate": est, "lo": lo, "hi": hi},
            "final_abundance": final_abundance(total),
            "occupied_patches": {"year": list(range(steps)), "mean": np.zeros(steps)},
-           "colonisation": {}}
+           "colonisation": {}, "notes": []}
     if model.n_patches:
         occ = occupancy_over_time(ledger[:, :, 1:, ABUNDANCE], occ_threshold)
         out["occupied_patches"]["mean"] = occ["mean_n_occupied"]
@@ -214,7 +223,7 @@ def summarise(scenario, model, ledger: np.ndarray, target_abundance: np.ndarray 
             out["colonisation"][name] = {"year": list(range(steps)), "probability": col[:, q]}
         out["targets"] = {"file": str(risk.targets), "name_field": risk.target_name_field,
                           "names": list(names)}
-    out.update(metapopulation_capacity=_capacity(scenario, model),
+    out.update(metapopulation_capacity=_capacity(scenario, model, out["notes"]),
                parameters=parameters(scenario), plan=plan(scenario), cautions=CAUTIONS)
     return out
 

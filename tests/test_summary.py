@@ -343,3 +343,17 @@ def test_bad_targets_exit_2_nothing_written(tmp_path, capsys, edit, names, field
     err = capsys.readouterr().err
     assert expect in err and str(scen) in err and "Traceback" not in err
     assert not out.exists() and not (tmp_path / ".res.partial").exists()
+
+
+def test_capacity_skipped_above_the_patch_limit(tmp_path, monkeypatch):
+    """Above CAPACITY_MAX_PATCHES patches the capacity (one eigenproblem per patch for the
+    removal drops, cost ~ P^3) is not computed, and the summary says so (common practice:
+    report what was skipped)."""
+    monkeypatch.setattr("gridpop.summary.CAPACITY_MAX_PATCHES", 1)
+    scen = write_case(tmp_path, STOCHASTIC.replace("replicates = 24", "replicates = 2"),
+                      targets=(["east"], [box(*EAST)], "label"))
+    out = tmp_path / "res"
+    assert run_cli("run", scen, "--out", out, "--quiet", "--no-plots") == 0
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["metapopulation_capacity"] is None
+    assert summary["notes"] == ["metapopulation capacity not computed: 2 patches, more than 1"]
