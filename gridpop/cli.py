@@ -24,13 +24,18 @@ def _scenario_with_overrides(args, path=None):
     return scenario
 
 
+def _out_dir(args, scenario) -> Path:
+    return Path(args.out) if args.out else Path("results") / scenario.path.stem
+
+
 def cmd_check(args) -> int:
-    from .engine import build_model, describe
+    from .engine import build_model, describe, footprint_lines
     from .landscape import build_landscape
 
     scenario = _scenario_with_overrides(args)
     model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
-    print("\n".join(describe(scenario, model)))
+    print("\n".join(describe(scenario, model)
+                    + footprint_lines(scenario, model, _out_dir(args, scenario))))
     return 0
 
 
@@ -38,9 +43,10 @@ def cmd_run(args) -> int:
     from .engine import run
 
     scenario = _scenario_with_overrides(args)
-    out = Path(args.out) if args.out else Path("results") / scenario.path.stem
+    out = _out_dir(args, scenario)
     show = not args.quiet and sys.stderr.isatty()
-    run(scenario, out, overwrite=args.overwrite, progress=show)
+    run(scenario, out, overwrite=args.overwrite, progress=show, workers=args.workers,
+        scheduler=args.scheduler, resume=args.resume, force=args.force)
     if not args.no_plots:
         from .plots import plot_run
 
@@ -91,6 +97,18 @@ def _add_run_overrides(p):
     p.add_argument("--seed", type=int, help="override [run] seed")
 
 
+def _add_execution_options(p):
+    p.add_argument("--workers", type=int, metavar="N", help="run batches of replicates on a "
+                   "local Dask cluster of N worker processes (default: in this process)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="run batches on the Dask cluster at "
+                   "ADDRESS (tcp://host:8786); the output folder must be on a filesystem "
+                   "its workers share")
+    p.add_argument("--resume", action="store_true", help="continue an interrupted run of "
+                   "the same scenario into the same --out, keeping its finished batches")
+    p.add_argument("--force", action="store_true", help="start even if the estimated "
+                   "memory or disk need exceeds what is free")
+
+
 def parser() -> argparse.ArgumentParser:
     ap = argparse.ArgumentParser(prog="gridpop", description="Spatial grid population "
                                  "simulator for conservation planning.")
@@ -100,6 +118,8 @@ def parser() -> argparse.ArgumentParser:
     p = sub.add_parser("check", help="validate a scenario and print what was understood")
     p.add_argument("scenario")
     _add_run_overrides(p)
+    p.add_argument("--out", help="output folder of the run (where free disk space is "
+                   "looked up; default results/<scenario name>)")
     p.set_defaults(func=cmd_check)
 
     p = sub.add_parser("run", help="run a scenario")
@@ -109,6 +129,7 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
     p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
     p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
+    _add_execution_options(p)
     p.set_defaults(func=cmd_run)
 
     p = sub.add_parser("compare", help="run plans with common random numbers and compare them "

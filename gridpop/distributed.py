@@ -64,8 +64,6 @@ def cluster_client(*, workers: int | None = None, scheduler: str | None = None):
         finally:
             client.close()
         return
-    if workers < 1:
-        raise RunStateError(f"--workers {workers}: must be 1 or more.")
     try:
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                dashboard_address=None, silence_logs=logging.ERROR,

@@ -24,6 +24,7 @@ so results do not depend on how batches were scheduled.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import errno
 import json
@@ -655,9 +656,12 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
 
     started = time.time()
     out_dir = Path(out_dir)
+    local = workers is None and scheduler is None
     if workers is not None and scheduler is not None:
         raise RunStateError("--workers and --scheduler exclude each other: --workers starts a "
                             "cluster on this machine, --scheduler uses a running one.")
+    if workers is not None and workers < 1:
+        raise RunStateError(f"--workers {workers}: must be 1 or more.")
     check_output(out_dir, overwrite=overwrite)
     model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
     plan = batches(model)
@@ -668,22 +672,29 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
     if not force:
         check_room(footprint(scenario, model), work, workers=workers, scheduler=scheduler,
                    finished=len(finished) / len(plan))
-    work = prepare_output(out_dir, overwrite=overwrite, resume=resuming)
-    try:
-        if not resuming:
-            write_json(work / CHECKPOINT, {**_run_identity(scenario, model), "complete": False})
-        _discard_unfinished(work, finished)
-        todo = [(b, reps) for b, reps in enumerate(plan) if b not in finished]
-        with tqdm(total=model.replicates, initial=model.replicates - sum(len(r) for _, r in todo),
-                  unit="replicate", disable=not progress, desc="gridpop run") as bar:
-            if workers is None and scheduler is None:
-                for b, reps in todo:
-                    run_checkpointed_batch(model, b, reps, work, bar)
-            elif todo:
-                from .distributed import cluster_client, run_batches
+    if local:
+        cluster = contextlib.nullcontext()
+    else:
+        from .distributed import cluster_client, run_batches
 
-                with cluster_client(workers=workers, scheduler=scheduler) as client:
+        cluster = cluster_client(workers=workers, scheduler=scheduler)
+    with cluster as client:  # reach the cluster before anything is written
+        work = prepare_output(out_dir, overwrite=overwrite, resume=resuming)
+        with _resumable_if_disk_full(work, len(plan)):
+            if not resuming:
+                write_json(work / CHECKPOINT, {**_run_identity(scenario, model),
+                                               "complete": False})
+            _discard_unfinished(work, finished)
+            todo = [(b, reps) for b, reps in enumerate(plan) if b not in finished]
+            with tqdm(total=model.replicates,
+                      initial=model.replicates - sum(len(r) for _, r in todo),
+                      unit="replicate", disable=not progress, desc="gridpop run") as bar:
+                if local:
+                    for b, reps in todo:
+                        run_checkpointed_batch(model, b, reps, work, bar)
+                elif todo:
                     run_batches(client, model, todo, work, bar)
+    with _resumable_if_disk_full(work, len(plan)):
         files = write_results(work, scenario, model, [batch_folder(work, b)
                                                       for b in range(len(plan))])
         grid = model.landscape.grid
@@ -699,28 +710,35 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
                      "shape": list(grid.shape)},
             "files": sorted(files),
             "execution": {  # how the run was carried out: the only part that may differ
-                "mode": ("in-process" if workers is None and scheduler is None
+                "mode": ("in-process" if local
                          else "local cluster" if workers is not None else "scheduler"),
                 "workers": workers,
-                "numba_threads": (numba.get_num_threads() if workers is None and scheduler is None
+                "numba_threads": (numba.get_num_threads() if local
                                   else 1 if workers is not None else None),
                 "resumed_batches": len(finished),
                 "wall_time_s": round(time.time() - started, 3),
             },
             "complete": True,
         }
-        (work / CHECKPOINT).unlink()
         write_json(work / "run.json", manifest)
+        (work / CHECKPOINT).unlink()
         publish(work, out_dir)
+    return out_dir
+
+
+@contextlib.contextmanager
+def _resumable_if_disk_full(work: Path, n_batches: int):
+    """Turn a full disk (or quota) into a :class:`RunStateError` that says how to resume."""
+    try:
+        yield
     except OSError as exc:
         if exc.errno not in NO_SPACE:
             raise
-        done = len(_finished(work, len(plan)))
+        done = len(_finished(work, n_batches))
         raise RunStateError(
             f"{work}: no space left on the device ({exc.strerror or exc}); {done} of "
-            f"{len(plan)} batches are finished and kept. Free some space, then run the same "
+            f"{n_batches} batches are finished and kept. Free some space, then run the same "
             "command again with --resume.") from None
-    return out_dir
 
 STACKS = {
     # output raster name: (accumulator, what the band holds)
