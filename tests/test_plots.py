@@ -331,3 +331,19 @@ def test_not_a_result_folder(tmp_path):
         read_plans(tmp_path)
     with pytest.raises(InputDataError, match="summary.json: missing"):
         plot_run(tmp_path)
+
+
+def test_scale_bar_in_feet():
+    """A grid in US survey feet (EPSG:2263) gets a bar of a round length in metres drawn in
+    feet: 6000 ft = 1828.8 m wide gives 200 m = 656.17 ft (1 US survey foot = 1200/3937 m,
+    NIST Handbook 44, Appendix C)."""
+    from matplotlib.figure import Figure
+
+    from gridpop.plots import add_scale_bar
+
+    ax = Figure().subplots()
+    ax.set_xlim(0, 6000)
+    bar = add_scale_bar(ax, pyproj.CRS("EPSG:2263"), 6000.0)
+    rect = bar.size_bar.get_children()[0]
+    assert rect.get_width() == pytest.approx(200 / (1200 / 3937), rel=1e-9)
+    assert bar.txt_label.get_children()[0].get_text() == "200 m"
