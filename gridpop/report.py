@@ -245,7 +245,8 @@ def _run_results(plans: list[Plan]) -> str:
     conf = s0.get("confidence", 0.95)
     note = (f"<p>Intervals in brackets: {_e(f'{conf:.0%}')} confidence. Replicates: "
             f"{_e(s0.get('replicates'))}; horizon: year {_e(horizon)}.</p>")
-    return _table(["", *[p.name for p in plans]], rows) + note
+    notes = "".join(f"<p>Note: {_e(n)}</p>" for p in plans for n in p.summary.get("notes", []))
+    return _table(["", *[p.name for p in plans]], rows) + note + notes
 
 
 def _comparison_results(folder: Path) -> str:

@@ -121,7 +121,7 @@ def make_run(folder, name, *, years=12, replicates=8, seed=0, growth=0.0, action
         "plan": {"name": name, "description": f"question <of> plan {name} & more",
                  "actions": plan_actions},
         "targets": {"file": str(targets), "name_field": "name", "names": ["east"]},
-        "cautions": CAUTIONS,
+        "cautions": CAUTIONS, "notes": ["fake note <b>"],
     }
     (folder / "summary.json").write_text(json.dumps(summary))
     (folder / "run.json").write_text(json.dumps({

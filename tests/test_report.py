@@ -128,6 +128,7 @@ def test_run_report_contents(run_dir, tmp_path):
     assert "reserve (reserve.gpkg); corridor (corridor.geojson); restoration " \
            "(restoration.tif)" in text
     assert len([t for t, _ in doc.tags if t == "img"]) == 5
+    assert "<p>Note: fake note &lt;b&gt;</p>" in text
 
 
 @pytest.mark.parametrize("value, text", [(0.125, "0.125"), (2 / 3, "0.6667"), (12345.6, "12,346"),
