@@ -115,16 +115,16 @@ class Kernel:
     """
 
     kind: str
-    weights: np.ndarray
+    weights: np.ndarray = field(repr=False)
     radius: int
     ry: int
     rx: int
-    separable: tuple | None
+    separable: tuple | None = field(repr=False)
     mean_distance_m: float
     max_distance_m: float
-    offsets: np.ndarray
-    cdf: np.ndarray
-    conditional: np.ndarray
+    offsets: np.ndarray = field(repr=False)
+    cdf: np.ndarray = field(repr=False)
+    conditional: np.ndarray = field(repr=False)
     _cache: dict = field(default_factory=dict, repr=False)
 
     @property
