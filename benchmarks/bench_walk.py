@@ -96,7 +96,7 @@ def bench_stochastic(size, steps, perm, quality, labels, per_cell):
             params = walk_params(n, 1.0, shape)
             t = best_time(partial(disperse_walk_stochastic, d, perm, quality, labels, 0, params,
                                   key), repeat=2)
-            visits = disperse_walk_stochastic(d, perm, quality, labels, 0, params, key)[3].sum()
+            visits = disperse_walk_stochastic(d, perm, quality, labels, 0, params, key).visits.sum()
             row = {"steps": n, "settle_shape": shape, "dispersers": float(d.sum()), "walk_s": t,
                    "dispersers_per_s": d.sum() / t, "steps_per_s": visits / t,
                    "mean_steps": visits / d.sum()}

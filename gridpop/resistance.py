@@ -217,7 +217,7 @@ class _Surfaces(NamedTuple):
         return _Surfaces(*(np.ascontiguousarray(a[ys, xs]) for a in self))
 
 
-def _surfaces(permeability, quality, params: WalkParams) -> _Surfaces:
+def _surfaces(permeability, quality, params: WalkParams, entry_survival=None) -> _Surfaces:
     perm = np.array(permeability, dtype=np.float64)
     if perm.ndim != 2:
         raise ValueError(f"permeability must be 2-D, got shape {perm.shape}")
@@ -236,7 +236,11 @@ def _surfaces(permeability, quality, params: WalkParams) -> _Surfaces:
     settle = np.where(q > 0, q, 0.0) ** params.settle_shape
     resist = np.divide(1.0, perm, out=np.zeros_like(perm), where=perm > 0)
     mu = params.mortality_per_resistance
-    return _Surfaces(perm, settle, np.exp(-mu * resist), np.exp(-mu * math.sqrt(2.0) * resist))
+    surv1, surv2 = np.exp(-mu * resist), np.exp(-mu * math.sqrt(2.0) * resist)
+    if entry_survival is not None:
+        surv1 *= entry_survival
+        surv2 *= entry_survival
+    return _Surfaces(perm, settle, surv1, surv2)
 
 
 def _turn_table(persistence: float) -> np.ndarray:
@@ -317,7 +321,7 @@ def _pick(perm, y, x, turn, row, target):
 
 @pjit
 def _walk_stochastic(dispersers, perm, settle, surv1, surv2, labels, turn, max_steps, mortal,
-                     key, arrivals, visits, lost, retained, stayed):
+                     key, arrivals, visits, lost, retained, settled_from, stayed):
     ny, nx = perm.shape
     persist = turn.shape[0] > 1
     for i in prange(ny):
@@ -356,8 +360,10 @@ def _walk_stochastic(dispersers, perm, settle, surv1, surv2, labels, turn, max_s
                     arrivals[tid, y, x] += 1.0
                     if y == i and x == j:
                         stayed[i, j] += 1.0
-                    if home > 0 and labels[y, x] == home:
-                        retained[tid, home] += 1.0
+                    if home > 0:
+                        settled_from[tid, home] += 1.0
+                        if labels[y, x] == home:
+                            retained[tid, home] += 1.0
                 else:
                     lost[tid, y, x] += 1.0
 
@@ -480,8 +486,26 @@ def _propagate(dispersers: np.ndarray, surf: _Surfaces, turn: np.ndarray, max_st
     return arrivals, visits, lost
 
 
+class WalkResult(NamedTuple):
+    """What one year's walk did (float64 arrays; whole numbers in stochastic mode).
+
+    arrivals : (ny, nx) number settling in each cell.
+    stayed : (ny, nx) dispersers of each cell that settled back in that cell (in ``arrivals``).
+    retained : (n_patches + 1,) dispersers from patch p that settled in patch p.
+    settled_from : (n_patches + 1,) dispersers from patch p that settled anywhere.
+    visits : (ny, nx) number of walker entries into each cell (the flow map).
+    """
+
+    arrivals: np.ndarray
+    stayed: np.ndarray
+    retained: np.ndarray
+    settled_from: np.ndarray
+    visits: np.ndarray
+
+
 def disperse_walk_deterministic(dispersers, permeability, quality, labels, n_patches: int,
-                                params: WalkParams, lost: np.ndarray | None = None):
+                                params: WalkParams, lost: np.ndarray | None = None, *,
+                                entry_survival=None) -> WalkResult:
     """Expected redistribution of dispersers by the walk (Markov-chain propagation).
 
     Parameters
@@ -499,37 +523,53 @@ def disperse_walk_deterministic(dispersers, permeability, quality, labels, n_pat
     params : WalkParams
     lost : (ny, nx) float64 ndarray, optional
         If given, the expected number lost in each cell (died, trapped or out of steps) is added.
+    entry_survival : (ny, nx) ndarray, optional
+        Extra probability of surviving the entry into each cell (barriers crossed with a
+        mortality); default 1.
 
     Returns
     -------
-    arrivals : (ny, nx) float64 ndarray
-        Expected number settling in each cell.
-    stayed : (ny, nx) float64 ndarray
-        Zeros: origins are not tracked in this mode (see the module docstring).
-    retained : (n_patches + 1,) float64 ndarray
-        Zeros, for the same reason.
-    visits : (ny, nx) float64 ndarray
-        Expected number of walker entries into each cell.
+    WalkResult
+        ``stayed`` is zero: cell origins are not tracked in this mode (see the module
+        docstring). ``retained`` and ``settled_from`` are exact: each patch's dispersers are also
+        propagated on their own, on the patch's bounding box widened by ``max_steps + 1``.
     """
-    surf = _surfaces(permeability, quality, params)
+    surf = _surfaces(permeability, quality, params, entry_survival)
     d = _check_dispersers(dispersers, surf.perm.shape, whole=False)
-    _check_labels(labels, n_patches, surf.perm.shape)
-    arrivals, visits, lost_map = _propagate(d, surf, _turn_table(params.persistence),
-                                            params.max_steps)
+    lab = _check_labels(labels, n_patches, surf.perm.shape)
+    turn = _turn_table(params.persistence)
+    arrivals, visits, lost_map = _propagate(d, surf, turn, params.max_steps)
     if lost is not None:
         lost += lost_map
-    return arrivals, np.zeros_like(arrivals), np.zeros(n_patches + 1), visits
+    retained, settled_from = np.zeros(n_patches + 1), np.zeros(n_patches + 1)
+    for p, ys, xs in _patch_windows(lab, n_patches, params.max_steps + 1):
+        start = np.where(lab[ys, xs] == p, d[ys, xs], 0.0)
+        if start.any():
+            arr, _, _ = _propagate(start, surf.crop(ys, xs), turn, params.max_steps)
+            settled_from[p] = arr.sum()
+            retained[p] = arr[lab[ys, xs] == p].sum()
+    return WalkResult(arrivals, np.zeros_like(arrivals), retained, settled_from, visits)
+
+
+def _patch_windows(lab: np.ndarray, n_patches: int, margin: int):
+    """(patch, row slice, column slice): each patch's bounding box widened by ``margin``."""
+    ny, nx = lab.shape
+    for p, box in enumerate(ndimage.find_objects(lab, max_label=n_patches), start=1):
+        if box is not None:
+            yield (p, slice(max(box[0].start - margin, 0), min(box[0].stop + margin, ny)),
+                   slice(max(box[1].start - margin, 0), min(box[1].stop + margin, nx)))
 
 
 def disperse_walk_stochastic(dispersers, permeability, quality, labels, n_patches: int,
-                             params: WalkParams, key, lost: np.ndarray | None = None):
+                             params: WalkParams, key, lost: np.ndarray | None = None, *,
+                             entry_survival=None) -> WalkResult:
     """Move whole dispersers, each on its own walk.
 
     Parameters
     ----------
     dispersers : (ny, nx) float64 ndarray
         Whole number of individuals leaving each cell.
-    permeability, quality, labels, n_patches, params
+    permeability, quality, labels, n_patches, params, entry_survival
         As in :func:`disperse_walk_deterministic`.
     key : uint64
         Year key of the walk, ``rng.year_key(seed, replicate, year, rng.STREAM_WALK)``.
@@ -538,30 +578,25 @@ def disperse_walk_stochastic(dispersers, permeability, quality, labels, n_patche
 
     Returns
     -------
-    arrivals : (ny, nx) float64 ndarray
-        Number settling in each cell (whole numbers).
-    stayed : (ny, nx) float64 ndarray
-        Dispersers of each cell that settled back in that cell (included in ``arrivals``).
-    retained : (n_patches + 1,) float64 ndarray
-        ``retained[p]``: dispersers from patch p that settled in patch p (``retained[0] = 0``).
-    visits : (ny, nx) float64 ndarray
-        Number of walker entries into each cell.
+    WalkResult
+        All fields exact whole numbers.
     """
-    surf = _surfaces(permeability, quality, params)
+    surf = _surfaces(permeability, quality, params, entry_survival)
     shape = surf.perm.shape
     d = _check_dispersers(dispersers, shape, whole=True)
     lab = _check_labels(labels, n_patches, shape)
     nt = numba.get_num_threads()
     arrivals, visits, lost_t = (np.zeros((nt,) + shape) for _ in range(3))
-    retained = np.zeros((nt, n_patches + 1))
+    retained, settled_from = np.zeros((nt, n_patches + 1)), np.zeros((nt, n_patches + 1))
     stayed = np.zeros(shape)
+    mortal = params.mortality_per_resistance > 0 or entry_survival is not None
     _walk_stochastic(d, surf.perm, surf.settle, surf.surv1, surf.surv2, lab,
-                     _turn_table(params.persistence), int(params.max_steps),
-                     params.mortality_per_resistance > 0, np.uint64(key),
-                     arrivals, visits, lost_t, retained, stayed)
+                     _turn_table(params.persistence), int(params.max_steps), mortal,
+                     np.uint64(key), arrivals, visits, lost_t, retained, settled_from, stayed)
     if lost is not None:
         lost += lost_t.sum(axis=0)
-    return arrivals.sum(axis=0), stayed, retained.sum(axis=0), visits.sum(axis=0)
+    return WalkResult(arrivals.sum(axis=0), stayed, retained.sum(axis=0),
+                      settled_from.sum(axis=0), visits.sum(axis=0))
 
 
 def patch_connectivity(labels, n_patches: int, permeability, quality, params: WalkParams,
@@ -599,13 +634,8 @@ def patch_connectivity(labels, n_patches: int, permeability, quality, params: Wa
     if not (np.isfinite(w).all() and (w >= 0).all()):
         raise ValueError("weights must be finite and >= 0")
     turn = _turn_table(params.persistence)
-    margin = params.max_steps + 1
     out = np.zeros((n_patches, n_patches))
-    for p, box in enumerate(ndimage.find_objects(lab, max_label=n_patches), start=1):
-        if box is None:
-            continue
-        ys = slice(max(box[0].start - margin, 0), min(box[0].stop + margin, shape[0]))
-        xs = slice(max(box[1].start - margin, 0), min(box[1].stop + margin, shape[1]))
+    for p, ys, xs in _patch_windows(lab, n_patches, params.max_steps + 1):
         lab_w = lab[ys, xs]
         start = np.where(lab_w == p, w[ys, xs], 0.0)
         total = start.sum()

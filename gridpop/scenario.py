@@ -67,6 +67,7 @@ class Key:
 GROWTH_MODELS = ("exponential", "beverton-holt", "ricker", "theta-logistic", "ceiling")
 KERNELS = ("gaussian", "exponential", "2dt")
 EDGES = ("absorbing", "reflecting")
+DISPERSAL_METHODS = ("kernel", "walk")
 RESPONSES = ("linear", "threshold", "power")
 OUTPUT_RASTERS = ("abundance", "occupancy", "colonised")
 
@@ -164,7 +165,29 @@ SECTIONS: dict[str, tuple[str, tuple[Key, ...]]] = {
                 "where the kernel has dropped to about 1e-6 of its mass.", "m", low=0,
                 low_open=True),
             Key("edge", "str", "absorbing", "Grid edge: absorbing (dispersers that leave are "
-                "lost) or reflecting.", choices=EDGES),
+                "lost) or reflecting. Kernel method only: a walk never leaves the grid.",
+                choices=EDGES),
+            Key("method", "str", "kernel", "kernel: dispersers jump by the dispersal kernel; "
+                "walk: they walk cell by cell over a resistance surface (corridors lead them, "
+                "barriers stop them).", choices=DISPERSAL_METHODS),
+            Key("resistance", "path", None, "Walk: resistance raster (>= 1 easy to cross; "
+                "nodata or inf = impassable). Default: derived from suitability s as "
+                "R = 1 + (resistance_max - 1) (1 - s)^resistance_shape."),
+            Key("resistance_max", "float", 20.0, "Walk: resistance of the worst habitat "
+                "(s = 0) when resistance is derived from suitability.", low=1),
+            Key("resistance_shape", "float", 1.0, "Walk: shape of the suitability-to-"
+                "resistance transform (> 1 keeps resistance low in middling habitat).", low=0,
+                low_open=True),
+            Key("max_steps", "int", 60, "Walk: the most cell-to-cell steps a disperser takes "
+                "in a year; one still moving after that dies.", "cells", low=1),
+            Key("step_mortality", "float", 0.0, "Walk: hazard per unit resistance and cell "
+                "length: entering a cell of resistance R kills with probability "
+                "1 - exp(-step_mortality R len).", low=0),
+            Key("settle_shape", "float", 1.0, "Walk: a walker settles on a cell of suitability "
+                "s with probability s^settle_shape (never where capacity is 0).", low=0,
+                low_open=True),
+            Key("persistence", "float", 0.0, "Walk: directional persistence kappa (correlated "
+                "random walk; 0 = none).", low=0),
         ),
     ),
     "output": (
@@ -511,7 +534,7 @@ def _cross_checks(file: Path, s: dict) -> dict:
     if not given:
         s["initial"] = dataclasses.replace(init, fraction_of_capacity=1.0)
     disp = s["dispersal"]
-    if disp.fraction > 0 and disp.mean_distance_m is None:
+    if disp.fraction > 0 and disp.method == "kernel" and disp.mean_distance_m is None:
         raise ScenarioError(f"{where(file, 'dispersal', 'mean_distance_m')} is required when "
                             f"fraction = {disp.fraction:g} > 0.")
     if s["grid"].template is None:

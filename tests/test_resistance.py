@@ -34,9 +34,8 @@ def det(d, perm, q, params, labels=None, n_patches=0):
     """Deterministic walk: (arrivals, visits, lost)."""
     labels = np.zeros(d.shape, np.int32) if labels is None else labels
     lost = np.zeros(d.shape)
-    arrivals, _, _, visits = disperse_walk_deterministic(d, perm, q, labels, n_patches, params,
-                                                         lost=lost)
-    return arrivals, visits, lost
+    out = disperse_walk_deterministic(d, perm, q, labels, n_patches, params, lost=lost)
+    return out.arrivals, out.visits, lost
 
 
 def sto(d, perm, q, params, k, labels=None, n_patches=0):
@@ -44,7 +43,7 @@ def sto(d, perm, q, params, k, labels=None, n_patches=0):
     labels = np.zeros(d.shape, np.int32) if labels is None else labels
     lost = np.zeros(d.shape)
     out = disperse_walk_stochastic(d, perm, q, labels, n_patches, params, k, lost=lost)
-    return (*out, lost)
+    return out.arrivals, out.stayed, out.retained, out.visits, lost
 
 
 def point(n, value):
@@ -485,3 +484,49 @@ def test_user_errors_name_the_value():
         det(np.ones((2, 2)), np.ones((2, 2)), np.full((2, 2), 2.0), WalkParams(max_steps=1))
     with pytest.raises(InputDataError, match="permeability.*inf"):
         det(np.ones((1, 2)), np.array([[1.0, np.inf]]), np.zeros((1, 2)), WalkParams(max_steps=1))
+
+
+def test_patch_origins_exact_in_both_modes():
+    """Per-patch bookkeeping of the walk: settled_from[p] counts the dispersers of patch p that
+    settled anywhere, retained[p] those that settled in p; in deterministic mode both equal the
+    expected values of a walk of that patch's dispersers alone (linearity of expectation, common
+    practice), and in stochastic mode a settled disperser has exactly one origin."""
+    n = 15
+    perm = np.ones((n, n))
+    q = np.zeros((n, n))
+    labels = np.zeros((n, n), np.int32)
+    labels[2:5, 2:5] = 1
+    labels[9:13, 9:13] = 2
+    q[labels > 0] = 0.6
+    d = np.where(labels > 0, 7.0, 0.0)
+    params = WalkParams(max_steps=30, mortality_per_resistance=0.05)
+    res = disperse_walk_deterministic(d, perm, q, labels, 2, params)
+    for p in (1, 2):
+        alone = disperse_walk_deterministic(np.where(labels == p, d, 0.0), perm, q, labels, 2,
+                                            params)
+        assert res.settled_from[p] == pytest.approx(alone.arrivals.sum(), rel=1e-12)
+        assert res.retained[p] == pytest.approx(alone.arrivals[labels == p].sum(), rel=1e-12)
+    assert 0 < res.retained[1] < res.settled_from[1] < d[labels == 1].sum()
+    sres = disperse_walk_stochastic(d, perm, q, labels, 2, params, key())
+    assert sres.settled_from[1:].sum() == sres.arrivals.sum()
+    assert np.all(sres.retained <= sres.settled_from)
+
+
+def test_entry_survival_thins_walkers_crossing_a_line():
+    """A line of cells entered with survival 0.5 halves what crosses it when walkers cross at
+    most once (one-way strip, exact expectation; common practice)."""
+    perm = np.ones((1, 6))
+    q = np.zeros((1, 6))
+    q[0, 5] = 1.0
+    d = np.zeros((1, 6))
+    d[0, 0] = 1.0
+    params = WalkParams(max_steps=5)
+    surv = np.ones((1, 6))
+    open_ = disperse_walk_deterministic(d, perm, q, np.zeros((1, 6), np.int32), 0, params)
+    surv[0, 3] = 0.5
+    thinned = disperse_walk_deterministic(d, perm, q, np.zeros((1, 6), np.int32), 0, params,
+                                          entry_survival=surv)
+    assert open_.arrivals[0, 5] > 0
+    # a walker reaching cell 5 within 5 steps on a 1-D strip from cell 0 went straight: it
+    # entered cell 3 exactly once
+    assert thinned.arrivals[0, 5] == pytest.approx(0.5 * open_.arrivals[0, 5], rel=1e-12)
