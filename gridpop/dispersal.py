@@ -564,9 +564,11 @@ def patch_retention_deterministic(dispersers, labels, settle, kernel: Kernel, ed
 
     Returns
     -------
-    (n_patches + 1,) ndarray of float64
+    retained : (n_patches + 1,) ndarray of float64
         ``retained[p]``: dispersers from cells of patch p landing in settle cells of patch p;
         ``retained[0] = 0``.
+    settled_from : (n_patches + 1,) ndarray of float64
+        Dispersers from cells of patch p landing in any settle cell.
     """
     _check_method(method)
     d = _as_field(dispersers, "dispersers")
@@ -575,6 +577,7 @@ def patch_retention_deterministic(dispersers, labels, settle, kernel: Kernel, ed
     code = _edge_code(edge)
     ny, nx = d.shape
     out = np.zeros(n_patches + 1)
+    settled_from = np.zeros(n_patches + 1)
     for p, box in enumerate(ndimage.find_objects(labels, max_label=n_patches), start=1):
         if box is None:
             continue
@@ -587,8 +590,10 @@ def patch_retention_deterministic(dispersers, labels, settle, kernel: Kernel, ed
         # Sides of the box inside the grid lie a kernel radius beyond the patch: nothing from
         # the patch gets past them, and the mirror padding there reflects only zeros.
         arrived = _spread(src, kernel, code, method)
-        out[p] = arrived[mine & settle[y0:y1, x0:x1]].sum()
-    return out
+        ok = settle[y0:y1, x0:x1]
+        out[p] = arrived[mine & ok].sum()
+        settled_from[p] = arrived[ok].sum()
+    return out, settled_from
 
 
 # --------------------------------------------------------------------------------------------
@@ -634,14 +639,16 @@ def _land(i, j, k, cnt, offsets, edge_code, labels, settle, buf, start, b0, stay
     if y == i and x == j:
         stayed[i, j] += cnt
     lab = labels[i, j]
-    if lab > 0 and labels[y, x] == lab and settle[y, x]:
-        ret[c, lab] += cnt
+    if lab > 0 and settle[y, x]:
+        ret[c, lab, 1] += cnt
+        if labels[y, x] == lab:
+            ret[c, lab, 0] += cnt
 
 
 @pjit
 def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, cdf, cond,
                                 ry, edge_code, key, multinomial_min, bounds, starts, buf,
-                                arrivals, stayed, retained):
+                                arrivals, stayed, retained, settled_from):
     """Each disperser of cell (i, j) draws its destination from the kernel.
 
     Row chunk c (rows bounds[c]..bounds[c+1]) writes its landings into its own band of ``buf``
@@ -655,7 +662,7 @@ def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, 
     """
     ny, nx = dispersers.shape
     nch = bounds.size - 1
-    ret = np.zeros((nch, n_patches + 1))
+    ret = np.zeros((nch, n_patches + 1, 2))
     for c in prange(nch):
         r0 = bounds[c]
         b0 = max(0, r0 - ry)
@@ -691,7 +698,8 @@ def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, 
                     arrivals[i, j] += buf[base + j]
     for c in range(nch):
         for p in range(n_patches + 1):
-            retained[p] += ret[c, p]
+            retained[p] += ret[c, p, 0]
+            settled_from[p] += ret[c, p, 1]
 
 
 def _row_chunks(dispersers: np.ndarray, multinomial_min: float, ry: int):
@@ -737,6 +745,8 @@ def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kern
         Dispersers of each cell that landed back in it.
     retained : (n_patches + 1,) ndarray of float64
         Dispersers from patch p that landed in a settle cell of patch p; ``retained[0] = 0``.
+    settled_from : (n_patches + 1,) ndarray of float64
+        Dispersers from patch p that landed in any settle cell; ``settled_from[0] = 0``.
     """
     d = _as_field(dispersers, "dispersers")
     settle = np.ascontiguousarray(settle, dtype=np.bool_)
@@ -751,10 +761,12 @@ def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kern
     arrivals = np.zeros(d.shape)
     stayed = np.zeros(d.shape)
     retained = np.zeros(n_patches + 1)
+    settled_from = np.zeros(n_patches + 1)
     _disperse_stochastic_kernel(d, settle, labels, n_patches, kernel.offsets, kernel.cdf,
                                 kernel.conditional, kernel.ry, code, np.uint64(key),
-                                multinomial_min, bounds, starts, buf, arrivals, stayed, retained)
-    return arrivals, stayed, retained
+                                multinomial_min, bounds, starts, buf, arrivals, stayed, retained,
+                                settled_from)
+    return arrivals, stayed, retained, settled_from
 
 
 # --------------------------------------------------------------------------------------------
@@ -818,4 +830,30 @@ def leaving_stochastic(n, k, fraction: float, density_dependence: float, key) ->
     out = np.zeros(n.shape)
     _leaving_stochastic_kernel(n, k, float(fraction), float(density_dependence), np.uint64(key),
                                out)
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# Crossing barriers
+
+
+@pjit
+def _thin_kernel(counts, p, key, group, out):
+    ny, nx = counts.shape
+    for i in prange(ny):
+        for j in range(nx):
+            c = np.int64(counts[i, j])
+            out[i, j] = 0.0 if c <= 0 else rng.binomial(
+                c, p, rng.cell_key(key, (group * ny + i) * nx + j))
+
+
+def thin(counts, p: float, key, group: int) -> np.ndarray:
+    """Binomial thinning of whole counts: each individual survives with probability ``p``.
+
+    Cell (i, j) of group ``g`` uses ``rng.cell_key(key, (g * ny + i) * nx + j)``, so different
+    groups (e.g. the dispersers of different regions) draw independent numbers.
+    """
+    d = _as_field(counts, "counts")
+    out = np.empty_like(d)
+    _thin_kernel(d, float(p), np.uint64(key), np.int64(group), out)
     return out

@@ -25,6 +25,7 @@ so results do not depend on how batches were scheduled.
 from __future__ import annotations
 
 import contextlib
+import csv
 import dataclasses
 import errno
 import json
@@ -38,6 +39,7 @@ from pathlib import Path
 
 import numba
 import numpy as np
+from scipy import ndimage
 
 from . import __version__, rng
 from ._jit import njit, pjit, prange
@@ -51,10 +53,11 @@ from .dispersal import (
     leaving_stochastic,
     make_kernel,
     patch_retention_deterministic,
+    thin,
 )
 from .disturbance import Regime, build_regime
 from .errors import RunStateError
-from .landscape import Landscape, build_landscape
+from .landscape import Landscape, align_raster, build_landscape
 from .outputs import (
     LEDGER_FIELDS,
     check_output,
@@ -67,6 +70,14 @@ from .outputs import (
     write_stack,
     year_labels,
 )
+from .resistance import (
+    Walk,
+    WalkParams,
+    patch_connectivity,
+    permeability_from_resistance,
+    resistance_from_suitability,
+)
+from .scenario import OUTPUT_RASTERS
 from .summary import TargetCensus, target_census, write_summary
 
 N_FIELDS = len(LEDGER_FIELDS)
@@ -96,6 +107,10 @@ class Model:
     fraction: float
     density_dependence: float
     kernel: Kernel | None
+    walk: Walk | None
+    regions: np.ndarray | None  # kernel dispersal across barriers: region labels, 0 = barrier
+    n_regions: int
+    crossing_survival: float
     edge: str
     env: EnvironmentalNoise | None
     occupancy_threshold: float
@@ -109,6 +124,8 @@ class Model:
         acc = {"sum_n": np.float64, "occupied": np.int32, "ever": np.int32}
         if self.regime is not None:
             acc.update({f"n_{kind}": np.int32 for kind in self.disturbance_kinds})
+        if self.walk is not None:
+            acc["visits"] = np.float64
         return acc
 
     @property
@@ -122,12 +139,19 @@ def build_model(scenario, base: Landscape) -> Model:
     actions = apply_actions(scenario, base)
     landscape = actions.landscape
     g, d, grid = scenario.growth, scenario.dispersal, landscape.grid
-    kernel = None
-    if d.fraction > 0:
+    kernel = walk = regions = None
+    n_regions, crossing_survival = 0, 1.0
+    barrier = actions.barrier
+    if d.fraction > 0 and d.method == "walk":
+        walk = _walk_surface(scenario, landscape, actions)
+    elif d.fraction > 0:
         kernel = make_kernel(d.kernel, mean_distance_m=d.mean_distance_m, tail=d.tail,
                              max_distance_m=d.max_distance_m, cell_w_m=grid.cell_width_m,
                              cell_h_m=grid.cell_height_m, grid_shape=grid.shape,
                              file=scenario.path)
+        if barrier is not None and barrier.max() > 0:
+            regions, n_regions = ndimage.label(barrier == 0)  # 4-neighbour regions
+            crossing_survival = 1.0 - float(barrier.max())
     env = None
     if g.env_sd > 0:
         env = EnvironmentalNoise(grid.shape, grid.cell_width_m, grid.cell_height_m, g.env_sd,
@@ -141,11 +165,37 @@ def build_model(scenario, base: Landscape) -> Model:
         initial=np.ascontiguousarray(landscape.initial, dtype=np.float64),
         landscape=landscape, labels=np.ascontiguousarray(landscape.patches.labels, np.int32),
         n_patches=landscape.patches.n, fraction=d.fraction,
-        density_dependence=d.density_dependence, kernel=kernel, edge=d.edge, env=env,
+        density_dependence=d.density_dependence, kernel=kernel, walk=walk, regions=regions,
+        n_regions=n_regions, crossing_survival=crossing_survival, edge=d.edge, env=env,
         occupancy_threshold=scenario.output.occupancy_threshold,
         actions=actions, regime=build_regime(scenario, landscape, actions),
         targets=target_census(scenario, grid),
     )
+
+
+def _walk_surface(scenario, landscape: Landscape, actions: Actions) -> Walk:
+    """Permeability, barriers and settlement of the walk engine."""
+    d, grid = scenario.dispersal, landscape.grid
+    if d.resistance is not None:
+        res = align_raster(d.resistance, grid, kind="continuous", file=scenario.path,
+                           section="dispersal", key="resistance").data
+    else:
+        res = resistance_from_suitability(landscape.suitability, d.resistance_max,
+                                          d.resistance_shape)
+    res = np.where(landscape.mask, res, np.nan)
+    if actions.resistance_factor is not None:
+        res = res * actions.resistance_factor
+    perm = permeability_from_resistance(res)
+    entry = None
+    if actions.barrier is not None:
+        perm[actions.barrier >= 1.0] = 0.0
+        partial = (actions.barrier > 0) & (actions.barrier < 1.0)
+        if partial.any():
+            entry = np.where(partial, 1.0 - actions.barrier, 1.0)
+    params = WalkParams(max_steps=d.max_steps, mortality_per_resistance=d.step_mortality,
+                        settle_shape=d.settle_shape, persistence=d.persistence)
+    full = scenario.habitat.capacity_per_ha * grid.cell_area_ha
+    return Walk(np.ascontiguousarray(perm), entry, full, params)
 
 
 N_CHUNKS = 64  # fixed row chunking of reductions: sums do not depend on the thread count
@@ -261,6 +311,7 @@ class Replicate:
         self._env_state = None
         self._dist_state = model.regime.start() if model.regime is not None else None
         self.effects = None  # the last year's disturbance effects
+        self.visits = np.zeros(shape) if model.walk is not None else None  # the year's flow
 
     def advance(self, t: int) -> None:
         m, year = self.model, t - 1
@@ -285,8 +336,10 @@ class Replicate:
         self.n, self._out = self._out, self.n
         row = self.ledger[t]
         row[:, F_EMIG:F_LOSS + 1] = 0.0
-        if m.kernel is not None:
-            _disperse(m, self.replicate, year, self.n, k, row)
+        if m.kernel is not None or m.walk is not None:
+            if self.visits is not None:
+                self.visits[:] = 0.0
+            _disperse(m, self.replicate, year, self.n, k, row, self.visits)
 
     def census(self, t: int, sink: BatchSink) -> None:
         m = self.model
@@ -300,6 +353,8 @@ class Replicate:
         row[:, F_DEATHS] = s[:, 2]
         row[:, F_DIST] = s[:, 3]
         row[:, F_OCC] = s[:, 4]
+        if self.visits is not None and t > 0:
+            sink.acc["visits"][t] += self.visits
         if m.targets is not None:
             m.targets.record(sink.targets[self.replicate - sink.replicates.start, t], self.n)
         eff = self.effects
@@ -324,37 +379,91 @@ def _key(model: Model, replicate: int, year: int, stream: int) -> np.uint64:
 
 
 def _disperse(model: Model, replicate: int, year: int, n: np.ndarray, k: np.ndarray,
-              row: np.ndarray) -> None:
+              row: np.ndarray, visits: np.ndarray | None) -> None:
     """Move dispersers in place in ``n`` and write the movement columns of one ledger row.
 
     Dispersers settle only where the capacity of the year ``k`` is positive; the rest are lost.
+    Per patch: emigrants left the patch, immigrants settled in it from outside, losses are its
+    dispersers that settled nowhere. For the landscape: emigrants left their cell, immigrants
+    settled in another cell, losses settled nowhere (emigrants = immigrants + losses).
     """
     settle = k > 0
-    if model.stochastic:
-        leaving = leaving_stochastic(n, k, model.fraction,
-                                     model.density_dependence,
-                                     _key(model, replicate, year, rng.STREAM_EMIGRATION))
-        arrivals, stayed, retained = disperse_stochastic(
-            leaving, settle, model.labels, model.n_patches, model.kernel, model.edge,
-            _key(model, replicate, year, rng.STREAM_DISPERSAL))
+    m = model
+    if m.stochastic:
+        leaving = leaving_stochastic(n, k, m.fraction, m.density_dependence,
+                                     _key(m, replicate, year, rng.STREAM_EMIGRATION))
     else:
-        leaving = leaving_deterministic(n, k, model.fraction,
-                                        model.density_dependence)
-        arrivals, stayed = disperse_deterministic(leaving, model.kernel, model.edge)
-        retained = patch_retention_deterministic(leaving, model.labels, settle, model.kernel,
-                                                 model.edge, model.n_patches)
+        leaving = leaving_deterministic(n, k, m.fraction, m.density_dependence)
+    if m.walk is not None:
+        res = m.walk.disperse(leaving, k, m.labels, m.n_patches, m.stochastic,
+                              _key(m, replicate, year, rng.STREAM_WALK))
+        arrivals, stayed, retained, settled_from = res[:4]
+        visits += res.visits
+    elif m.regions is None:
+        arrivals, stayed, retained, settled_from = _kernel_step(m, leaving, settle, replicate,
+                                                                year)
+    else:
+        arrivals, stayed, retained, settled_from = _kernel_step_with_barriers(
+            m, leaving, settle, replicate, year)
     settled = np.where(settle, arrivals, 0.0)
     n -= leaving
     n += settled
-    out_p = _patch_sum(model.labels, model.n_patches, leaving)
-    in_p = _patch_sum(model.labels, model.n_patches, settled)
-    stay = float(stayed.sum())
+    out_p = _patch_sum(m.labels, m.n_patches, leaving)
+    in_p = _patch_sum(m.labels, m.n_patches, settled)
+    stay = float(np.where(settle, stayed, 0.0).sum())
     row[:, F_EMIG] = out_p - retained
     row[:, F_IMMIG] = in_p - retained
+    row[:, F_LOSS] = out_p - settled_from
     row[0, F_EMIG] = out_p[0] - stay
     row[0, F_IMMIG] = in_p[0] - stay
-    row[:, F_LOSS] = row[:, F_EMIG] - row[:, F_IMMIG]
     row[0, F_LOSS] = out_p[0] - in_p[0]
+
+
+def _kernel_step(m: Model, leaving, settle, replicate, year):
+    """Kernel dispersal of ``leaving``: (arrivals, stayed, retained, settled_from)."""
+    if m.stochastic:
+        return disperse_stochastic(leaving, settle, m.labels, m.n_patches, m.kernel, m.edge,
+                                   _key(m, replicate, year, rng.STREAM_DISPERSAL))
+    arrivals, stayed = disperse_deterministic(leaving, m.kernel, m.edge)
+    retained, settled_from = patch_retention_deterministic(leaving, m.labels, settle, m.kernel,
+                                                           m.edge, m.n_patches)
+    return arrivals, stayed, retained, settled_from
+
+
+def _kernel_step_with_barriers(m: Model, leaving, settle, replicate, year):
+    """Kernel dispersal across barriers.
+
+    Barrier cells split the grid into regions (4-neighbour connected groups of the other
+    cells). Dispersers spread by the kernel; those that land in another region or on a barrier
+    cell crossed a barrier and survive with ``m.crossing_survival`` (binomial thinning of whole
+    individuals in stochastic mode). Sources are processed by (region, patch) group, so the
+    per-patch bookkeeping stays exact; a disperser that crosses a barrier and lands in its own
+    patch is retained by the patch.
+    """
+    arrivals = np.zeros_like(leaving)
+    stayed = np.zeros_like(leaving)
+    retained = np.zeros(m.n_patches + 1)
+    settled_from = np.zeros(m.n_patches + 1)
+    group = m.regions.astype(np.int64) * (m.n_patches + 1) + m.labels
+    key = _key(m, replicate, year, rng.STREAM_BARRIER)
+    for g in np.unique(group[leaving > 0]):
+        r, p = divmod(int(g), m.n_patches + 1)
+        if r == 0:
+            continue  # no one disperses from a barrier cell: see build_model
+        inside = m.regions == r
+        src = np.where(group == g, leaving, 0.0)
+        arr, st = _kernel_step(m, src, settle & inside, replicate, year)[:2]
+        crossed = np.where(inside, 0.0, arr)
+        kept = (thin(crossed, m.crossing_survival, key, int(g)) if m.stochastic
+                else crossed * m.crossing_survival)
+        arr = np.where(inside, arr, kept)
+        arrivals += arr
+        stayed += st
+        if p > 0:
+            landed = np.where(settle, arr, 0.0)
+            settled_from[p] += landed.sum()
+            retained[p] += landed[m.labels == p].sum()
+    return arrivals, stayed, retained, settled_from
 
 
 def batches(model: Model) -> list[range]:
@@ -541,8 +650,7 @@ def footprint(scenario, model: Model) -> Footprint:
         r = model.kernel.radius
         fft = 48 * (ny + 2 * r) * (nx + 2 * r)  # padded real field, spectra, kernel transform
     ledger_row = N_FIELDS * 8
-    n_stacks = sum(1 for name, (acc, _) in STACKS.items() if acc in model.accumulators
-                   and (name in scenario.output.rasters or acc.startswith("n_")))
+    n_stacks = len(stacks_written(scenario, model))
     patch_rows = model.replicates * years * model.n_patches if scenario.output.patches_csv else 0
     output = (n_stacks * years * cells * 4
               + (model.replicates * years + patch_rows) * CSV_ROW_BYTES)
@@ -747,7 +855,46 @@ STACKS = {
     "colonised": ("ever", "fraction of replicates in which the cell has been occupied by then"),
     "burned": ("n_fire", "fraction of replicates in which the cell burned that year"),
     "flooded": ("n_flood", "fraction of replicates in which the cell flooded that year"),
+    "flow": ("visits", "mean number of disperser visits to the cell that year (walk method)"),
 }
+
+
+def stacks_written(scenario, model: Model) -> dict[str, str]:
+    """Stacks a run writes (name -> accumulator): those asked for in [output] rasters, and
+    always those of disturbance and walk dispersal when present."""
+    return {name: acc for name, (acc, _) in STACKS.items() if acc in model.accumulators
+            and (name in scenario.output.rasters or name not in OUTPUT_RASTERS)}
+
+
+def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
+    """connectivity.csv (patch-to-patch settlement probabilities of the walk, from the expected
+    walk on the year-0 landscape, start cells weighted by capacity) and connectivity.json (the
+    same matrix and, per corridor action, its share of the walkers' visits to cells outside
+    habitat over the whole run)."""
+    w = model.walk
+    conn = patch_connectivity(model.labels, model.n_patches, w.permeability,
+                              w.quality(model.capacity), w.params, weights=model.capacity)
+    with open(work / "connectivity.csv", "w", newline="") as fh:
+        out = csv.writer(fh)
+        out.writerow(["from_patch", "to_patch", "probability"])
+        for i in range(model.n_patches):
+            for j in range(model.n_patches):
+                out.writerow([i + 1, j + 1, f"{conn[i, j]:.12g}"])
+    total = np.zeros(model.capacity.shape)
+    for t in range(1, model.years + 1):
+        total += visits[t]
+    matrix = model.capacity <= 0
+    outside = float(total[matrix].sum())
+    shares = {}
+    for cfg, cells in zip(scenario.extra.get("action", ()), model.actions.areas, strict=True):
+        if cfg.kind == "corridor":
+            inside = float(total[cells & matrix].sum())
+            shares[cfg.label] = inside / outside if outside > 0 else None
+    write_json(work / "connectivity.json", {
+        "matrix": conn, "corridor_share_of_matrix_visits": shares,
+        "note": "matrix[i][j]: probability that a disperser leaving patch i+1 settles in patch "
+                "j+1 in one year (expected walk, year-0 landscape)."})
+    return ["connectivity.csv", "connectivity.json"]
 
 
 def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list[str]:
@@ -759,12 +906,13 @@ def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list
     grid, mask = model.landscape.grid, model.landscape.mask
     labels = year_labels(model.years)
     files = []
-    for name, (acc, _) in STACKS.items():
-        if acc in totals and (name in scenario.output.rasters or acc.startswith("n_")):
-            total = totals[acc]
-            write_stack(work / f"{name}.tif", grid, mask,
-                        (total[t] / reps for t in range(model.years + 1)), labels)
-            files.append(f"{name}.tif")
+    for name, acc in stacks_written(scenario, model).items():
+        total = totals[acc]
+        write_stack(work / f"{name}.tif", grid, mask,
+                    (total[t] / reps for t in range(model.years + 1)), labels)
+        files.append(f"{name}.tif")
+    if model.walk is not None:
+        files += write_connectivity(work, scenario, model, totals["visits"])
     ledger = np.concatenate([np.load(p / "ledger.npy") for p in parts], axis=0)
     write_ledger_csv(work / "timeseries.csv", ledger[:, :, 0, :], integers=model.stochastic)
     files.append("timeseries.csv")

@@ -1,7 +1,8 @@
 """Exception types a user can cause.
 
 Every error a user can trigger with a scenario file, an input layer or a command-line option is a
-:class:`GridpopError`. The command line turns these into one clear message on stderr and exit code 2;
+:class:`GridpopError`. The command line turns these into one clear message on stderr and exit
+code 2;
 anything else is an internal error (exit code 1).
 """
 

@@ -645,3 +645,38 @@ def patch_connectivity(labels, n_patches: int, permeability, quality, params: Wa
         out[p - 1] = np.bincount(lab_w.ravel(), weights=arrivals.ravel(),
                                  minlength=n_patches + 1)[1:]
     return out
+
+
+@dataclass(frozen=True, eq=False)
+class Walk:
+    """The walk engine as the yearly cycle uses it.
+
+    Attributes
+    ----------
+    permeability : (ny, nx) float64 ndarray
+        With barriers that cannot be crossed already set to 0.
+    entry_survival : (ny, nx) float64 ndarray or None
+        Survival of entering barrier cells that can be crossed with a mortality.
+    full_capacity : float
+        Capacity of a cell at suitability 1: habitat quality is ``K / full_capacity``
+        (clipped to 0..1), so walkers never settle where the capacity of the year is 0.
+    params : WalkParams
+    """
+
+    permeability: np.ndarray
+    entry_survival: np.ndarray | None
+    full_capacity: float
+    params: WalkParams
+
+    def quality(self, k: np.ndarray) -> np.ndarray:
+        return np.clip(k / self.full_capacity, 0.0, 1.0) if self.full_capacity > 0 \
+            else np.zeros_like(k)
+
+    def disperse(self, leaving, k, labels, n_patches, stochastic, key) -> WalkResult:
+        q = self.quality(k)
+        if stochastic:
+            return disperse_walk_stochastic(leaving, self.permeability, q, labels, n_patches,
+                                            self.params, key,
+                                            entry_survival=self.entry_survival)
+        return disperse_walk_deterministic(leaving, self.permeability, q, labels, n_patches,
+                                           self.params, entry_survival=self.entry_survival)

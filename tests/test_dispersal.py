@@ -324,6 +324,7 @@ def test_patch_retention_brute_force(kind, edge):
     k = kernel(kind, mean=1.5, cell=0.5, max_distance_m=2.0)
     ny, nx = d.shape
     ref = np.zeros(4)
+    ref_from = np.zeros(4)
     w = k.stencil
     for i in range(ny):
         for j in range(nx):
@@ -335,12 +336,17 @@ def test_patch_retention_brute_force(kind, edge):
                         if edge == "absorbing":
                             continue
                         y, x = fold(y, ny), fold(x, nx)
-                    if p > 0 and labels[y, x] == p and settle[y, x]:
-                        ref[p] += d[i, j] * w[a, b]
+                    if p > 0 and settle[y, x]:
+                        ref_from[p] += d[i, j] * w[a, b]
+                        if labels[y, x] == p:
+                            ref[p] += d[i, j] * w[a, b]
     for method in ("stencil", "fft"):
-        got = D.patch_retention_deterministic(d, labels, settle, k, edge, 3, method=method)
+        got, got_from = D.patch_retention_deterministic(d, labels, settle, k, edge, 3,
+                                                        method=method)
         assert got[0] == 0.0
         np.testing.assert_allclose(got, ref, rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(got_from, ref_from, rtol=1e-12, atol=1e-12)
+        assert np.all(got_from >= got) and np.any(got_from > got)
 
 
 def front_speed(k, method, r0=2.0, gens=120, nx=800):
@@ -407,7 +413,7 @@ def test_stochastic_rayleigh_mean_displacement(sampling):
     sigma, n = 1.0, 200_000
     mean = sigma * math.sqrt(math.pi / 2)
     k = kernel("gaussian", mean=mean, cell=sigma / 4)
-    d, (arr, stay, ret) = single_source(k, n)
+    d, (arr, stay, ret, _) = single_source(k, n)
     assert arr.sum() == n
     c = (d.shape[0] // 2, d.shape[1] // 2)
     y, x = np.indices(d.shape)
@@ -423,7 +429,7 @@ def test_stochastic_landing_frequencies_chi_square(sampling):
     (the rest pooled) below its 0.9999 quantile."""
     n = 100_000
     k = kernel("exponential", mean=1.0, cell=0.5, cell_h=0.7, max_distance_m=6.0)
-    d, (arr, _, _) = single_source(k, n)
+    d, (arr, *_) = single_source(k, n)
     c0, c1 = d.shape[0] // 2, d.shape[1] // 2
     obs = arr[c0 - k.ry:c0 + k.ry + 1, c1 - k.rx:c1 + k.rx + 1].ravel()
     exp = n * k.stencil.ravel()
@@ -447,7 +453,7 @@ def test_stochastic_absorbing_loss_and_conservation(sampling):
     k = kernel("gaussian", mean=sigma * math.sqrt(math.pi / 2), cell=1.0)
     shape = (30, 2 * k.rx + 5)
     for edge in D.EDGES:
-        d, (arr, _, _) = single_source(k, n, edge, shape, at=(2, shape[1] // 2))
+        d, (arr, *_) = single_source(k, n, edge, shape, at=(2, shape[1] // 2))
         assert np.array_equal(arr, np.round(arr))
         lost = n - arr.sum()
         if edge == "reflecting":
@@ -477,17 +483,18 @@ def test_stochastic_matches_expectation_and_threads(edge, threads):
         runs.append(D.disperse_stochastic(d, settle, labels, 3, k, edge, KEY))
     for a, b in zip(*runs, strict=True):
         np.testing.assert_array_equal(a, b)
-    arr, stay, ret = runs[0]
+    arr, stay, ret, ret_from = runs[0]
     if edge == "reflecting":
         assert arr.sum() == d.sum()
     assert arr.sum() <= d.sum()
     e_arr, e_stay = D.disperse_deterministic(d, k, edge)
-    e_ret = D.patch_retention_deterministic(d, labels, settle, k, edge, 3)
+    e_ret, e_from = D.patch_retention_deterministic(d, labels, settle, k, edge, 3)
     assert abs(arr.sum() - e_arr.sum()) < 4 * math.sqrt(d.sum() - e_arr.sum() + 1)
     assert abs(stay.sum() - e_stay.sum()) < 4 * math.sqrt(e_stay.sum())
     assert ret[0] == 0
     for p in (1, 2, 3):
         assert abs(ret[p] - e_ret[p]) < 4 * math.sqrt(e_ret[p])
+        assert abs(ret_from[p] - e_from[p]) < 4 * math.sqrt(e_from[p])
 
 
 def test_deterministic_thread_invariance(threads):

@@ -194,3 +194,82 @@ def test_ledger_identity_with_disturbance(make_scenario, make_raster, tmp_path, 
             stack = ds.read(masked=True)
             assert stack.max() > 0 and stack.min() >= 0 and stack.max() <= 1
             assert np.all(stack[0] == 0)
+
+
+def test_patch_losses_add_up_to_landscape_losses(make_scenario, tmp_path):
+    """Losses are dispersers that settled nowhere: with every disperser starting in a patch, the
+    patches' losses add up to the landscape's exactly (stochastic integers)."""
+    out = tmp_path / "r"
+    gridpop.run(make_scenario(scenario_text(True)), out)
+    land = read_ledger(out / "timeseries.csv")
+    patches = read_ledger(out / "patches.csv", patches=True)
+    total = 0.0
+    for (r, t), row in land.items():
+        by_patch = sum(v[6] for (rr, tt, _), v in patches.items() if rr == r and tt == t)
+        assert by_patch == row[6]
+        total += row[6]
+        for (rr, tt, _), v in patches.items():
+            if rr == r and tt == t:
+                assert 0 <= v[6] <= v[4]  # a patch loses no more than its emigrants
+    assert total > 0
+
+
+WALK = """
+[dispersal]
+fraction = 0.3
+method = "walk"
+max_steps = 40
+step_mortality = 0.02
+persistence = 0.5
+"""
+
+
+@pytest.mark.parametrize("stochastic", [True, False])
+def test_walk_method_ledger_flow_and_connectivity(make_scenario, tmp_path, stochastic):
+    """Walk dispersal in the yearly cycle: the BIDE ledger stays exact (common practice), the
+    flow stack and the patch connectivity table are written, rows of probabilities <= 1."""
+    text = scenario_text(stochastic).split("[dispersal]")[0] + WALK
+    out = tmp_path / "r"
+    gridpop.run(make_scenario(text), out)
+    land = read_ledger(out / "timeseries.csv")
+    check_identity(land, exact=stochastic)
+    check_identity(read_ledger(out / "patches.csv", patches=True), exact=stochastic)
+    assert sum(row[4] for row in land.values()) > 0
+    import rasterio
+
+    with rasterio.open(out / "flow.tif") as ds:
+        flow = ds.read(masked=True)
+        assert flow[1:].sum() > 0 and np.all(flow[0] == 0)
+    rows = read_rows(out / "connectivity.csv")
+    assert len(rows) == 4  # two patches
+    for p in ("1", "2"):
+        assert 0 < sum(float(r["probability"]) for r in rows if r["from_patch"] == p) <= 1
+
+
+def test_impassable_barrier_stops_kernel_dispersal(make_scenario, make_raster, tmp_path):
+    """A barrier with crossing mortality 1 between two patches: nobody from the occupied west
+    patch ever settles in the empty east patch (exact)."""
+    import rasterio
+
+    with rasterio.open(tmp_path / "suitability.tif") as s:
+        suit = s.read(1)
+    start = np.zeros_like(suit)
+    start[5:20, 5:25] = 5
+    make_raster("start.tif", start, nodata=None)
+    wall = np.zeros_like(suit)
+    wall[:, 29:31] = 1
+    make_raster("wall.tif", wall, nodata=0)
+    text = scenario_text(True).replace("fraction_of_capacity = 0.6", 'raster = "start.tif"')
+    text = text.replace('mean_distance_m = 90.0', 'mean_distance_m = 300.0')
+    barrier = '\n[[action]]\nkind = "barrier"\narea = "wall.tif"\ncrossing_mortality = 1.0\n'
+    open_out, walled_out = tmp_path / "open", tmp_path / "walled"
+    gridpop.run(make_scenario(text, "open.toml"), open_out)
+    gridpop.run(make_scenario(text + barrier, "walled.toml"), walled_out)
+    east = read_ledger(walled_out / "patches.csv", patches=True)
+    east_open = read_ledger(open_out / "patches.csv", patches=True)
+    empty = [p for p in (1, 2)
+             if sum(v[0] for (r, t, q), v in east_open.items() if q == p and t == 0) == 0]
+    assert len(empty) == 1  # the east block starts empty
+    p = empty[0]
+    assert sum(v[5] for (r, t, q), v in east_open.items() if q == p) > 0  # colonised if open
+    assert sum(v[0] + v[5] for (r, t, q), v in east.items() if q == p) == 0  # never if walled
