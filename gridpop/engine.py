@@ -28,6 +28,7 @@ import contextlib
 import csv
 import dataclasses
 import errno
+import functools
 import json
 import math
 import os
@@ -127,6 +128,16 @@ class Model:
         if self.walk is not None:
             acc["visits"] = np.float64
         return acc
+
+    @functools.cached_property
+    def connectivity(self) -> np.ndarray | None:
+        """Walk method: (P, P) probability that a disperser leaving patch i settles in patch j
+        in one year (expected walk on the year-0 landscape, start cells weighted by capacity)."""
+        if self.walk is None:
+            return None
+        w = self.walk
+        return patch_connectivity(self.labels, self.n_patches, w.permeability,
+                                  w.quality(self.capacity), w.params, weights=self.capacity)
 
     @property
     def disturbance_kinds(self) -> list[str]:
@@ -871,9 +882,7 @@ def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
     walk on the year-0 landscape, start cells weighted by capacity) and connectivity.json (the
     same matrix and, per corridor action, its share of the walkers' visits to cells outside
     habitat over the whole run)."""
-    w = model.walk
-    conn = patch_connectivity(model.labels, model.n_patches, w.permeability,
-                              w.quality(model.capacity), w.params, weights=model.capacity)
+    conn = model.connectivity
     with open(work / "connectivity.csv", "w", newline="") as fh:
         out = csv.writer(fh)
         out.writerow(["from_patch", "to_patch", "probability"])

@@ -21,7 +21,9 @@ Definitions (the functions of :mod:`gridpop.metrics` do the arithmetic):
   every replicate (:class:`TargetCensus`), so it is exact and stays the same cells in every plan,
   even where a corridor joins two patches into one.
 - Metapopulation capacity: the run's patches (after the plan's actions), each at its centroid
-  with its area in hectares, and ``alpha = 1 / [dispersal] mean_distance_m``; null without
+  with its area in hectares, and ``alpha = 1 / [dispersal] mean_distance_m``; with the walk
+  method, the walk's patch-to-patch settlement probabilities (``Model.connectivity``) take the
+  place of ``exp(-alpha d)``, so resistance, corridors and barriers count; null without
   dispersal, and above :data:`CAPACITY_MAX_PATCHES` patches (said in ``"notes"``).
 """
 
@@ -157,17 +159,24 @@ def _risk(abundance: np.ndarray, threshold: float, confidence: float) -> dict:
 
 def _capacity(scenario, model, notes: list[str]) -> dict | None:
     patches, d = model.landscape.patches, scenario.dispersal
-    if patches.n == 0 or d.fraction == 0 or d.mean_distance_m is None:
+    walk = model.walk is not None
+    if patches.n == 0 or d.fraction == 0 or (d.mean_distance_m is None and not walk):
         return None
     if patches.n > CAPACITY_MAX_PATCHES:
         notes.append(f"metapopulation capacity not computed: {patches.n} patches, more than "
                      f"{CAPACITY_MAX_PATCHES}")
         return None
     xy = patch_centroids(patches.labels, patches.n, model.landscape.grid)
-    m = metapopulation_capacity(xy, patches.area_ha[1:], 1.0 / d.mean_distance_m)
+    if walk:
+        m = metapopulation_capacity(xy, patches.area_ha[1:], None,
+                                    dispersal=model.connectivity)
+        basis = {"connection": "walk settlement probabilities (connectivity.csv)"}
+    else:
+        m = metapopulation_capacity(xy, patches.area_ha[1:], 1.0 / d.mean_distance_m)
+        basis = {"connection": "exp(-alpha d)", "alpha_per_m": 1.0 / d.mean_distance_m}
     return {"lambda_M": m["lambda_M"], "contribution": m["contribution"],
             "removal_drop": m["removal_drop"], "patch": list(range(1, patches.n + 1)),
-            "area_ha": patches.area_ha[1:], "alpha_per_m": 1.0 / d.mean_distance_m}
+            "area_ha": patches.area_ha[1:], **basis}
 
 
 def parameters(scenario) -> dict:

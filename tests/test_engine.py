@@ -244,6 +244,19 @@ def test_walk_method_ledger_flow_and_connectivity(make_scenario, tmp_path, stoch
     assert len(rows) == 4  # two patches
     for p in ("1", "2"):
         assert 0 < sum(float(r["probability"]) for r in rows if r["from_patch"] == p) <= 1
+    # metapopulation capacity from the walk's connections in place of exp(-alpha d)
+    # (Hanski and Ovaskainen 2000, Nature 404:755), checked against numpy's eigenvalues
+    import json
+
+    summary = json.loads((out / "summary.json").read_text())
+    mc = summary["metapopulation_capacity"]
+    conn = np.zeros((2, 2))
+    for r in rows:
+        conn[int(r["from_patch"]) - 1, int(r["to_patch"]) - 1] = float(r["probability"])
+    area = np.array(mc["area_ha"])
+    m = conn * np.outer(area, area)
+    np.fill_diagonal(m, 0.0)
+    assert mc["lambda_M"] == pytest.approx(max(np.linalg.eigvals(m).real), rel=1e-9)
 
 
 def test_impassable_barrier_stops_kernel_dispersal(make_scenario, make_raster, tmp_path):
