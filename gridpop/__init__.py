@@ -4,6 +4,7 @@ Public API::
 
     scenario = gridpop.load_scenario("scenario.toml")
     gridpop.run(scenario, "results/base")
+    gridpop.compare(["base.toml", "reserve.toml"], "results/plans")
 """
 
 from importlib.metadata import PackageNotFoundError, version
@@ -25,4 +26,13 @@ def run(scenario, out_dir, **kwargs):
     return _run(scenario, out_dir, **kwargs)
 
 
-__all__ = ["load_scenario", "run", "__version__"]
+def compare(scenarios, out_dir, **kwargs):
+    """Run plans (paths or loaded scenarios) on common random numbers and compare them with the
+    first; see :func:`compare.compare`."""
+    from .compare import compare as _compare
+
+    plans = [s if hasattr(s, "sha256") else load_scenario(s) for s in scenarios]
+    return _compare(plans, out_dir, **kwargs)
+
+
+__all__ = ["load_scenario", "run", "compare", "__version__"]
