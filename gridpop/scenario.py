@@ -127,8 +127,9 @@ SECTIONS: dict[str, tuple[str, tuple[Key, ...]]] = {
         (
             Key("model", "str", "beverton-holt", "Density dependence of the yearly "
                 "multiplier.", choices=GROWTH_MODELS),
-            Key("rate", "float", REQUIRED, "Intrinsic growth rate r; lambda0 = e^r.",
-                "1/year", example=0.4),
+            Key("rate", "float", REQUIRED, "Intrinsic growth rate r at low density; lambda0 = "
+                "e^r. Declines come from survival, crowding, the environment and disturbance.",
+                "1/year", low=0, example=0.4),
             Key("survival", "float", 0.6, "Adult annual survival s; births make up the rest "
                 "of the multiplier.", low=0, high=1),
             Key("theta", "float", 1.0, "Shape of the theta-logistic model.", low=0,

@@ -150,6 +150,8 @@ def test_version(capsys):
         (("years = 5", "years = 0"), "years"),
         (("replicates = 3", "replicates = -1"), "replicates"),
         (("rate = 0.5", "rate = \"fast\""), "rate"),
+        (("rate = 0.5", "rate = -0.2"), "rate"),
+        (("rate = 0.5", "rate = nan"), "rate"),
         (("kernel = \"gaussian\"", "kernel = \"gausian\""), "did you mean 'gaussian'"),
         (("fraction = 0.2", "fracton = 0.2"), "did you mean 'fraction'"),
         (("capacity_per_ha = 40.0", "capacity_per_ha = -1.0"), "capacity_per_ha"),

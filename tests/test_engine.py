@@ -286,3 +286,33 @@ def test_impassable_barrier_stops_kernel_dispersal(make_scenario, make_raster, t
     p = empty[0]
     assert sum(v[5] for (r, t, q), v in east_open.items() if q == p) > 0  # colonised if open
     assert sum(v[0] + v[5] for (r, t, q), v in east.items() if q == p) == 0  # never if walled
+
+
+def test_barrier_crossing_mortality_thins_crossers_exactly(make_scenario, make_raster,
+                                                          tmp_path):
+    """Deterministic mode, crossing mortality 0.5: in the first year the empty east patch
+    receives exactly half the immigrants it receives without the barrier (expected survival of
+    a crossing, common practice)."""
+    import rasterio
+
+    with rasterio.open(tmp_path / "suitability.tif") as s:
+        suit = s.read(1)
+    start = np.zeros_like(suit)
+    start[5:20, 5:25] = 5
+    make_raster("start.tif", start, nodata=None)
+    wall = np.zeros_like(suit)
+    wall[:, 29:31] = 1
+    make_raster("wall.tif", wall, nodata=0)
+    text = scenario_text(False).replace("fraction_of_capacity = 0.6", 'raster = "start.tif"')
+    text = text.replace("env_sd = 0.3", "env_sd = 0.0").replace("years = 8", "years = 1")
+    text = text.replace("mean_distance_m = 90.0", "mean_distance_m = 300.0")
+    barrier = '\n[[action]]\nkind = "barrier"\narea = "wall.tif"\ncrossing_mortality = 0.5\n'
+    gridpop.run(make_scenario(text, "open.toml"), tmp_path / "open")
+    gridpop.run(make_scenario(text + barrier, "walled.toml"), tmp_path / "walled")
+    a = read_ledger(tmp_path / "open" / "patches.csv", patches=True)
+    b = read_ledger(tmp_path / "walled" / "patches.csv", patches=True)
+    east = [p for p in (1, 2) if a[(0, 0, p)][0] == 0]
+    assert len(east) == 1
+    p = east[0]
+    assert a[(0, 1, p)][5] > 0
+    assert b[(0, 1, p)][5] == pytest.approx(0.5 * a[(0, 1, p)][5], rel=1e-9)
