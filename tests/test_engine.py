@@ -259,9 +259,9 @@ def test_walk_method_ledger_flow_and_connectivity(make_scenario, tmp_path, stoch
     assert mc["lambda_M"] == pytest.approx(max(np.linalg.eigvals(m).real), rel=1e-9)
 
 
-def test_impassable_barrier_stops_kernel_dispersal(make_scenario, make_raster, tmp_path):
-    """A barrier with crossing mortality 1 between two patches: nobody from the occupied west
-    patch ever settles in the empty east patch (exact)."""
+def walled_runs(make_scenario, make_raster, tmp_path, *, stochastic, mortality, edits=()):
+    """Runs with the west block stocked and the east block empty, without and with a barrier
+    between them: (patch ledger without, patch ledger with, id of the east patch)."""
     import rasterio
 
     with rasterio.open(tmp_path / "suitability.tif") as s:
@@ -272,20 +272,26 @@ def test_impassable_barrier_stops_kernel_dispersal(make_scenario, make_raster, t
     wall = np.zeros_like(suit)
     wall[:, 29:31] = 1
     make_raster("wall.tif", wall, nodata=0)
-    text = scenario_text(True).replace("fraction_of_capacity = 0.6", 'raster = "start.tif"')
-    text = text.replace('mean_distance_m = 90.0', 'mean_distance_m = 300.0')
-    barrier = '\n[[action]]\nkind = "barrier"\narea = "wall.tif"\ncrossing_mortality = 1.0\n'
-    open_out, walled_out = tmp_path / "open", tmp_path / "walled"
-    gridpop.run(make_scenario(text, "open.toml"), open_out)
-    gridpop.run(make_scenario(text + barrier, "walled.toml"), walled_out)
-    east = read_ledger(walled_out / "patches.csv", patches=True)
-    east_open = read_ledger(open_out / "patches.csv", patches=True)
-    empty = [p for p in (1, 2)
-             if sum(v[0] for (r, t, q), v in east_open.items() if q == p and t == 0) == 0]
-    assert len(empty) == 1  # the east block starts empty
-    p = empty[0]
-    assert sum(v[5] for (r, t, q), v in east_open.items() if q == p) > 0  # colonised if open
-    assert sum(v[0] + v[5] for (r, t, q), v in east.items() if q == p) == 0  # never if walled
+    text = scenario_text(stochastic).replace("fraction_of_capacity = 0.6", 'raster = "start.tif"')
+    for edit in (("mean_distance_m = 90.0", "mean_distance_m = 300.0"), *edits):
+        text = text.replace(*edit)
+    barrier = ('\n[[action]]\nkind = "barrier"\narea = "wall.tif"\n'
+               f"crossing_mortality = {mortality}\n")
+    gridpop.run(make_scenario(text, "open.toml"), tmp_path / "open")
+    gridpop.run(make_scenario(text + barrier, "walled.toml"), tmp_path / "walled")
+    a = read_ledger(tmp_path / "open" / "patches.csv", patches=True)
+    b = read_ledger(tmp_path / "walled" / "patches.csv", patches=True)
+    east = [p for p in (1, 2) if a[(0, 0, p)][0] == 0]
+    assert len(east) == 1  # the east block starts empty
+    return a, b, east[0]
+
+
+def test_impassable_barrier_stops_kernel_dispersal(make_scenario, make_raster, tmp_path):
+    """A barrier with crossing mortality 1 between two patches: nobody from the occupied west
+    patch ever settles in the empty east patch (exact)."""
+    a, b, p = walled_runs(make_scenario, make_raster, tmp_path, stochastic=True, mortality=1.0)
+    assert sum(v[5] for (r, t, q), v in a.items() if q == p) > 0  # colonised if open
+    assert sum(v[0] + v[5] for (r, t, q), v in b.items() if q == p) == 0  # never if walled
 
 
 def test_barrier_crossing_mortality_thins_crossers_exactly(make_scenario, make_raster,
@@ -293,26 +299,7 @@ def test_barrier_crossing_mortality_thins_crossers_exactly(make_scenario, make_r
     """Deterministic mode, crossing mortality 0.5: in the first year the empty east patch
     receives exactly half the immigrants it receives without the barrier (expected survival of
     a crossing, common practice)."""
-    import rasterio
-
-    with rasterio.open(tmp_path / "suitability.tif") as s:
-        suit = s.read(1)
-    start = np.zeros_like(suit)
-    start[5:20, 5:25] = 5
-    make_raster("start.tif", start, nodata=None)
-    wall = np.zeros_like(suit)
-    wall[:, 29:31] = 1
-    make_raster("wall.tif", wall, nodata=0)
-    text = scenario_text(False).replace("fraction_of_capacity = 0.6", 'raster = "start.tif"')
-    text = text.replace("env_sd = 0.3", "env_sd = 0.0").replace("years = 8", "years = 1")
-    text = text.replace("mean_distance_m = 90.0", "mean_distance_m = 300.0")
-    barrier = '\n[[action]]\nkind = "barrier"\narea = "wall.tif"\ncrossing_mortality = 0.5\n'
-    gridpop.run(make_scenario(text, "open.toml"), tmp_path / "open")
-    gridpop.run(make_scenario(text + barrier, "walled.toml"), tmp_path / "walled")
-    a = read_ledger(tmp_path / "open" / "patches.csv", patches=True)
-    b = read_ledger(tmp_path / "walled" / "patches.csv", patches=True)
-    east = [p for p in (1, 2) if a[(0, 0, p)][0] == 0]
-    assert len(east) == 1
-    p = east[0]
+    a, b, p = walled_runs(make_scenario, make_raster, tmp_path, stochastic=False, mortality=0.5,
+                          edits=(("env_sd = 0.3", "env_sd = 0.0"), ("years = 8", "years = 1")))
     assert a[(0, 1, p)][5] > 0
     assert b[(0, 1, p)][5] == pytest.approx(0.5 * a[(0, 1, p)][5], rel=1e-9)
