@@ -61,12 +61,20 @@ def publish(work: Path, out_dir: Path) -> None:
         os.replace(work, out_dir)
 
 
+GDAL_CACHE_MB = 64
+"""GDAL's block cache while a stack is written, MB. Its default (5 % of the machine's memory)
+would fill with finished bands and make memory grow with the number of years."""
+
+
 def stack_profile(grid, bands: int) -> dict:
-    """Profile of a float32 GeoTIFF stack on the grid: tiled, DEFLATE with float predictor."""
+    """Profile of a float32 GeoTIFF stack on the grid: tiled, DEFLATE with float predictor, one
+    band after the other in the file (band interleaving), so that a stack written band by band
+    streams to disk: with pixel interleaving every tile holds all bands and is recompressed and
+    rewritten as each band arrives."""
     ny, nx = grid.shape
     profile = dict(driver="GTiff", width=nx, height=ny, count=bands, dtype="float32",
                    crs=grid.crs, transform=grid.transform, nodata=NODATA,
-                   compress="deflate", predictor=3, zlevel=6)
+                   compress="deflate", predictor=3, zlevel=6, interleave="band")
     if nx >= 16 and ny >= 16:
         block = 256 if min(nx, ny) >= 256 else 16 * (min(nx, ny) // 16)
         profile.update(tiled=True, blockxsize=block, blockysize=block)
@@ -86,7 +94,8 @@ def write_stack(path: Path, grid, mask: np.ndarray, bands, labels) -> None:
     """
     labels = list(labels)
     outside = ~mask
-    with rasterio.open(path, "w", **stack_profile(grid, len(labels))) as dst:
+    with (rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB),
+          rasterio.open(path, "w", **stack_profile(grid, len(labels))) as dst):
         for k, (band, label) in enumerate(zip(bands, labels, strict=True), start=1):
             data = np.asarray(band, dtype=np.float32).copy()
             data[outside] = NODATA
