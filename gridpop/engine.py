@@ -47,6 +47,8 @@ from ._jit import njit, pjit, prange
 from .actions import Actions, apply_actions
 from .demography import MODELS, EnvironmentalNoise, step_deterministic, step_stochastic
 from .dispersal import (
+    STENCIL_MAX_RADIUS,
+    STENCIL_MAX_RADIUS_SEPARABLE,
     Kernel,
     disperse_deterministic,
     disperse_stochastic,
@@ -615,11 +617,15 @@ def _may_continue(work: Path, identity: dict, *, resume: bool, overwrite: bool) 
 BASE_BYTES = 350 * 2**20
 """Resident memory of a gridpop process before any grid is loaded (Python, numba's compiled
 kernels, GDAL), measured with benchmarks/bench_memory.py."""
-MODEL_BYTES_PER_CELL = 80
+MODEL_BYTES_PER_CELL = 56
 """The model's and landscape's per-cell arrays (capacity, initial, labels, mask, ...)."""
-REPLICATE_BYTES_PER_CELL = 240
+REPLICATE_BYTES_PER_CELL = 120
 """State and temporaries of one replicate's yearly cycle (population, births, deaths, noise,
-dispersal fields), per cell; calibrated with benchmarks/bench_memory.py."""
+dispersal fields), per cell. With the model's arrays about 1.4 times the anonymous memory per
+cell measured by benchmarks/bench_memory.py (128 bytes between 1024^2 and 2048^2 grids)."""
+FFT_BYTES_PER_CELL = 48
+"""Per cell of the padded grid when dispersal goes through the FFT: the padded field, its
+spectrum and the kernel's."""
 CSV_ROW_BYTES = 170
 """Upper bound of a ledger row in timeseries.csv / patches.csv (8 numbers of up to 18 chars)."""
 
@@ -657,9 +663,10 @@ def footprint(scenario, model: Model) -> Footprint:
     rows = years * (model.n_patches + 1)
     per_cell = sum(np.dtype(dt).itemsize for dt in model.accumulators.values())
     fft = 0
-    if model.kernel is not None:
-        r = model.kernel.radius
-        fft = 48 * (ny + 2 * r) * (nx + 2 * r)  # padded real field, spectra, kernel transform
+    kernel = model.kernel
+    if kernel is not None and kernel.radius > (STENCIL_MAX_RADIUS_SEPARABLE if kernel.separable
+                                               else STENCIL_MAX_RADIUS):
+        fft = FFT_BYTES_PER_CELL * (ny + 2 * kernel.radius) * (nx + 2 * kernel.radius)
     ledger_row = N_FIELDS * 8
     n_stacks = len(stacks_written(scenario, model))
     patch_rows = model.replicates * years * model.n_patches if scenario.output.patches_csv else 0

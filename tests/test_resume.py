@@ -11,6 +11,8 @@ import subprocess
 import sys
 import time
 
+import rasterio
+
 import gridpop
 from gridpop import engine
 from gridpop.cli import main
@@ -216,7 +218,9 @@ def test_room_check_refuses_with_numbers_unless_forced(make_scenario, tmp_path, 
 
 def test_estimated_output_bounds_what_is_written(make_scenario, tmp_path, capsys):
     """The output estimate counts stacks uncompressed and CSV rows at their widest, so it bounds
-    the files written (DEFLATE only shrinks them: Deutsch 1996, RFC 1951, stored blocks)."""
+    the files written (DEFLATE only shrinks them: Deutsch 1996, RFC 1951, stored blocks). Stacks
+    are band-interleaved (GDAL GTiff INTERLEAVE=BAND, common practice for stacks written band by
+    band)."""
     from gridpop.landscape import build_landscape
 
     path = make_scenario(scenario_text())
@@ -227,6 +231,8 @@ def test_estimated_output_bounds_what_is_written(make_scenario, tmp_path, capsys
     files = json.loads((out / "run.json").read_text())["files"]
     written = sum((out / f).stat().st_size for f in files if f.endswith((".tif", ".csv")))
     assert written <= fp.output
+    with rasterio.open(out / "abundance.tif") as ds:  # bands stream to disk one after another
+        assert ds.profile["interleave"] == "band"
     assert fp.memory(workers=2) > fp.memory() > fp.memory(scheduler="tcp://x:1") > 0
     assert main(["check", str(path)]) == 0
     text = capsys.readouterr().out

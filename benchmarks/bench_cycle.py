@@ -1,0 +1,242 @@
+"""Speed of the yearly cycle against a plain NumPy/SciPy version and against memory bandwidth.
+
+1. One replicate's yearly cycle (Beverton-Holt growth split into survivors and births, 20 %
+   dispersal with a gaussian kernel of sigma 2 cells truncated at 4 sigma, census into the
+   per-year accumulators and the per-patch ledger), deterministic and stochastic, on square
+   grids of 1 ha cells: gridpop (``engine.Replicate``, numba) against a straightforward
+   vectorised NumPy/SciPy implementation of the same cycle (``np.where`` growth,
+   ``scipy.ndimage.gaussian_filter`` dispersal, ``numpy.random.Generator`` binomial and Poisson
+   draws, each disperser drawing a rounded normal displacement, ``np.bincount`` census).
+   Figures: cell-years per second and the ratio gridpop / reference.
+2. The deterministic local step (``demography.step_deterministic``: reads N, K, the noise; writes
+   the new N, births, deaths: 48 bytes per cell at least) against the bound set by a measured
+   streaming triad ``a = b + s c`` (STREAM convention: 24 bytes per element; McCalpin 1995, IEEE
+   TCCA Newsletter), both on numba's thread pool.
+
+Usage: python benchmarks/bench_cycle.py [--sizes 512,2048,4096] [--quick]
+Writes benchmarks/results/bench_cycle.json (bench_cycle_quick.json with --quick).
+"""
+
+from __future__ import annotations
+
+import argparse
+import tempfile
+import time
+from pathlib import Path
+
+import numba
+import numpy as np
+from _common import SIGMA_CELLS, best_time, write_result, write_scenario
+from scipy import ndimage
+
+from gridpop import engine
+from gridpop._jit import pjit, prange
+from gridpop.demography import MODELS, step_deterministic
+from gridpop.landscape import build_landscape
+from gridpop.scenario import load_scenario
+
+PHASES = ("step_deterministic", "step_stochastic", "leaving_deterministic", "leaving_stochastic",
+          "disperse_deterministic", "disperse_stochastic", "patch_retention_deterministic",
+          "_patch_sum", "_census")
+"""Functions the engine calls in the yearly cycle, timed one by one."""
+
+
+def gridpop_cycle(model, folder: Path, years: int) -> tuple[float, dict]:
+    """Seconds per replicate-year of gridpop's cycle after a warm-up year, and the seconds per
+    year spent in each of :data:`PHASES` (the engine's own calls, timed by wrapping them)."""
+    spent = dict.fromkeys(PHASES, 0.0)
+    originals = {name: getattr(engine, name) for name in PHASES}
+
+    def timed(name, fn):
+        def call(*args, **kwargs):
+            t = time.perf_counter()
+            try:
+                return fn(*args, **kwargs)
+            finally:
+                spent[name] += time.perf_counter() - t
+        return call
+
+    sink = engine.BatchSink(folder, model, range(1))
+    rep = engine.Replicate(model, 0, sink.ledger[0])
+    rep.census(0, sink)
+    rep.advance(1)
+    rep.census(1, sink)
+    for name, fn in originals.items():
+        setattr(engine, name, timed(name, fn))
+    try:
+        start = time.perf_counter()
+        for t in range(2, years + 2):
+            rep.advance(t)
+            rep.census(t, sink)
+        total = time.perf_counter() - start
+    finally:
+        for name, fn in originals.items():
+            setattr(engine, name, fn)
+    phases = {name.lstrip("_"): v / years for name, v in spent.items() if v > 0}
+    phases["other"] = total / years - sum(phases.values())
+    return total / years, phases
+
+
+class Reference:
+    """The same cycle written the direct NumPy/SciPy way (whole-array operations)."""
+
+    def __init__(self, model, stochastic: bool):
+        self.k = model.capacity
+        self.habitat = self.k > 0
+        self.safe_k = np.where(self.habitat, self.k, 1.0)
+        self.labels = model.labels.ravel()
+        self.n_patches = model.n_patches
+        self.rate, self.s, self.f = model.rate, model.survival, model.fraction
+        self.n = model.initial.copy()
+        self.ever = np.zeros(self.k.shape, bool)
+        self.stochastic = stochastic
+        self.rng = np.random.default_rng(0)
+
+    def patch_sums(self, x):
+        return np.bincount(self.labels, weights=x.ravel(), minlength=self.n_patches + 1)
+
+    def year(self, sum_n, occupied, ever_count):
+        n, er = self.n, np.exp(self.rate)
+        lam = np.where(self.habitat, er / (1.0 + (er - 1.0) * n / self.safe_k), 0.0)
+        if self.stochastic:
+            survivors = self.rng.binomial(n.astype(np.int64), np.minimum(self.s, lam))
+            births = self.rng.poisson(n * np.maximum(lam - self.s, 0.0))
+            n = (survivors + births).astype(np.float64)
+            leaving = self.rng.binomial(n.astype(np.int64), self.f)
+            arrivals = self.scatter(leaving)
+        else:
+            survivors = n * np.minimum(self.s, lam)
+            births = n * np.maximum(lam - self.s, 0.0)
+            n = survivors + births
+            leaving = self.f * n
+            arrivals = ndimage.gaussian_filter(leaving, SIGMA_CELLS, mode="constant",
+                                               truncate=4.0)
+        deaths = self.n - survivors
+        settled = np.where(self.habitat, arrivals, 0.0)
+        n = n - leaving + settled
+        occ = n >= 1.0
+        self.ever |= occ
+        sum_n += n
+        occupied += occ
+        ever_count += self.ever
+        ledger = [self.patch_sums(x) for x in (n, births, deaths, leaving, settled)]
+        ledger.append(np.bincount(self.labels, weights=occ.ravel(), minlength=self.n_patches + 1))
+        self.n = n
+        return ledger
+
+    def scatter(self, leaving):
+        """Each disperser lands at a normal displacement (sd sigma) from its cell centre, in the
+        cell containing that point, dropped if off the grid or beyond 4 sigma."""
+        ny, nx = leaving.shape
+        source = np.repeat(np.arange(leaving.size), leaving.ravel())
+        d = np.rint(self.rng.normal(0.0, SIGMA_CELLS, (2, source.size))).astype(np.int64)
+        y, x = source // nx + d[0], source % nx + d[1]
+        keep = ((np.abs(d) <= 4 * SIGMA_CELLS).all(axis=0)
+                & (y >= 0) & (y < ny) & (x >= 0) & (x < nx))
+        return np.bincount(y[keep] * nx + x[keep], minlength=leaving.size).reshape(ny, nx)
+
+
+def reference_cycle(model, stochastic: bool, years: int) -> float:
+    ref = Reference(model, stochastic)
+    acc = [np.zeros(model.capacity.shape), np.zeros(model.capacity.shape, np.int32),
+           np.zeros(model.capacity.shape, np.int32)]
+    ref.year(*acc)
+    start = time.perf_counter()
+    for _ in range(years):
+        acc = [np.zeros_like(a) for a in acc]  # this year's slices
+        ref.year(*acc)
+    return (time.perf_counter() - start) / years
+
+
+BANDWIDTH_CELLS = 2**24
+"""At least this many float64 per array in the bandwidth probe (128 MiB, far beyond the caches)."""
+
+
+@pjit
+def triad(a, b, c, s):
+    for i in prange(a.size):
+        a[i] = b[i] + s * c[i]
+
+
+def bandwidth(cells: int) -> dict:
+    """Streaming triad and numpy copy over arrays of ``cells`` float64, bytes per second."""
+    a, b, c = np.zeros(cells), np.ones(cells), np.full(cells, 2.0)
+    t_triad = best_time(lambda: triad(a, b, c, 3.0), repeat=5)
+    t_copy = best_time(lambda: np.copyto(a, b), repeat=5)
+    return {"cells": cells, "triad_bytes_per_s": 24 * cells / t_triad,
+            "copy_bytes_per_s": 16 * cells / t_copy}
+
+
+def local_step(size: int, bw: dict) -> dict:
+    rng = np.random.default_rng(1)
+    k = rng.uniform(0.0, 50.0, (size, size))
+    n = k * 0.5
+    env = np.zeros_like(n)
+    out, births, deaths = np.empty_like(n), np.empty_like(n), np.empty_like(n)
+    code = MODELS["beverton-holt"]
+    t = best_time(lambda: step_deterministic(n, k, env, out, births, deaths, code, 0.4, 0.6,
+                                             1.0, 0.0), repeat=5)
+    cells = size * size
+    bound = 48 * cells / bw["triad_bytes_per_s"]
+    return {"size": size, "seconds": t, "cell_years_per_s": cells / t,
+            "bytes_per_s_at_48_per_cell": 48 * cells / t, "bandwidth_bound_s": bound,
+            "fraction_of_bound": bound / t}
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--sizes", default="512,2048,4096")
+    ap.add_argument("--threads", default="1,2", help="numba thread counts, comma-separated")
+    ap.add_argument("--quick", action="store_true", help="512 and 1024 only, fewer years")
+    args = ap.parse_args()
+    sizes = [512, 1024] if args.quick else [int(s) for s in args.sizes.split(",")]
+    threads = [int(t) for t in args.threads.split(",")]
+    rows = []
+    print(f"{'grid':>6} {'mode':>13} {'threads':>7} {'gridpop cell-yr/s':>18} "
+          f"{'numpy cell-yr/s':>16} {'ratio':>6}")
+    with tempfile.TemporaryDirectory() as tmp:
+        for size in sizes:
+            years = 2 if args.quick else max(2, int(8 * (512 / size) ** 2))
+            cells = size * size
+            for stochastic in (False, True):
+                folder = Path(tmp) / f"{size}_{stochastic}"
+                path = write_scenario(folder, size, years=years + 2, stochastic=stochastic,
+                                      capacity=10.0)
+                s = load_scenario(path)
+                model = engine.build_model(s, build_landscape(s, stochastic=stochastic))
+                t_r = reference_cycle(model, stochastic, years)
+                mode = "stochastic" if stochastic else "deterministic"
+                for nt in threads:
+                    numba.set_num_threads(nt)
+                    t_g, phases = gridpop_cycle(model, folder / f"batch{nt}", years)
+                    rows.append({"size": size, "stochastic": stochastic, "threads": nt,
+                                 "years_timed": years,
+                                 "habitat_cells": int((model.capacity > 0).sum()),
+                                 "patches": model.n_patches, "kernel_radius": model.kernel.radius,
+                                 "gridpop_s_per_year": t_g, "reference_s_per_year": t_r,
+                                 "gridpop_cell_years_per_s": cells / t_g,
+                                 "reference_cell_years_per_s": cells / t_r,
+                                 "speedup": t_r / t_g, "gridpop_phases_s_per_year": phases})
+                    print(f"{size:>6} {mode:>13} {nt:>7} {cells / t_g:>18.3g} "
+                          f"{cells / t_r:>16.3g} {t_r / t_g:>6.2f}   "
+                          + ", ".join(f"{k} {v * 1e3:.0f} ms" for k, v in phases.items()))
+                del model
+    bw, steps = [], []
+    for nt in threads:
+        numba.set_num_threads(nt)
+        b = {"threads": nt, **bandwidth(max(BANDWIDTH_CELLS, max(sizes) ** 2))}
+        bw.append(b)
+        print(f"{nt} threads: triad {b['triad_bytes_per_s'] / 1e9:.2f} GB/s, copy "
+              f"{b['copy_bytes_per_s'] / 1e9:.2f} GB/s over {b['cells']} cells")
+        for size in sizes:
+            st = {"threads": nt, **local_step(size, b)}
+            steps.append(st)
+            print(f"  local step {size}^2: {st['seconds'] * 1e3:.1f} ms, "
+                  f"{st['bytes_per_s_at_48_per_cell'] / 1e9:.2f} GB/s, "
+                  f"{st['fraction_of_bound']:.2f} of the triad bound")
+    write_result("bench_cycle", {"cycle": rows, "bandwidth": bw, "local_step": steps,
+                                 "sigma_cells": SIGMA_CELLS}, args.quick)
+
+
+if __name__ == "__main__":
+    main()
