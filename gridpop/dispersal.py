@@ -545,11 +545,54 @@ def disperse_deterministic(dispersers, kernel: Kernel, edge: str, *, method: str
     return _spread(d, kernel, code, method), d * _stay_fraction(kernel, d.shape, code)
 
 
-def patch_retention_deterministic(dispersers, labels, settle, kernel: Kernel, edge: str,
-                                  n_patches: int, *, method: str = "auto") -> np.ndarray:
-    """Expected dispersers that land back in their own patch, in a cell where they may settle.
+@dataclass(frozen=True, eq=False)
+class SettleFields:
+    """Per source cell, the share of its dispersers that lands in a settle cell anywhere
+    (``anywhere``) and in a settle cell of its own patch (``own``); see :func:`settle_fields`."""
 
-    Per patch, only the patch's bounding box expanded by the kernel radius is convolved.
+    settle: np.ndarray
+    anywhere: np.ndarray
+    own: np.ndarray
+
+
+def settle_fields(labels, settle, kernel: Kernel, edge: str, *,
+                  method: str = "auto") -> SettleFields:
+    """Shares of each cell's dispersers that can settle, anywhere and in their own patch.
+
+    The landing operator is symmetric (a symmetric kernel, and the mirror fold of a reflecting
+    edge), so the share of cell c's dispersers landing in a set S equals the spread of S's
+    indicator evaluated at c. The fields depend only on where dispersers may settle, so they
+    are computed once and reused while that does not change. Per patch, only the patch's
+    bounding box expanded by the kernel radius is convolved.
+    """
+    _check_method(method)
+    labels = np.asarray(labels)
+    settle = np.asarray(settle, dtype=bool)
+    code = _edge_code(edge)
+    ny, nx = settle.shape
+    anywhere = _spread(settle.astype(np.float64), kernel, code, method)
+    own = np.zeros((ny, nx))
+    n_patches = int(labels.max()) if labels.size else 0
+    for p, box in enumerate(ndimage.find_objects(labels, max_label=n_patches), start=1):
+        if box is None:
+            continue
+        y0, y1 = max(0, box[0].start - kernel.ry), min(ny, box[0].stop + kernel.ry)
+        x0, x1 = max(0, box[1].start - kernel.rx), min(nx, box[1].stop + kernel.rx)
+        mine = labels[y0:y1, x0:x1] == p
+        target = (mine & settle[y0:y1, x0:x1]).astype(np.float64)
+        if not target.any():
+            continue
+        # Sides of the box inside the grid lie a kernel radius beyond the patch: the mirror
+        # padding there reflects only zeros.
+        gathered = _spread(target, kernel, code, method)
+        own[y0:y1, x0:x1][mine] = gathered[mine]
+    return SettleFields(settle.copy(), anywhere, own)
+
+
+def patch_retention_deterministic(dispersers, labels, settle, kernel: Kernel, edge: str,
+                                  n_patches: int, *, method: str = "auto",
+                                  fields: SettleFields | None = None):
+    """Expected dispersers that settle back in their own patch, and that settle anywhere.
 
     Parameters
     ----------
@@ -561,6 +604,8 @@ def patch_retention_deterministic(dispersers, labels, settle, kernel: Kernel, ed
     kernel, edge, method
         As in :func:`disperse_deterministic`.
     n_patches : int
+    fields : SettleFields, optional
+        :func:`settle_fields` of the same labels, settle, kernel and edge, to reuse.
 
     Returns
     -------
@@ -570,30 +615,16 @@ def patch_retention_deterministic(dispersers, labels, settle, kernel: Kernel, ed
     settled_from : (n_patches + 1,) ndarray of float64
         Dispersers from cells of patch p landing in any settle cell.
     """
-    _check_method(method)
     d = _as_field(dispersers, "dispersers")
     labels = np.asarray(labels)
-    settle = np.asarray(settle, dtype=bool)
-    code = _edge_code(edge)
-    ny, nx = d.shape
-    out = np.zeros(n_patches + 1)
-    settled_from = np.zeros(n_patches + 1)
-    for p, box in enumerate(ndimage.find_objects(labels, max_label=n_patches), start=1):
-        if box is None:
-            continue
-        y0, y1 = max(0, box[0].start - kernel.ry), min(ny, box[0].stop + kernel.ry)
-        x0, x1 = max(0, box[1].start - kernel.rx), min(nx, box[1].stop + kernel.rx)
-        mine = labels[y0:y1, x0:x1] == p
-        src = np.where(mine, d[y0:y1, x0:x1], 0.0)
-        if not src.any():
-            continue
-        # Sides of the box inside the grid lie a kernel radius beyond the patch: nothing from
-        # the patch gets past them, and the mirror padding there reflects only zeros.
-        arrived = _spread(src, kernel, code, method)
-        ok = settle[y0:y1, x0:x1]
-        out[p] = arrived[mine & ok].sum()
-        settled_from[p] = arrived[ok].sum()
-    return out, settled_from
+    if fields is None:
+        fields = settle_fields(labels, settle, kernel, edge, method=method)
+    flat = labels.ravel()
+    retained = np.bincount(flat, weights=(d * fields.own).ravel(), minlength=n_patches + 1)
+    settled_from = np.bincount(flat, weights=(d * fields.anywhere).ravel(),
+                               minlength=n_patches + 1)
+    retained[0] = settled_from[0] = 0.0
+    return retained, settled_from
 
 
 # --------------------------------------------------------------------------------------------

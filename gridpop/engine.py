@@ -56,6 +56,7 @@ from .dispersal import (
     leaving_stochastic,
     make_kernel,
     patch_retention_deterministic,
+    settle_fields,
     thin,
 )
 from .disturbance import Regime, build_regime
@@ -120,6 +121,8 @@ class Model:
     actions: Actions
     regime: Regime | None
     targets: TargetCensus | None = None  # target areas counted at each census (gridpop.summary)
+    # derived arrays reused from year to year (e.g. dispersal.SettleFields)
+    cache: dict = dataclasses.field(default_factory=dict, compare=False, repr=False)
 
     @property
     def accumulators(self) -> dict:
@@ -438,8 +441,11 @@ def _kernel_step(m: Model, leaving, settle, replicate, year):
         return disperse_stochastic(leaving, settle, m.labels, m.n_patches, m.kernel, m.edge,
                                    _key(m, replicate, year, rng.STREAM_DISPERSAL))
     arrivals, stayed = disperse_deterministic(leaving, m.kernel, m.edge)
+    fields = m.cache.get("settle_fields")
+    if fields is None or not np.array_equal(fields.settle, settle):
+        fields = m.cache["settle_fields"] = settle_fields(m.labels, settle, m.kernel, m.edge)
     retained, settled_from = patch_retention_deterministic(leaving, m.labels, settle, m.kernel,
-                                                           m.edge, m.n_patches)
+                                                           m.edge, m.n_patches, fields=fields)
     return arrivals, stayed, retained, settled_from
 
 
