@@ -986,6 +986,16 @@ def describe(scenario, model: Model) -> list[str]:
         lines.append(f"dispersal: {d.fraction:g} of individuals per year, {d.kernel} kernel, "
                      f"mean distance {d.mean_distance_m:g} m, radius {model.kernel.radius} "
                      f"cells, {d.edge} edge")
+    elif model.walk is not None:
+        d, w = scenario.dispersal, model.walk
+        source = f"resistance {d.resistance.name}" if d.resistance is not None else (
+            f"resistance from suitability (max {d.resistance_max:g}, shape "
+            f"{d.resistance_shape:g})")
+        blocked = int((w.permeability == 0).sum())
+        lines.append(f"dispersal: {d.fraction:g} of individuals per year walk over the "
+                     f"landscape, {source}; up to {d.max_steps} steps, step mortality "
+                     f"{d.step_mortality:g} per unit resistance, persistence {d.persistence:g}; "
+                     f"{blocked} cells impassable")
     else:
         lines.append("dispersal: none (fraction = 0)")
     lines += [f"action {note}" for note in model.actions.notes]

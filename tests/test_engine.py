@@ -229,6 +229,12 @@ def test_walk_method_ledger_flow_and_connectivity(make_scenario, tmp_path, stoch
     """Walk dispersal in the yearly cycle: the BIDE ledger stays exact (common practice), the
     flow stack and the patch connectivity table are written, rows of probabilities <= 1."""
     text = scenario_text(stochastic).split("[dispersal]")[0] + WALK
+    from gridpop.engine import build_model, describe
+    from gridpop.landscape import build_landscape
+
+    scen = gridpop.load_scenario(make_scenario(text, "walk.toml"))
+    lines = describe(scen, build_model(scen, build_landscape(scen, stochastic=stochastic)))
+    assert any("walk over the landscape" in line and "up to 40 steps" in line for line in lines)
     out = tmp_path / "r"
     gridpop.run(make_scenario(text), out)
     land = read_ledger(out / "timeseries.csv")
