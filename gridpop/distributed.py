@@ -54,11 +54,14 @@ def cluster_client(*, workers: int | None = None, scheduler: str | None = None):
     if scheduler is not None:
         try:
             client = Client(scheduler, timeout=CONNECT_TIMEOUT_S)
-        except (OSError, ValueError, TypeError) as exc:
+        except (ValueError, TypeError) as exc:
+            raise RunStateError(f"--scheduler {scheduler}: not a scheduler address ({exc}); "
+                                "expected tcp://HOST:PORT.") from None
+        except OSError as exc:
             raise RunStateError(
                 f"--scheduler {scheduler}: cannot reach a Dask scheduler there within "
-                f"{CONNECT_TIMEOUT_S:g} s ({type(exc).__name__}: {exc}). Check the address "
-                "(tcp://HOST:PORT) and that the scheduler is running.") from None
+                f"{CONNECT_TIMEOUT_S:g} s ({exc}). Check the address and that the scheduler "
+                "is running.") from None
         try:
             yield client
         finally:

@@ -156,7 +156,7 @@ def test_unreachable_scheduler_clear_error_in_bounded_time(make_scenario, tmp_pa
     assert not out.exists()
 
 
-def test_workers_and_scheduler_together_refused(make_scenario, tmp_path, capsys):
+def test_bad_execution_options_refused(make_scenario, tmp_path, capsys):
     scen = make_scenario(scenario_text())
     assert main(["run", str(scen), "--out", str(tmp_path / "r"), "--workers", "2",
                  "--scheduler", "tcp://127.0.0.1:8786", "--quiet"]) == 2
@@ -164,3 +164,7 @@ def test_workers_and_scheduler_together_refused(make_scenario, tmp_path, capsys)
     assert main(["run", str(scen), "--out", str(tmp_path / "r"), "--workers", "0",
                  "--quiet"]) == 2
     assert "--workers 0" in capsys.readouterr().err
+    assert main(["run", str(scen), "--out", str(tmp_path / "r"), "--scheduler", "foo",
+                 "--quiet"]) == 2
+    assert "not a scheduler address" in capsys.readouterr().err
+    assert not (tmp_path / "r").exists() and not (tmp_path / ".r.partial").exists()
