@@ -64,7 +64,8 @@ def cmd_compare(args) -> int:
     scenarios = [_scenario_with_overrides(args, path) for path in args.scenarios]
     show = not args.quiet and sys.stderr.isatty()
     out = compare(scenarios, args.out, overwrite=args.overwrite, progress=show,
-                  plots=not args.no_plots)
+                  plots=not args.no_plots, workers=args.workers, scheduler=args.scheduler,
+                  force=args.force)
     if not args.quiet:
         print(table(json.loads((out / "comparison.json").read_text())))
         print(f"results written to {out}")
@@ -97,14 +98,15 @@ def _add_run_overrides(p):
     p.add_argument("--seed", type=int, help="override [run] seed")
 
 
-def _add_execution_options(p):
+def _add_execution_options(p, *, resume: bool = True):
     p.add_argument("--workers", type=int, metavar="N", help="run batches of replicates on a "
                    "local Dask cluster of N worker processes (default: in this process)")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run batches on the Dask cluster at "
                    "ADDRESS (tcp://host:8786); the output folder must be on a filesystem "
                    "its workers share")
-    p.add_argument("--resume", action="store_true", help="continue an interrupted run of "
-                   "the same scenario into the same --out, keeping its finished batches")
+    if resume:
+        p.add_argument("--resume", action="store_true", help="continue an interrupted run of "
+                       "the same scenario into the same --out, keeping its finished batches")
     p.add_argument("--force", action="store_true", help="start even if the estimated "
                    "memory or disk need exceeds what is free")
 
@@ -141,6 +143,7 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
     p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
     p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
+    _add_execution_options(p, resume=False)
     p.set_defaults(func=cmd_compare)
 
     p = sub.add_parser("report", help="write a self-contained HTML report of a run or "

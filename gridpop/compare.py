@@ -216,7 +216,8 @@ def _csv_value(v) -> str:
 
 
 def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool = False,
-            plots: bool = False) -> Path:
+            plots: bool = False, workers: int | None = None, scheduler: str | None = None,
+            force: bool = False) -> Path:
     """Run plans with common random numbers and compare them with the first.
 
     Parameters
@@ -234,6 +235,9 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
     plots : bool
         Write the plots of each run and of the comparison (:mod:`gridpop.plots`) once the folder
         is complete.
+    workers, scheduler, force
+        How each plan's run is carried out (:func:`gridpop.engine.run`): on a local Dask cluster
+        of ``workers`` processes, on the cluster at ``scheduler``, or despite the room check.
 
     Returns
     -------
@@ -259,7 +263,8 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
     rows, outcomes, details, targets = [], [], {}, []
     summaries = []
     for s in plans:
-        run(s, work / s.path.stem, progress=progress)
+        run(s, work / s.path.stem, progress=progress, workers=workers, scheduler=scheduler,
+            force=force)
         summary = json.loads((work / s.path.stem / "summary.json").read_text())
         summaries.append(summary)
         targets += [t for t in summary["colonisation"] if t not in targets]

@@ -168,3 +168,20 @@ def test_bad_execution_options_refused(make_scenario, tmp_path, capsys):
                  "--quiet"]) == 2
     assert "not a scheduler address" in capsys.readouterr().err
     assert not (tmp_path / "r").exists() and not (tmp_path / ".r.partial").exists()
+
+
+def test_compare_on_cluster_same_as_in_process(make_scenario, tmp_path, cluster):
+    """``gridpop compare --scheduler``: each plan's run goes to the cluster; the comparison files
+    are the same as in-process (same reasoning as above: Salmon et al. 2011, Proc. SC'11)."""
+    base = make_scenario(scenario_text(), "base.toml")
+    plan = make_scenario(scenario_text().replace("mortality = 0.6", "mortality = 0.3"),
+                         "plan.toml")
+    args = ["compare", str(base), str(plan), "--quiet", "--no-plots"]
+    assert main(args + ["--out", str(tmp_path / "local")]) == 0
+    assert main(args + ["--out", str(tmp_path / "dask"), "--scheduler",
+                        cluster[0].scheduler_address]) == 0
+    for name in ("comparison.csv", "comparison.json", "occupancy_difference_plan.tif"):
+        assert ((tmp_path / "local" / name).read_bytes()
+                == (tmp_path / "dask" / name).read_bytes()), name
+    for stem in ("base", "plan"):
+        assert_same_outputs(tmp_path / "local" / stem, tmp_path / "dask" / stem)
