@@ -537,6 +537,7 @@ def run_checkpointed_batch(model: Model, b: int, reps: range, work, progress=Non
     """
     final = batch_folder(work, b)
     tmp = final.with_name(f"{final.name}.{uuid.uuid4().hex[:12]}.tmp")
+    _ensure_space(final.parent, batch_bytes(model), f"batch {b}")
     run_batch(model, reps, tmp, progress)
     try:
         os.rename(tmp, final)
@@ -644,6 +645,7 @@ class Footprint:
     batch: int  # on top of base, while a process runs a batch
     combine: int  # on top of base, while the batches are combined and the results written
     output: int  # the published results, GeoTIFF stacks counted uncompressed (an upper bound)
+    results: int  # disk to combine the batches: the totals and the results
     work: int  # peak disk use of the working folder (batches, totals and results together)
 
     def memory(self, *, workers: int | None = None, scheduler: str | None = None) -> int:
@@ -678,13 +680,30 @@ def footprint(scenario, model: Model) -> Footprint:
     patch_rows = model.replicates * years * model.n_patches if scenario.output.patches_csv else 0
     output = (n_stacks * years * cells * 4
               + (model.replicates * years + patch_rows) * CSV_ROW_BYTES)
-    n_batches = len(batches(model))
-    work = (n_batches + 1) * years * cells * per_cell + model.replicates * rows * ledger_row
+    results = years * cells * per_cell + output  # the combined totals beside the results
     return Footprint(
         base=BASE_BYTES + cells * MODEL_BYTES_PER_CELL,
         batch=cells * REPLICATE_BYTES_PER_CELL + fft + model.batch_size * rows * ledger_row,
         combine=model.replicates * rows * ledger_row + cells * 16,
-        output=output, work=work + output)
+        output=output, results=results,
+        work=len(batches(model)) * batch_bytes(model) + results)
+
+
+def batch_bytes(model: Model) -> int:
+    """Disk taken by one batch folder: its per-year accumulators and its ledger, bytes."""
+    ny, nx = model.capacity.shape
+    years = model.years + 1
+    per_cell = sum(np.dtype(dt).itemsize for dt in model.accumulators.values())
+    return years * (ny * nx * per_cell + model.batch_size * (model.n_patches + 1) * N_FIELDS * 8)
+
+
+def _ensure_space(folder: Path, need: int, what: str) -> None:
+    """Raise ``OSError(ENOSPC)`` before writing ``need`` bytes into ``folder`` if they do not
+    fit: memory-mapped files on a full disk would end the process with SIGBUS instead."""
+    free = shutil.disk_usage(folder).free
+    if free < need:
+        raise OSError(errno.ENOSPC, f"{what} needs {size_text(need)} but {size_text(free)} is "
+                      "free", str(folder))
 
 
 def free_room(path) -> tuple[int, int]:
@@ -719,7 +738,7 @@ def check_room(fp: Footprint, work: Path, *, workers=None, scheduler=None,
     """
     memory, disk = free_room(work)
     need_mem = fp.memory(workers=workers, scheduler=scheduler)
-    need_disk = int(fp.work * (1.0 - finished) + fp.output * finished)
+    need_disk = int(fp.results + (fp.work - fp.results) * (1.0 - finished))
     short = []
     if need_mem > memory:
         short.append(f"about {size_text(need_mem)} of memory but {size_text(memory)} is "
@@ -801,8 +820,9 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
     resuming = _may_continue(work, _run_identity(scenario, model), resume=resume,
                              overwrite=overwrite)
     finished = _finished(work, len(plan)) if resuming else set()
+    fp = footprint(scenario, model)
     if not force:
-        check_room(footprint(scenario, model), work, workers=workers, scheduler=scheduler,
+        check_room(fp, work, workers=workers, scheduler=scheduler,
                    finished=len(finished) / len(plan))
     if local:
         cluster = contextlib.nullcontext()
@@ -827,6 +847,7 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
                 elif todo:
                     run_batches(client, model, todo, work, bar)
     with _resumable_if_disk_full(work, len(plan)):
+        _ensure_space(work, fp.results, "combining the batches and writing the results")
         files = write_results(work, scenario, model, [batch_folder(work, b)
                                                       for b in range(len(plan))])
         grid = model.landscape.grid
@@ -871,6 +892,7 @@ def _resumable_if_disk_full(work: Path, n_batches: int):
             f"{work}: no space left on the device ({exc.strerror or exc}); {done} of "
             f"{n_batches} batches are finished and kept. Free some space, then run the same "
             "command again with --resume.") from None
+
 
 STACKS = {
     # output raster name: (accumulator, what the band holds)

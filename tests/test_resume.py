@@ -238,3 +238,30 @@ def test_estimated_output_bounds_what_is_written(make_scenario, tmp_path, capsys
     text = capsys.readouterr().out
     assert "estimated peak memory:" in text and "estimated output:" in text
     assert "free now:" in text
+
+
+def test_space_checked_before_each_batch(make_scenario, tmp_path, monkeypatch, capsys):
+    """With --force past the estimate, a disk that fills up after the first batch stops the run
+    before the second batch maps its files (memory-mapped writes on a full disk end the process
+    with SIGBUS, POSIX mmap(2)), with a clear message, and the run resumes."""
+    import shutil
+
+    scen = make_scenario(scenario_text())
+    out, work = tmp_path / "r", tmp_path / ".r.partial"
+    real = shutil.disk_usage
+    calls = []
+
+    def filling(path):
+        calls.append(path)
+        usage = real(path)
+        return usage._replace(free=usage.free if len(calls) == 1 else 500)
+
+    with monkeypatch.context() as m:
+        m.setattr(shutil, "disk_usage", filling)
+        assert run_cli("run", scen, "--out", out, "--force") == 2
+    err = capsys.readouterr().err
+    assert "batch 1 needs" in err and "500 B is free" in err and "--resume" in err
+    assert finished(work) == 1 and not out.exists()
+    assert run_cli("run", scen, "--out", out, "--resume") == 0
+    gridpop.run(scen, tmp_path / "whole")
+    assert_same_outputs(tmp_path / "whole", out)
