@@ -73,7 +73,9 @@ def cluster_client(*, workers: int | None = None, scheduler: str | None = None):
                                env=WORKER_ENV)
     except (OSError, RuntimeError) as exc:
         raise RunStateError(f"--workers {workers}: the local Dask cluster did not start "
-                            f"({type(exc).__name__}: {exc}).") from None
+                            f"({type(exc).__name__}: {exc}). From a Python script, call "
+                            "gridpop.run under `if __name__ == \"__main__\":`: the worker "
+                            "processes import the main module.") from None
     try:
         with Client(cluster) as client:
             yield client
