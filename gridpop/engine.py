@@ -82,7 +82,7 @@ from .resistance import (
     resistance_from_suitability,
 )
 from .scenario import OUTPUT_RASTERS
-from .summary import TargetCensus, target_census, write_summary
+from .summary import TargetCensus, parameters, target_census, write_summary
 
 N_FIELDS = len(LEDGER_FIELDS)
 F_ABUND, F_BIRTHS, F_DEATHS, F_DIST, F_EMIG, F_IMMIG, F_LOSS, F_OCC = range(N_FIELDS)
@@ -569,7 +569,7 @@ def _discard_unfinished(work: Path, keep: set[int]) -> None:
 
 def _run_identity(scenario, model: Model) -> dict:
     return {"gridpop_version": __version__, "scenario": str(scenario.path),
-            "scenario_sha256": scenario.sha256, "parameters": scenario_summary(scenario),
+            "scenario_sha256": scenario.sha256, "parameters": parameters(scenario),
             "batches": len(batches(model))}
 
 
@@ -605,10 +605,12 @@ def _may_continue(work: Path, identity: dict, *, resume: bool, overwrite: bool) 
             f"{identity['scenario_sha256'][:12]}... now); --resume continues only the same "
             "scenario. Restore the file, or run without --resume and with --overwrite to start "
             "over.")
-    changed = [f"[{sec}] {key} = {old!r} then, {identity['parameters'][sec].get(key)!r} now"
-               for sec, values in saved.get("parameters", {}).items()
-               for key, old in values.items()
-               if identity["parameters"].get(sec, {}).get(key) != old]
+    now, then = identity["parameters"], saved.get("parameters", {})
+    changed = [f"[{sec}] {key} = {old!r} then, {now[sec].get(key)!r} now"
+               for sec, values in then.items() if isinstance(values, dict)
+               for key, old in values.items() if now.get(sec, {}).get(key) != old]
+    changed += [f"the [[{sec}]] tables" for sec, values in then.items()
+                if isinstance(values, list) and now.get(sec) != values]
     if saved.get("gridpop_version") != identity["gridpop_version"]:
         changed.append(f"gridpop {saved.get('gridpop_version')} then, "
                        f"{identity['gridpop_version']} now")
@@ -1025,12 +1027,3 @@ def describe(scenario, model: Model) -> list[str]:
         lines += [f"disturbance {note}" for note in model.regime.notes]
     lines.append(f"run: {model.years} years x {model.replicates} replicates, seed {model.seed}")
     return lines
-
-
-def scenario_summary(scenario) -> dict:
-    """The parameters as read, for manifests and reports."""
-    out = {}
-    for name in ("run", "grid", "habitat", "initial", "growth", "dispersal", "output"):
-        out[name] = {k: (str(v) if isinstance(v, Path) else v)
-                     for k, v in dataclasses.asdict(getattr(scenario, name)).items()}
-    return json.loads(json.dumps(out, default=str))
