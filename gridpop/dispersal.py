@@ -619,12 +619,25 @@ def patch_retention_deterministic(dispersers, labels, settle, kernel: Kernel, ed
     labels = np.asarray(labels)
     if fields is None:
         fields = settle_fields(labels, settle, kernel, edge, method=method)
-    flat = labels.ravel()
-    retained = np.bincount(flat, weights=(d * fields.own).ravel(), minlength=n_patches + 1)
-    settled_from = np.bincount(flat, weights=(d * fields.anywhere).ravel(),
-                               minlength=n_patches + 1)
-    retained[0] = settled_from[0] = 0.0
+    retained = np.zeros(n_patches + 1)
+    settled_from = np.zeros(n_patches + 1)
+    _weighted_patch_sums(np.ascontiguousarray(labels, dtype=np.int32), d, fields.own,
+                         fields.anywhere, retained, settled_from)
     return retained, settled_from
+
+
+@njit
+def _weighted_patch_sums(labels, d, w1, w2, out1, out2):
+    """out1[p] += sum of d * w1 and out2[p] += sum of d * w2 over the cells of patch p > 0, in
+    row-major order (one pass, the same order for any thread count)."""
+    ny, nx = d.shape
+    for i in range(ny):
+        for j in range(nx):
+            p = labels[i, j]
+            v = d[i, j]
+            if p > 0 and v != 0.0:
+                out1[p] += v * w1[i, j]
+                out2[p] += v * w2[i, j]
 
 
 # --------------------------------------------------------------------------------------------
