@@ -142,7 +142,8 @@ class Model:
             return None
         w = self.walk
         return patch_connectivity(self.labels, self.n_patches, w.permeability,
-                                  w.quality(self.capacity), w.params, weights=self.capacity)
+                                  w.quality(self.capacity), w.params, weights=self.capacity,
+                                  entry_survival=w.entry_survival)
 
     @property
     def disturbance_kinds(self) -> list[str]:
@@ -917,8 +918,8 @@ def stacks_written(scenario, model: Model) -> dict[str, str]:
 def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
     """connectivity.csv (patch-to-patch settlement probabilities of the walk, from the expected
     walk on the year-0 landscape, start cells weighted by capacity) and connectivity.json (the
-    same matrix and, per corridor action, its share of the walkers' visits to cells outside
-    habitat over the whole run)."""
+    same matrix and, per corridor action, its share of all the walkers' visits over the whole
+    run)."""
     conn = model.connectivity
     with open(work / "connectivity.csv", "w", newline="") as fh:
         out = csv.writer(fh)
@@ -929,15 +930,13 @@ def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
     total = np.zeros(model.capacity.shape)
     for t in range(1, model.years + 1):
         total += visits[t]
-    matrix = model.capacity <= 0
-    outside = float(total[matrix].sum())
+    everywhere = float(total.sum())
     shares = {}
     for cfg, cells in zip(scenario.extra.get("action", ()), model.actions.areas, strict=True):
         if cfg.kind == "corridor":
-            inside = float(total[cells & matrix].sum())
-            shares[cfg.label] = inside / outside if outside > 0 else None
+            shares[cfg.label] = float(total[cells].sum()) / everywhere if everywhere else None
     write_json(work / "connectivity.json", {
-        "matrix": conn, "corridor_share_of_matrix_visits": shares,
+        "matrix": conn, "corridor_share_of_visits": shares,
         "note": "matrix[i][j]: probability that a disperser leaving patch i+1 settles in patch "
                 "j+1 in one year (expected walk, year-0 landscape)."})
     return ["connectivity.csv", "connectivity.json"]

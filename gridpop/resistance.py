@@ -600,7 +600,7 @@ def disperse_walk_stochastic(dispersers, permeability, quality, labels, n_patche
 
 
 def patch_connectivity(labels, n_patches: int, permeability, quality, params: WalkParams,
-                       weights=None) -> np.ndarray:
+                       weights=None, *, entry_survival=None) -> np.ndarray:
     """Probability that a disperser leaving patch i settles in patch j, by the expected walk.
 
     Parameters
@@ -613,6 +613,8 @@ def patch_connectivity(labels, n_patches: int, permeability, quality, params: Wa
     weights : (ny, nx) ndarray, optional
         Where in its patch a disperser starts: proportional to ``weights`` (e.g. capacity K);
         default uniform over the patch's cells.
+    entry_survival : (ny, nx) ndarray, optional
+        As in :func:`disperse_walk_deterministic` (barriers crossed with a mortality).
 
     Returns
     -------
@@ -626,7 +628,7 @@ def patch_connectivity(labels, n_patches: int, permeability, quality, params: Wa
     Each patch's walk is computed on its bounding box widened by ``max_steps + 1`` cells, the
     farthest a walker can reach, so the result is the same as on the full grid.
     """
-    surf = _surfaces(permeability, quality, params)
+    surf = _surfaces(permeability, quality, params, entry_survival)
     shape = surf.perm.shape
     lab = _check_labels(labels, n_patches, shape)
     w = np.ones(shape) if weights is None else np.asarray(weights, dtype=np.float64)

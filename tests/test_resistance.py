@@ -530,3 +530,26 @@ def test_entry_survival_thins_walkers_crossing_a_line():
     # a walker reaching cell 5 within 5 steps on a 1-D strip from cell 0 went straight: it
     # entered cell 3 exactly once
     assert thinned.arrivals[0, 5] == pytest.approx(0.5 * open_.arrivals[0, 5], rel=1e-12)
+
+
+def test_connectivity_counts_barrier_crossing_mortality():
+    """patch_connectivity with entry survival equals the expected walk of a patch's dispersers
+    with the same entry survival (the definition of the table), and a lossy crossing lowers it."""
+    n = 21
+    perm = np.ones((n, n))
+    q = np.zeros((n, n))
+    labels = np.zeros((n, n), np.int32)
+    labels[8:13, 1:5] = 1
+    labels[8:13, 16:20] = 2
+    q[labels > 0] = 0.5
+    surv = np.ones((n, n))
+    surv[:, 10] = 0.3
+    params = WalkParams(max_steps=80)
+    free = patch_connectivity(labels, 2, perm, q, params)
+    lossy = patch_connectivity(labels, 2, perm, q, params, entry_survival=surv)
+    start = np.where(labels == 1, 1.0, 0.0)
+    walk = disperse_walk_deterministic(start / start.sum(), perm, q, labels, 2, params,
+                                       entry_survival=surv)
+    assert lossy[0, 1] == pytest.approx(walk.arrivals[labels == 2].sum(), rel=1e-9)
+    assert 0 < lossy[0, 1] < free[0, 1]
+    assert lossy[0, 0] <= free[0, 0]
