@@ -77,6 +77,7 @@ from .outputs import (
 from .resistance import (
     Walk,
     WalkParams,
+    corridor_share,
     patch_connectivity,
     permeability_from_resistance,
     resistance_from_suitability,
@@ -915,11 +916,26 @@ def stacks_written(scenario, model: Model) -> dict[str, str]:
             and (name in scenario.output.rasters or name not in OUTPUT_RASTERS)}
 
 
+def _blocks(model: Model) -> list[tuple[str, np.ndarray]]:
+    """The two areas a corridor joins: the first two [risk] targets, else patches 1 and 2."""
+    shape = model.capacity.shape
+    if model.targets is not None and len(model.targets.names) >= 2:
+        out = []
+        for name, idx in list(zip(model.targets.names, model.targets.cells, strict=True))[:2]:
+            mask = np.zeros(shape, bool)
+            mask.ravel()[idx] = True
+            out.append((name, mask))
+        return out
+    if model.n_patches >= 2:
+        return [(f"patch {p}", model.labels == p) for p in (1, 2)]
+    return []
+
+
 def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
     """connectivity.csv (patch-to-patch settlement probabilities of the walk, from the expected
     walk on the year-0 landscape, start cells weighted by capacity) and connectivity.json (the
-    same matrix and, per corridor action, its share of all the walkers' visits over the whole
-    run)."""
+    same matrix and, per corridor action, its share of the walkers' visits over the run and of
+    the one-year flow between patches 1 and 2, see :func:`resistance.corridor_share`)."""
     conn = model.connectivity
     with open(work / "connectivity.csv", "w", newline="") as fh:
         out = csv.writer(fh)
@@ -931,14 +947,28 @@ def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
     for t in range(1, model.years + 1):
         total += visits[t]
     everywhere = float(total.sum())
-    shares = {}
+    w = model.walk
+    corridors = {}
     for cfg, cells in zip(scenario.extra.get("action", ()), model.actions.areas, strict=True):
-        if cfg.kind == "corridor":
-            shares[cfg.label] = float(total[cells].sum()) / everywhere if everywhere else None
+        if cfg.kind != "corridor":
+            continue
+        entry = {"share_of_visits": float(total[cells].sum()) / everywhere if everywhere
+                 else None}
+        blocks = _blocks(model)
+        for (name_a, a), (name_b, b) in ((blocks[0], blocks[1]), (blocks[1], blocks[0])) \
+                if len(blocks) == 2 else ():
+            flow, share = corridor_share(a, b, cells, w.permeability, w.quality(model.capacity),
+                                         w.params, weights=model.capacity,
+                                         entry_survival=w.entry_survival)
+            entry[f"{name_a} -> {name_b}"] = {"flow": flow, "share_through_corridor": share}
+        corridors[cfg.label] = entry
     write_json(work / "connectivity.json", {
-        "matrix": conn, "corridor_share_of_visits": shares,
+        "matrix": conn, "corridors": corridors,
         "note": "matrix[i][j]: probability that a disperser leaving patch i+1 settles in patch "
-                "j+1 in one year (expected walk, year-0 landscape)."})
+                "j+1 in one year (expected walk, year-0 landscape). corridors: per corridor "
+                "action, its share of all walker visits over the run, and of the one-year flow "
+                "between the two blocks (the first two [risk] targets, else patches 1 and 2) "
+                "the part that passed through it."})
     return ["connectivity.csv", "connectivity.json"]
 
 

@@ -682,3 +682,39 @@ class Walk:
                                             entry_survival=self.entry_survival)
         return disperse_walk_deterministic(leaving, self.permeability, q, labels, n_patches,
                                            self.params, entry_survival=self.entry_survival)
+
+
+def corridor_share(source, target, cells, permeability, quality, params: WalkParams,
+                   weights=None, *, entry_survival=None):
+    """Share of the one-year flow from area ``source`` to area ``target`` (bool masks, e.g. two
+    habitat blocks) that passes through ``cells`` (a corridor), by the expected walk.
+
+    The flow is the expected number of walkers settling in ``target`` per walker leaving
+    ``source`` (start cells weighted by ``weights``, default uniform). Walkers that never enter
+    the corridor are those of the same walk with corridor cells made deadly on entry (killing a
+    walker on entry does not change where the others go), so the share is
+    ``1 - flow_without / flow``. Corridor cells inside the two areas are left out.
+
+    Returns
+    -------
+    flow : float
+    share : float or None
+        None when nothing flows from ``source`` to ``target``.
+    """
+    source = np.asarray(source, bool)
+    target = np.asarray(target, bool)
+    w = np.ones(source.shape) if weights is None else np.asarray(weights, dtype=np.float64)
+    start = np.where(source, w, 0.0)
+    if start.sum() <= 0:
+        return 0.0, None
+    start = start / start.sum()
+    base = np.ones(source.shape) if entry_survival is None else np.asarray(entry_survival, float)
+    corridor = np.asarray(cells, bool) & ~source & ~target
+    no_patches = np.zeros(source.shape, np.int32)
+    flows = []
+    for surv in (base, np.where(corridor, 0.0, base)):
+        res = disperse_walk_deterministic(start, permeability, quality, no_patches, 0, params,
+                                          entry_survival=surv)
+        flows.append(float(res.arrivals[target].sum()))
+    flow, without = flows
+    return flow, (1.0 - without / flow if flow > 0 else None)

@@ -553,3 +553,35 @@ def test_connectivity_counts_barrier_crossing_mortality():
     assert lossy[0, 1] == pytest.approx(walk.arrivals[labels == 2].sum(), rel=1e-9)
     assert 0 < lossy[0, 1] < free[0, 1]
     assert lossy[0, 0] <= free[0, 0]
+
+
+def test_corridor_share_of_the_flow_between_two_blocks():
+    """Two blocks joined by two routes, one marked as the corridor: when the other route is
+    closed everything flows through the corridor (share 1, exact), when the corridor is not on
+    any route the share is 0, and with both open the share lies strictly between (the walk's
+    linearity in its walkers, common practice)."""
+    from gridpop.resistance import corridor_share
+
+    ny, nx = 11, 21
+    labels = np.zeros((ny, nx), np.int32)
+    labels[3:8, 0:3] = 1
+    labels[3:8, 18:21] = 2
+    q = np.where(labels > 0, 1.0, 0.0)
+    perm = np.zeros((ny, nx))
+    perm[labels > 0] = 1.0
+    perm[2, :] = 1.0  # northern route
+    perm[8, :] = 1.0  # southern route
+    perm[2:9, 0:3] = perm[2:9, 18:21] = 1.0
+    corridor = np.zeros((ny, nx), bool)
+    corridor[2, 5:16] = True
+    params = WalkParams(max_steps=200)
+    flow, share = corridor_share(labels == 1, labels == 2, corridor, perm, q, params)
+    assert flow > 0 and 0.3 < share < 0.7
+    closed = perm.copy()
+    closed[8, 5:16] = 0.0
+    flow_c, share_c = corridor_share(labels == 1, labels == 2, corridor, closed, q, params)
+    assert flow_c > 0 and share_c == pytest.approx(1.0, abs=1e-12)
+    elsewhere = np.zeros((ny, nx), bool)
+    elsewhere[0, :] = True  # impassable cells: never visited
+    assert corridor_share(labels == 1, labels == 2, elsewhere, perm, q,
+                          params)[1] == pytest.approx(0.0)
