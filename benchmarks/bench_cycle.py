@@ -37,7 +37,7 @@ from gridpop.scenario import load_scenario
 
 PHASES = ("step_deterministic", "step_stochastic", "leaving_deterministic", "leaving_stochastic",
           "disperse_deterministic", "disperse_stochastic", "patch_retention_deterministic",
-          "_patch_sum", "_census")
+          "_settle", "_census")
 """Functions the engine calls in the yearly cycle, timed one by one."""
 
 

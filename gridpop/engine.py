@@ -262,18 +262,29 @@ def _add5(part, c, q, v, b, dd, xd, occ):
 
 
 @njit
-def _patch_sum(labels, n_patches, x):
-    out = np.zeros(n_patches + 1)
-    ny, nx = x.shape
+def _settle(labels, k, n, leaving, arrivals, stayed, out_p, in_p):
+    """Apply one year's movement in place: ``n <- n - leaving + arrivals`` where capacity
+    ``k > 0`` (arrivals elsewhere are lost). Adds the dispersers (``out_p``) and settlers
+    (``in_p``) of each patch (index 0: all cells) and returns the settled stayers, in one
+    row-major pass (the same order for any thread count)."""
+    ny, nx = n.shape
+    stay = 0.0
     for i in range(ny):
         for j in range(nx):
-            v = x[i, j]
-            if v != 0.0:
-                out[0] += v
-                p = labels[i, j]
-                if p > 0:
-                    out[p] += v
-    return out
+            lv = leaving[i, j]
+            a = arrivals[i, j] if k[i, j] > 0.0 else 0.0
+            if lv == 0.0 and a == 0.0:
+                continue
+            if k[i, j] > 0.0:
+                stay += stayed[i, j]
+            n[i, j] = (n[i, j] - lv) + a
+            out_p[0] += lv
+            in_p[0] += a
+            p = labels[i, j]
+            if p > 0:
+                out_p[p] += lv
+                in_p[p] += a
+    return stay
 
 
 class BatchSink:
@@ -423,12 +434,9 @@ def _disperse(model: Model, replicate: int, year: int, n: np.ndarray, k: np.ndar
     else:
         arrivals, stayed, retained, settled_from = _kernel_step_with_barriers(
             m, leaving, settle, replicate, year)
-    settled = np.where(settle, arrivals, 0.0)
-    n -= leaving
-    n += settled
-    out_p = _patch_sum(m.labels, m.n_patches, leaving)
-    in_p = _patch_sum(m.labels, m.n_patches, settled)
-    stay = float(np.where(settle, stayed, 0.0).sum())
+    out_p = np.zeros(m.n_patches + 1)
+    in_p = np.zeros(m.n_patches + 1)
+    stay = _settle(m.labels, k, n, leaving, arrivals, stayed, out_p, in_p)
     row[:, F_EMIG] = out_p - retained
     row[:, F_IMMIG] = in_p - retained
     row[:, F_LOSS] = out_p - settled_from
