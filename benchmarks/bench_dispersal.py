@@ -17,26 +17,16 @@ import argparse
 import json
 import os
 import platform
-import time
 from pathlib import Path
 
 import numba
 import numpy as np
+from _common import best_time
 
 from gridpop import dispersal, rng
 
 RADII = (1, 2, 3, 4, 5, 6, 8, 10, 12, 16, 24, 32, 40, 48, 56, 64, 80, 100)
 FULL_STENCIL_MAX_SECONDS = 5.0  # stop timing the full 2-D stencil beyond this
-
-
-def best_time(fn, repeat=5):
-    fn()  # compile / warm the caches
-    times = []
-    for _ in range(repeat):
-        t = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t)
-    return min(times)
 
 
 def kernel(kind, radius):

@@ -21,12 +21,12 @@ import json
 import math
 import os
 import platform
-import time
 from functools import partial
 from pathlib import Path
 
 import numba
 import numpy as np
+from _common import best_time
 from scipy import ndimage
 
 from gridpop import dispersal, rng
@@ -37,16 +37,6 @@ from gridpop.resistance import (
     permeability_from_resistance,
     resistance_from_suitability,
 )
-
-
-def best_time(fn, repeat=3):
-    fn()  # compile / warm the caches
-    times = []
-    for _ in range(repeat):
-        t = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t)
-    return min(times)
 
 
 def make_landscape(size):
