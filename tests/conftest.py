@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import csv
 import textwrap
 from pathlib import Path
 
@@ -64,3 +65,60 @@ def make_scenario(tmp_path):
         return path
 
     return _make
+
+
+SCENARIO = """
+[run]
+years = {years}
+replicates = {replicates}
+seed = {seed}
+batch_size = {batch}
+
+[habitat]
+suitability = "{{suitability}}"
+capacity_per_ha = 30.0
+response = "threshold"
+threshold = 0.3
+
+[initial]
+fraction_of_capacity = 0.6
+
+[growth]
+model = "ricker"
+rate = 0.6
+survival = 0.4
+stochastic = {stochastic}
+env_sd = 0.3
+env_correlation_m = 200.0
+env_autocorrelation = 0.5
+
+[dispersal]
+fraction = 0.3
+density_dependence = 1.0
+kernel = "exponential"
+mean_distance_m = 90.0
+edge = "absorbing"
+"""
+
+FIRE = """
+[[disturbance]]
+kind = "fire"
+return_interval_years = 4.0
+mortality = 0.6
+capacity_loss = 0.5
+recovery_years = 3.0
+"""
+
+
+def scenario_text(*, years=8, replicates=4, seed=3, batch=2, stochastic=True, fire=False):
+    """A scenario for :func:`make_scenario` on the conftest suitability raster: Ricker growth,
+    correlated environmental noise, exponential-kernel dispersal, optionally a fire regime."""
+    text = SCENARIO.format(years=years, replicates=replicates, seed=seed, batch=batch,
+                           stochastic="true" if stochastic else "false")
+    return text + FIRE if fire else text
+
+
+def read_rows(path):
+    """Rows of a CSV file as dicts."""
+    with open(path, newline="") as fh:
+        return list(csv.DictReader(fh))

@@ -2,12 +2,12 @@
 
 from __future__ import annotations
 
-import csv
 import json
 
 import numpy as np
 import pytest
 import rasterio
+from conftest import read_rows
 
 from gridpop.cli import main
 
@@ -36,11 +36,6 @@ fraction = 0.2
 kernel = "gaussian"
 mean_distance_m = 60.0
 """
-
-
-def read_rows(path):
-    with open(path, newline="") as fh:
-        return list(csv.DictReader(fh))
 
 
 def run_cli(*args):

@@ -13,51 +13,14 @@ import threading
 import time
 
 import pytest
+from conftest import scenario_text as shared_scenario
 
 import gridpop
 from gridpop.cli import main
 
-SCEN = """
-[run]
-years = {years}
-replicates = {replicates}
-seed = 5
-batch_size = {batch}
-
-[habitat]
-suitability = "{{suitability}}"
-capacity_per_ha = 30.0
-response = "threshold"
-threshold = 0.3
-
-[initial]
-fraction_of_capacity = 0.6
-
-[growth]
-model = "ricker"
-rate = 0.6
-survival = 0.4
-stochastic = true
-env_sd = 0.3
-env_correlation_m = 200.0
-env_autocorrelation = 0.5
-
-[dispersal]
-fraction = 0.3
-kernel = "exponential"
-mean_distance_m = 90.0
-
-[[disturbance]]
-kind = "fire"
-return_interval_years = 4.0
-mortality = 0.6
-capacity_loss = 0.5
-recovery_years = 3.0
-"""
-
 
 def scenario_text(years=6, replicates=5, batch=2):
-    return SCEN.format(years=years, replicates=replicates, batch=batch)
+    return shared_scenario(years=years, replicates=replicates, seed=5, batch=batch, fire=True)
 
 
 def assert_same_outputs(a, b):

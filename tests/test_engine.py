@@ -2,57 +2,15 @@
 
 from __future__ import annotations
 
-import csv
 import subprocess
 import sys
 
 import numpy as np
 import pytest
+from conftest import FIRE, read_rows, scenario_text
 
 import gridpop
 from gridpop.outputs import LEDGER_FIELDS
-
-SCEN = """
-[run]
-years = 8
-replicates = 4
-seed = 3
-batch_size = {batch}
-
-[habitat]
-suitability = "{{suitability}}"
-capacity_per_ha = 30.0
-response = "threshold"
-threshold = 0.3
-
-[initial]
-fraction_of_capacity = 0.6
-
-[growth]
-model = "ricker"
-rate = 0.6
-survival = 0.4
-stochastic = {stochastic}
-env_sd = 0.3
-env_correlation_m = 200.0
-env_autocorrelation = 0.5
-
-[dispersal]
-fraction = 0.3
-density_dependence = 1.0
-kernel = "exponential"
-mean_distance_m = 90.0
-edge = "absorbing"
-"""
-
-
-def read_rows(path):
-    with open(path, newline="") as fh:
-        return list(csv.DictReader(fh))
-
-
-def scenario_text(stochastic=True, batch=2):
-    return SCEN.format(stochastic="true" if stochastic else "false", batch=batch)
 
 
 def read_ledger(path, patches=False):
@@ -84,7 +42,7 @@ def check_identity(ledger, exact, rtol=1e-6):
 @pytest.mark.parametrize("stochastic", [True, False])
 def test_ledger_identity_landscape_and_patches(make_scenario, tmp_path, stochastic):
     out = tmp_path / "r"
-    gridpop.run(make_scenario(scenario_text(stochastic)), out)
+    gridpop.run(make_scenario(scenario_text(stochastic=stochastic)), out)
     land = read_ledger(out / "timeseries.csv")
     check_identity(land, exact=stochastic)
     # the whole landscape: emigrants = immigrants + losses
@@ -105,7 +63,7 @@ def test_same_seed_bit_identical_whatever_threads_and_batches(make_scenario, tmp
     same numbers. Runs in subprocesses with NUMBA_NUM_THREADS 1 and 2 and two batch sizes."""
     outs = []
     for threads, batch in ((1, 1), (2, 3)):
-        scen = make_scenario(scenario_text(True, batch), name=f"s{threads}.toml")
+        scen = make_scenario(scenario_text(batch=batch), name=f"s{threads}.toml")
         out = tmp_path / f"r{threads}"
         code = ("import sys, gridpop; gridpop.run(sys.argv[1], sys.argv[2])")
         subprocess.run([sys.executable, "-c", code, str(scen), str(out)], check=True,
@@ -147,14 +105,7 @@ def test_outside_study_area_and_matrix_hold_nobody(make_scenario, tmp_path):
     assert stack[-1, inside & ~matrix].sum() > 0
 
 
-DISTURBED = """
-[[disturbance]]
-kind = "fire"
-return_interval_years = 4.0
-mortality = 0.6
-capacity_loss = 0.5
-recovery_years = 3.0
-
+DISTURBED = FIRE + """
 [[disturbance]]
 kind = "flood"
 return_period_years = 3.0
@@ -172,7 +123,7 @@ def test_ledger_identity_with_disturbance(make_scenario, make_raster, tmp_path, 
     zone[20:40, 30:60] = 1
     make_raster("zone.tif", zone, nodata=None)
     out = tmp_path / "r"
-    gridpop.run(make_scenario(scenario_text(stochastic) + DISTURBED), out)
+    gridpop.run(make_scenario(scenario_text(stochastic=stochastic) + DISTURBED), out)
     land = read_ledger(out / "timeseries.csv")
     check_identity(land, exact=stochastic)
     check_identity(read_ledger(out / "patches.csv", patches=True), exact=stochastic)
@@ -200,7 +151,7 @@ def test_patch_losses_add_up_to_landscape_losses(make_scenario, tmp_path):
     """Losses are dispersers that settled nowhere: with every disperser starting in a patch, the
     patches' losses add up to the landscape's exactly (stochastic integers)."""
     out = tmp_path / "r"
-    gridpop.run(make_scenario(scenario_text(True)), out)
+    gridpop.run(make_scenario(scenario_text()), out)
     land = read_ledger(out / "timeseries.csv")
     patches = read_ledger(out / "patches.csv", patches=True)
     total = 0.0
@@ -228,7 +179,7 @@ persistence = 0.5
 def test_walk_method_ledger_flow_and_connectivity(make_scenario, tmp_path, stochastic):
     """Walk dispersal in the yearly cycle: the BIDE ledger stays exact (common practice), the
     flow stack and the patch connectivity table are written, rows of probabilities <= 1."""
-    text = scenario_text(stochastic).split("[dispersal]")[0] + WALK
+    text = scenario_text(stochastic=stochastic).split("[dispersal]")[0] + WALK
     from gridpop.engine import build_model, describe
     from gridpop.landscape import build_landscape
 
@@ -278,8 +229,9 @@ def walled_runs(make_scenario, make_raster, tmp_path, *, stochastic, mortality, 
     wall = np.zeros_like(suit)
     wall[:, 29:31] = 1
     make_raster("wall.tif", wall, nodata=0)
-    text = scenario_text(stochastic).replace("fraction_of_capacity = 0.6", 'raster = "start.tif"')
-    for edit in (("mean_distance_m = 90.0", "mean_distance_m = 300.0"), *edits):
+    text = scenario_text(stochastic=stochastic)
+    for edit in (("fraction_of_capacity = 0.6", 'raster = "start.tif"'),
+                 ("mean_distance_m = 90.0", "mean_distance_m = 300.0"), *edits):
         text = text.replace(*edit)
     barrier = ('\n[[action]]\nkind = "barrier"\narea = "wall.tif"\n'
                f"crossing_mortality = {mortality}\n")

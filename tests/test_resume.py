@@ -12,51 +12,15 @@ import sys
 import time
 
 import rasterio
+from conftest import scenario_text as shared_scenario
 
 import gridpop
 from gridpop import engine
 from gridpop.cli import main
 
-SCEN = """
-[run]
-years = {years}
-replicates = {replicates}
-seed = 9
-batch_size = 1
-
-[habitat]
-suitability = "{{suitability}}"
-capacity_per_ha = 30.0
-response = "threshold"
-threshold = 0.3
-
-[initial]
-fraction_of_capacity = 0.6
-
-[growth]
-model = "beverton-holt"
-rate = 0.5
-survival = 0.5
-stochastic = true
-env_sd = 0.2
-env_correlation_m = 150.0
-
-[dispersal]
-fraction = 0.25
-kernel = "gaussian"
-mean_distance_m = 60.0
-
-[[disturbance]]
-kind = "fire"
-return_interval_years = 5.0
-mortality = 0.5
-capacity_loss = 0.3
-recovery_years = 2.0
-"""
-
 
 def scenario_text(years=5, replicates=4):
-    return SCEN.format(years=years, replicates=replicates)
+    return shared_scenario(years=years, replicates=replicates, seed=9, batch=1, fire=True)
 
 
 def assert_same_outputs(a, b):
@@ -172,7 +136,7 @@ def test_resume_refuses_changed_scenario_or_settings(make_scenario, tmp_path, mo
     assert run_cli("run", scen, "--out", out, "--resume", "--years", "6") == 2
     err = capsys.readouterr().err
     assert "[run] years = 5 then, 6 now" in err
-    scen.write_text(scen.read_text().replace("mortality = 0.5", "mortality = 0.6"))
+    scen.write_text(scen.read_text().replace("mortality = 0.6", "mortality = 0.5"))
     assert run_cli("run", scen, "--out", out, "--resume") == 2
     err = capsys.readouterr().err
     assert "changed" in err and "sha256" in err and str(scen) in err
