@@ -33,11 +33,10 @@ def fold(g, n):
     return m if m < n else 2 * n - 1 - m
 
 
-def scatter(d, k, edge):
-    """Brute force: every source cell sends weight w to each offset, folded or dropped."""
-    ny, nx = d.shape
-    arr = np.zeros_like(d)
-    stay = np.zeros_like(d)
+def landings(shape, k, edge):
+    """Brute force: (source i, j, destination y, x, weight) for every stencil offset of every
+    cell, folded back (reflecting) or dropped (absorbing) at the edge."""
+    ny, nx = shape
     w = k.stencil
     for i in range(ny):
         for j in range(nx):
@@ -48,9 +47,17 @@ def scatter(d, k, edge):
                         if edge == "absorbing":
                             continue
                         y, x = fold(y, ny), fold(x, nx)
-                    arr[y, x] += d[i, j] * w[a, b]
-                    if (y, x) == (i, j):
-                        stay[i, j] += d[i, j] * w[a, b]
+                    yield i, j, y, x, w[a, b]
+
+
+def scatter(d, k, edge):
+    """Brute force: every source cell sends weight w to each offset, folded or dropped."""
+    arr = np.zeros_like(d)
+    stay = np.zeros_like(d)
+    for i, j, y, x, w in landings(d.shape, k, edge):
+        arr[y, x] += d[i, j] * w
+        if (y, x) == (i, j):
+            stay[i, j] += d[i, j] * w
     return arr, stay
 
 
@@ -322,24 +329,14 @@ def test_patch_retention_brute_force(kind, edge):
     over sources and stencil offsets (definition)."""
     d, labels, settle = patch_layout(np.random.default_rng(11))
     k = kernel(kind, mean=1.5, cell=0.5, max_distance_m=2.0)
-    ny, nx = d.shape
     ref = np.zeros(4)
     ref_from = np.zeros(4)
-    w = k.stencil
-    for i in range(ny):
-        for j in range(nx):
-            p = labels[i, j]
-            for a in range(w.shape[0]):
-                for b in range(w.shape[1]):
-                    y, x = i + a - k.ry, j + b - k.rx
-                    if not (0 <= y < ny and 0 <= x < nx):
-                        if edge == "absorbing":
-                            continue
-                        y, x = fold(y, ny), fold(x, nx)
-                    if p > 0 and settle[y, x]:
-                        ref_from[p] += d[i, j] * w[a, b]
-                        if labels[y, x] == p:
-                            ref[p] += d[i, j] * w[a, b]
+    for i, j, y, x, w in landings(d.shape, k, edge):
+        p = labels[i, j]
+        if p > 0 and settle[y, x]:
+            ref_from[p] += d[i, j] * w
+            if labels[y, x] == p:
+                ref[p] += d[i, j] * w
     for method in ("stencil", "fft"):
         got, got_from = D.patch_retention_deterministic(d, labels, settle, k, edge, 3,
                                                         method=method)
