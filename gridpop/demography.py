@@ -168,19 +168,35 @@ def step_deterministic(n, k, env, out, births, deaths, model, r, s, theta, allee
 @njit
 def _split_row_stochastic(n, out, births, deaths, s, allee_a, key_survival, key_births,
                           first_cell):
-    """Random survivors and births of one row; ``births`` holds the multiplier on entry."""
-    for j in range(n.size):
+    """Random survivors and births of one row; ``births`` holds the multiplier on entry.
+
+    A first pass, which vectorises, puts the survival probability in ``deaths``, the mean of
+    the births in ``births`` and its ``exp(-mean)`` (for the Poisson inversion) in a row buffer;
+    the second pass draws.
+    """
+    m = n.size
+    for j in range(m):
+        lam = births[j]
+        deaths[j] = min(s, lam)
+        births[j] = n[j] * max(lam - s, 0.0) * _allee(n[j], allee_a)
+    exp_neg = np.empty(m)
+    for j in range(m):
+        exp_neg[j] = fast_exp(-births[j])
+    for j in range(m):
         nj = n[j]
         if nj == 0.0:
             out[j] = 0.0
             births[j] = 0.0
             deaths[j] = 0.0
             continue
-        lam = births[j]
         cell = first_cell + j
-        surv = rng.binomial(np.int64(nj), min(s, lam), rng.cell_key(key_survival, cell))
-        b = rng.poisson(nj * max(lam - s, 0.0) * _allee(nj, allee_a),
-                        rng.cell_key(key_births, cell))
+        surv = rng.binomial(np.int64(nj), deaths[j], rng.cell_key(key_survival, cell))
+        mean = births[j]
+        ck = rng.cell_key(key_births, cell)
+        if mean < 10.0:
+            b = rng.poisson_inversion(mean, exp_neg[j], rng.uniform(ck, 0))
+        else:
+            b = rng.poisson(mean, ck)
         out[j] = surv + b
         births[j] = b
         deaths[j] = nj - surv

@@ -67,11 +67,10 @@ year, Brunet and Derrida 1997)."""
 STENCIL_MAX_RADIUS_SEPARABLE = 20
 STENCIL_MAX_RADIUS = 4
 
-# Stochastic engine: a cell's n dispersers are placed one by one (binary search of the kernel CDF,
-# ~log2(S) steps each, S = stencil cells with weight > 0) unless n >= MULTINOMIAL_PER_CELL * S;
-# then a sequential-binomial multinomial over the stencil (one binomial per stencil cell, largest
-# weights first, until none remain) is cheaper. Measured with benchmarks/bench_dispersal.py: the
-# two cost the same near n = S (S = 13) and n = S / 2 (S = 81, 317).
+# Stochastic engine: a cell's n dispersers are placed one by one (one uniform each through the
+# alias table, O(1) whatever the number S of stencil cells with weight > 0) unless
+# n >= MULTINOMIAL_PER_CELL * S; then a sequential-binomial multinomial over the stencil (one
+# binomial per stencil cell, largest weights first, until none remain) is cheaper.
 MULTINOMIAL_PER_CELL = 0.5
 
 _CACHE_SIZE = 16  # kernel transforms and stay fractions kept per kernel (grid shapes, sub-boxes)
@@ -107,8 +106,9 @@ class Kernel:
         Mean displacement of the untruncated kernel and truncation distance, metres.
     offsets : (S, 2) ndarray of int64
         Row and column offsets of the S stencil cells with weight > 0, largest weight first.
-    cdf : (S,) ndarray of float64
-        Cumulative weights in that order; the last is exactly 1.
+    alias_threshold, alias_index : (S,) ndarray of float64, (S,) ndarray of int64
+        Alias table of the weights in that order (:func:`_alias_table`): slot c holds entry c
+        with probability ``alias_threshold[c]`` and entry ``alias_index[c]`` otherwise.
     conditional : (S,) ndarray of float64
         ``p_k / sum(p_k, p_k+1, ...)`` in that order (last 1): the success probabilities of the
         sequential-binomial multinomial.
@@ -123,7 +123,8 @@ class Kernel:
     mean_distance_m: float
     max_distance_m: float
     offsets: np.ndarray = field(repr=False)
-    cdf: np.ndarray = field(repr=False)
+    alias_threshold: np.ndarray = field(repr=False)
+    alias_index: np.ndarray = field(repr=False)
     conditional: np.ndarray = field(repr=False)
     _cache: dict = field(default_factory=dict, repr=False)
 
@@ -265,6 +266,50 @@ def _reach(dmax: float, cell: float, touch: bool) -> int:
     return max(0, math.ceil(x - 0.5) if touch else math.floor(x))
 
 
+@njit
+def _alias_table(probs):
+    """Alias table of a discrete distribution over S entries (Vose's construction).
+
+    Slots are filled so that a slot c chosen uniformly yields entry c with probability
+    ``threshold[c]`` and entry ``index[c]`` otherwise, which reproduces ``probs``: entry k
+    gets ``(threshold[k] + sum of 1 - threshold[c] over slots c with index[c] = k) / S``.
+
+    References
+    ----------
+    Walker, A. J. (1977). An efficient method for generating discrete random variables with
+    general distributions. ACM Transactions on Mathematical Software 3, 253-256. Vose, M. D.
+    (1991). A linear algorithm for generating random numbers with a given distribution. IEEE
+    Transactions on Software Engineering 17, 972-975 [both from memory].
+    """
+    size = probs.size
+    scaled = probs * (size / probs.sum())
+    threshold = np.ones(size)
+    index = np.arange(size)
+    small = np.empty(size, np.int64)
+    large = np.empty(size, np.int64)
+    ns = 0
+    nl = 0
+    for k in range(size):
+        if scaled[k] < 1.0:
+            small[ns] = k
+            ns += 1
+        else:
+            large[nl] = k
+            nl += 1
+    while ns > 0 and nl > 0:
+        ns -= 1
+        lo = small[ns]
+        hi = large[nl - 1]
+        threshold[lo] = scaled[lo]
+        index[lo] = hi
+        scaled[hi] = (scaled[hi] + scaled[lo]) - 1.0
+        if scaled[hi] < 1.0:
+            nl -= 1
+            small[ns] = hi
+            ns += 1
+    return threshold, index  # slots left over hold their own entry (round-off): threshold 1
+
+
 def _mirror_quadrant(q: np.ndarray) -> np.ndarray:
     """Full (2ry+1, 2rx+1) array from the quadrant ky, kx >= 0."""
     top = np.concatenate([q[:, :0:-1], q], axis=1)
@@ -383,17 +428,15 @@ def make_kernel(kind, *, mean_distance_m, tail=1.5, max_distance_m=None, cell_w_
     nz = np.flatnonzero(flat > 0)
     order = nz[np.argsort(-flat[nz], kind="stable")]
     probs = flat[order]
-    cdf = np.cumsum(probs)
-    cdf /= cdf[-1]
-    cdf[-1] = 1.0
+    threshold, index = _alias_table(probs)
     remaining = np.cumsum(probs[::-1])[::-1]
     conditional = np.minimum(probs / remaining, 1.0)
     conditional[-1] = 1.0
     offsets = np.stack([order // (2 * rx + 1) - ry, order % (2 * rx + 1) - rx], axis=1)
     return Kernel(kind=kind, weights=weights, radius=r, ry=ry, rx=rx, separable=separable,
                   mean_distance_m=mean, max_distance_m=dmax,
-                  offsets=np.ascontiguousarray(offsets, dtype=np.int64), cdf=cdf,
-                  conditional=conditional)
+                  offsets=np.ascontiguousarray(offsets, dtype=np.int64),
+                  alias_threshold=threshold, alias_index=index, conditional=conditional)
 
 
 # --------------------------------------------------------------------------------------------
@@ -654,111 +697,124 @@ def _fold(g, n):
 
 
 @njit
-def _search(cdf, u):
-    """First index k with u < cdf[k] (cdf[-1] == 1 and 0 < u < 1)."""
-    lo = 0
-    hi = cdf.size - 1
-    while lo < hi:
-        mid = (lo + hi) >> 1
-        if u < cdf[mid]:
-            hi = mid
-        else:
-            lo = mid + 1
-    return lo
+def _alias_draw(threshold, index, u):
+    """Entry of the alias table drawn by one uniform ``u`` in (0, 1): its integer part of
+    ``S u`` picks the slot, its fraction the entry in the slot (Walker 1977)."""
+    x = u * threshold.size
+    c = min(np.int64(x), threshold.size - 1)  # S u rounds to S for u within 2**-54 of 1
+    return c if x - c < threshold[c] else index[c]
 
 
 @njit
-def _land(i, j, k, cnt, offsets, edge_code, labels, settle, buf, start, b0, stayed, ret, c):
-    """Put cnt dispersers from cell (i, j) at stencil entry k; off the grid (absorbing) they
-    are dropped."""
-    ny, nx = labels.shape
+def _land(i, j, k, cnt, offsets, edge_code, settle, labels, lab, arrivals):
+    """Put cnt dispersers from cell (i, j), of patch lab, at stencil entry k; off the grid
+    (absorbing) they are dropped. Returns how many of them landed back in (i, j), in a settle
+    cell, and in a settle cell of patch lab."""
+    ny, nx = arrivals.shape
     y = i + offsets[k, 0]
     x = j + offsets[k, 1]
     if y < 0 or y >= ny or x < 0 or x >= nx:
         if edge_code == 0:
-            return
+            return 0, 0, 0
         y = _fold(y, ny)
         x = _fold(x, nx)
-    buf[start + (y - b0) * nx + x] += cnt
-    if y == i and x == j:
-        stayed[i, j] += cnt
-    lab = labels[i, j]
-    if lab > 0 and settle[y, x]:
-        ret[c, lab, 1] += cnt
-        if labels[y, x] == lab:
-            ret[c, lab, 0] += cnt
+    arrivals[y, x] += cnt
+    settled = cnt if settle[y, x] else 0
+    return (cnt if y == i and x == j else 0), settled, (settled if labels[y, x] == lab else 0)
 
 
 @pjit
-def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, cdf, cond,
-                                ry, edge_code, key, multinomial_min, bounds, starts, buf,
-                                arrivals, stayed, retained, settled_from):
+def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, threshold, alias,
+                                cond, edge_code, key, multinomial_min, bounds, arrivals, stayed,
+                                retained, settled_from):
     """Each disperser of cell (i, j) draws its destination from the kernel.
 
-    Row chunk c (rows bounds[c]..bounds[c+1]) writes its landings into its own band of ``buf``
-    (rows b0..b1 of the grid at flat offset starts[c]): destinations lie within ry rows, and a
-    folded destination stays in the band. Counts are whole numbers, so the sums are exact and
-    the result does not depend on the chunking or the number of threads.
+    Row block b (rows bounds[b]..bounds[b+1]) adds its landings straight into ``arrivals``:
+    destinations lie within ry rows of their source (a folded one too), and every block but the
+    last is at least 2 ry rows high, so blocks of the same parity never write the same row;
+    the even blocks run in parallel, then the odd ones. Counts are whole numbers, so the sums
+    are exact and the result does not depend on the blocks or the number of threads.
 
     A cell with n >= multinomial_min dispersers draws a multinomial over the stencil by
     sequential binomials ``Binomial(remaining, cond[k])`` on cell key ``cell_key(ck, k)``;
-    otherwise disperser t takes ``uniform(ck, t)`` through the CDF (ck the cell's key).
+    otherwise disperser t takes ``uniform(ck, t)`` through the alias table (ck the cell's key).
     """
-    ny, nx = dispersers.shape
-    nch = bounds.size - 1
-    ret = np.zeros((nch, n_patches + 1, 2))
-    for c in prange(nch):
-        r0 = bounds[c]
-        b0 = max(0, r0 - ry)
-        start = starts[c]
-        for i in range(r0, bounds[c + 1]):
-            for j in range(nx):
-                n = np.int64(dispersers[i, j])
-                if n <= 0:
-                    continue
-                ck = rng.cell_key(key, i * nx + j)
-                if n >= multinomial_min:
-                    rem = n
-                    for k in range(cdf.size):
-                        if rem == 0:
-                            break
-                        cnt = rng.binomial(rem, cond[k], rng.cell_key(ck, k))
-                        if cnt > 0:
-                            rem -= cnt
-                            _land(i, j, k, cnt, offsets, edge_code, labels, settle, buf, start,
-                                  b0, stayed, ret, c)
-                else:
-                    for t in range(n):
-                        k = _search(cdf, rng.uniform(ck, t))
-                        _land(i, j, k, 1, offsets, edge_code, labels, settle, buf, start, b0,
-                              stayed, ret, c)
-    for i in prange(ny):
-        for c in range(nch):
-            b0 = max(0, bounds[c] - ry)
-            b1 = min(ny, bounds[c + 1] + ry)
-            if b0 <= i < b1:
-                base = starts[c] + (i - b0) * nx
+    nx = dispersers.shape[1]
+    nb = bounds.size - 1
+    ret = np.zeros((nb, n_patches + 1, 2))
+    for parity in range(2):
+        for h in prange((nb - parity + 1) // 2):
+            b = 2 * h + parity
+            for i in range(bounds[b], bounds[b + 1]):
                 for j in range(nx):
-                    arrivals[i, j] += buf[base + j]
-    for c in range(nch):
+                    n = np.int64(dispersers[i, j])
+                    if n <= 0:
+                        continue
+                    ck = rng.cell_key(key, i * nx + j)
+                    lab = labels[i, j]
+                    stay = 0
+                    settled = 0
+                    own = 0
+                    if n >= multinomial_min:
+                        rem = n
+                        for k in range(cond.size):
+                            if rem == 0:
+                                break
+                            cnt = rng.binomial(rem, cond[k], rng.cell_key(ck, k))
+                            if cnt > 0:
+                                rem -= cnt
+                                st, se, ow = _land(i, j, k, cnt, offsets, edge_code, settle,
+                                                   labels, lab, arrivals)
+                                stay += st
+                                settled += se
+                                own += ow
+                    else:
+                        for t in range(n):
+                            k = _alias_draw(threshold, alias, rng.uniform(ck, t))
+                            st, se, ow = _land(i, j, k, 1, offsets, edge_code, settle, labels,
+                                               lab, arrivals)
+                            stay += st
+                            settled += se
+                            own += ow
+                    stayed[i, j] = stay
+                    if lab > 0:
+                        ret[b, lab, 0] += own
+                        ret[b, lab, 1] += settled
+    for b in range(nb):
         for p in range(n_patches + 1):
-            retained[p] += ret[c, p, 0]
-            settled_from[p] += ret[c, p, 1]
+            retained[p] += ret[b, p, 0]
+            settled_from[p] += ret[b, p, 1]
 
 
-def _row_chunks(dispersers: np.ndarray, multinomial_min: float, ry: int):
-    """Split the rows into one chunk per numba thread of about equal work (work: dispersers
-    placed one by one, or stencil cells of a multinomial)."""
+@pjit
+def _row_work(dispersers, multinomial_min, work):
+    """Work of each row: dispersers placed one by one, or stencil cells of a multinomial."""
+    ny, nx = dispersers.shape
+    for i in prange(ny):
+        w = 1.0
+        for j in range(nx):
+            w += min(dispersers[i, j], multinomial_min)
+        work[i] = w
+
+
+BLOCKS_PER_THREAD = 8
+"""Row blocks of the stochastic engine per numba thread and parity (load balance)."""
+
+
+def _row_blocks(dispersers: np.ndarray, multinomial_min: float, ry: int) -> np.ndarray:
+    """Bounds of row blocks of about equal work, each but the last at least 2 ry rows high."""
     ny = dispersers.shape[0]
-    nch = max(1, min(ny, numba.get_num_threads()))
-    work = np.minimum(dispersers, multinomial_min).sum(axis=1) + 1.0
+    work = np.empty(ny)
+    _row_work(dispersers, multinomial_min, work)
     cum = np.concatenate([[0.0], np.cumsum(work)])
-    bounds = np.searchsorted(cum, cum[-1] * np.arange(nch + 1) / nch).astype(np.int64)
-    bounds[0], bounds[-1] = 0, ny
-    bounds = np.maximum.accumulate(bounds)
-    band = np.minimum(ny, bounds[1:] + ry) - np.maximum(0, bounds[:-1] - ry)
-    starts = np.concatenate([[0], np.cumsum(band * dispersers.shape[1])]).astype(np.int64)
-    return bounds, starts
+    nb = 2 * BLOCKS_PER_THREAD * numba.get_num_threads()
+    cuts = np.searchsorted(cum, cum[-1] * np.arange(1, nb) / nb)
+    bounds = [0]
+    for c in cuts:
+        if c >= bounds[-1] + max(2 * ry, 1) and c < ny:
+            bounds.append(int(c))
+    bounds.append(ny)
+    return np.array(bounds, dtype=np.int64)
 
 
 def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kernel, edge: str,
@@ -799,17 +855,16 @@ def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kern
         raise ValueError(f"dispersers {d.shape}, settle {settle.shape} and labels "
                          f"{labels.shape} must have the same shape")
     code = _edge_code(edge)
-    multinomial_min = MULTINOMIAL_PER_CELL * kernel.cdf.size
-    bounds, starts = _row_chunks(d, multinomial_min, kernel.ry)
-    buf = np.zeros(starts[-1])
+    multinomial_min = MULTINOMIAL_PER_CELL * kernel.conditional.size
+    bounds = _row_blocks(d, multinomial_min, kernel.ry)
     arrivals = np.zeros(d.shape)
     stayed = np.zeros(d.shape)
     retained = np.zeros(n_patches + 1)
     settled_from = np.zeros(n_patches + 1)
-    _disperse_stochastic_kernel(d, settle, labels, n_patches, kernel.offsets, kernel.cdf,
-                                kernel.conditional, kernel.ry, code, np.uint64(key),
-                                multinomial_min, bounds, starts, buf, arrivals, stayed, retained,
-                                settled_from)
+    _disperse_stochastic_kernel(d, settle, labels, n_patches, kernel.offsets,
+                                kernel.alias_threshold, kernel.alias_index, kernel.conditional,
+                                code, np.uint64(key), multinomial_min, bounds, arrivals, stayed,
+                                retained, settled_from)
     return arrivals, stayed, retained, settled_from
 
 

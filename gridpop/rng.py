@@ -92,6 +92,51 @@ def normal(ckey, k):
     return math.sqrt(-2.0 * math.log(u1)) * math.cos(2.0 * math.pi * u2)
 
 
+POISSON_BLOCK = 8
+"""Terms of the Poisson CDF that :func:`poisson_inversion` compares branch-free."""
+
+BERNOULLI_MAX = 16
+"""Binomial(n, p) with ``n <= BERNOULLI_MAX`` is drawn as a sum of n Bernoulli trials."""
+
+_RECIPROCALS = tuple(1.0 / j for j in range(1, POISSON_BLOCK + 1))
+
+
+@njit
+def poisson_inversion(lam, exp_neg_lam, u):
+    """The Poisson(lam) quantile of a uniform ``u``: the smallest k with ``u <= F(k)``.
+
+    Parameters
+    ----------
+    lam : float
+        Mean, ``0 <= lam`` and small (the search takes about ``lam + 1`` steps).
+    exp_neg_lam : float
+        ``exp(-lam)``, the probability of 0 (callers that hold many means compute it in a
+        vectorised pass).
+    u : float
+        Uniform in (0, 1).
+
+    Returns
+    -------
+    int
+        Inversion by sequential search (Devroye 1986, Non-Uniform Random Variate Generation,
+        Springer, chapter X, from memory). The first :data:`POISSON_BLOCK` comparisons are
+        counted without branching (a search that stops at a random step costs a mispredicted
+        branch per draw); the search goes on one term at a time beyond them.
+    """
+    p = exp_neg_lam
+    f = p
+    k = 0
+    for j in range(POISSON_BLOCK):  # counts the terms F(0..POISSON_BLOCK-1) below u
+        k += u > f
+        p *= lam * _RECIPROCALS[j]
+        f += p
+    while u > f and p > 0.0:  # p underflows to 0 far in the tail: stops a rounding loop
+        k += 1
+        p *= lam / k
+        f += p
+    return k
+
+
 @njit
 def poisson(lam, ckey):
     """A Poisson(lam) variate from the uniforms of one cell key.
@@ -106,9 +151,9 @@ def poisson(lam, ckey):
     Returns
     -------
     int
-        For ``lam < 10`` inversion by sequential search on ``uniform(ckey, 0)``; otherwise the
-        transformed rejection method PTRS, attempt m using ``uniform(ckey, 2m)`` and
-        ``uniform(ckey, 2m + 1)``.
+        For ``lam < 10`` inversion of ``uniform(ckey, 0)`` (:func:`poisson_inversion`);
+        otherwise the transformed rejection method PTRS, attempt m using ``uniform(ckey, 2m)``
+        and ``uniform(ckey, 2m + 1)``.
 
     References
     ----------
@@ -118,15 +163,7 @@ def poisson(lam, ckey):
     if not lam > 0.0:
         return 0
     if lam < 10.0:
-        u = uniform(ckey, 0)
-        k = 0
-        p = math.exp(-lam)
-        f = p
-        while u > f and p > 0.0:  # p underflows to 0 far in the tail: stops a rounding loop
-            k += 1
-            p *= lam / k
-            f += p
-        return k
+        return poisson_inversion(lam, math.exp(-lam), uniform(ckey, 0))
     slam = math.sqrt(lam)
     loglam = math.log(lam)
     b = 0.931 + 2.53 * slam
@@ -158,17 +195,19 @@ def binomial(n, p, ckey):
     n : int
         Number of trials (``n <= 0`` gives 0).
     p : float
-        Success probability: ``p <= 0`` (and NaN) gives 0, ``p >= 1`` gives ``n``; ``p > 0.5`` is
-        drawn as ``n - Binomial(n, 1 - p)``.
+        Success probability: ``p <= 0`` (and NaN) gives 0, ``p >= 1`` gives ``n``; above
+        ``BERNOULLI_MAX`` trials ``p > 0.5`` is drawn as ``n - Binomial(n, 1 - p)``.
     ckey : uint64
         Cell key (:func:`cell_key`); its counters 0, 1, 2, ... are used.
 
     Returns
     -------
     int
-        For ``n p < 10`` inversion by sequential search on ``uniform(ckey, 0)``; otherwise the
-        transformed rejection method BTRS, attempt m using ``uniform(ckey, 2m)`` and
-        ``uniform(ckey, 2m + 1)``.
+        For ``n <= BERNOULLI_MAX`` the number of counters ``t < n`` with
+        ``uniform(ckey, t) < p`` (a sum of Bernoulli trials: no logarithm, no exponential, no
+        branch on the outcome); else, for ``n p < 10``, inversion by sequential search on
+        ``uniform(ckey, 0)``; otherwise the transformed rejection method BTRS, attempt m using
+        ``uniform(ckey, 2m)`` and ``uniform(ckey, 2m + 1)``.
 
     References
     ----------
@@ -179,6 +218,11 @@ def binomial(n, p, ckey):
         return 0
     if p >= 1.0:
         return n
+    if n <= BERNOULLI_MAX:
+        k = 0
+        for t in range(n):
+            k += uniform(ckey, t) < p
+        return k
     if p > 0.5:
         return n - _binomial_low(n, 1.0 - p, ckey)
     return _binomial_low(n, p, ckey)
