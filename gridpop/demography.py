@@ -167,12 +167,13 @@ def step_deterministic(n, k, env, out, births, deaths, model, r, s, theta, allee
 
 @njit
 def _split_row_stochastic(n, out, births, deaths, s, allee_a, key_survival, key_births,
-                          first_cell):
+                          first_cell, survival_table):
     """Random survivors and births of one row; ``births`` holds the multiplier on entry.
 
     A first pass, which vectorises, puts the survival probability in ``deaths``, the mean of
     the births in ``births`` and its ``exp(-mean)`` (for the Poisson inversion) in a row buffer;
-    the second pass draws.
+    the second pass draws. Survivors of a cell with at most ``rng.BERNOULLI_MAX`` individuals
+    and survival probability s come from ``survival_table = rng.binomial_table(s)``.
     """
     m = n.size
     for j in range(m):
@@ -190,7 +191,12 @@ def _split_row_stochastic(n, out, births, deaths, s, allee_a, key_survival, key_
             deaths[j] = 0.0
             continue
         cell = first_cell + j
-        surv = rng.binomial(np.int64(nj), deaths[j], rng.cell_key(key_survival, cell))
+        c = np.int64(nj)
+        ck = rng.cell_key(key_survival, cell)
+        if c <= rng.BERNOULLI_MAX and deaths[j] == s:
+            surv = rng.binomial_inversion(survival_table, c, rng.uniform(ck, 0))
+        else:
+            surv = rng.binomial(c, deaths[j], ck)
         mean = births[j]
         ck = rng.cell_key(key_births, cell)
         if mean < 10.0:
@@ -219,10 +225,11 @@ def step_stochastic(n, k, env, out, births, deaths, model, r, s, theta, allee_a,
     """
     er = math.exp(r)
     nx = n.shape[1]
+    table = rng.binomial_table(s)
     for i in prange(n.shape[0]):
         _lambda_row(n[i], k[i], env[i], births[i], model, r, er, theta)
         _split_row_stochastic(n[i], out[i], births[i], deaths[i], s, allee_a, key_survival,
-                              key_births, i * nx)
+                              key_births, i * nx, table)
 
 
 @pjit

@@ -888,15 +888,26 @@ def _leaving_deterministic_kernel(n, k, fraction, dd, out):
             out[i, j] = n[i, j] * _emigration_fraction(n[i, j], k[i, j], fraction, dd)
 
 
+@njit
+def _binomial_or_table(c, p, p_table, table, ckey):
+    """Binomial(c, p) on ``ckey``, from ``table = rng.binomial_table(p_table)`` when p is
+    p_table and c is small enough."""
+    if c <= rng.BERNOULLI_MAX and p == p_table:
+        return rng.binomial_inversion(table, c, rng.uniform(ckey, 0))
+    return rng.binomial(c, p, ckey)
+
+
 @pjit
 def _leaving_stochastic_kernel(n, k, fraction, dd, key, out):
     ny, nx = n.shape
+    table = rng.binomial_table(fraction)
     for i in prange(ny):
         for j in range(nx):
             c = np.int64(n[i, j])
             if c > 0:
                 f = _emigration_fraction(n[i, j], k[i, j], fraction, dd)
-                out[i, j] = rng.binomial(c, f, rng.cell_key(key, i * nx + j))
+                out[i, j] = _binomial_or_table(c, f, fraction, table,
+                                               rng.cell_key(key, i * nx + j))
 
 
 def _leaving_args(n, k):
@@ -939,11 +950,12 @@ def leaving_stochastic(n, k, fraction: float, density_dependence: float, key) ->
 @pjit
 def _thin_kernel(counts, p, key, group, out):
     ny, nx = counts.shape
+    table = rng.binomial_table(p)
     for i in prange(ny):
         for j in range(nx):
             c = np.int64(counts[i, j])
-            out[i, j] = 0.0 if c <= 0 else rng.binomial(
-                c, p, rng.cell_key(key, (group * ny + i) * nx + j))
+            out[i, j] = 0.0 if c <= 0 else _binomial_or_table(
+                c, p, p, table, rng.cell_key(key, (group * ny + i) * nx + j))
 
 
 def thin(counts, p: float, key, group: int) -> np.ndarray:

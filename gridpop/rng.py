@@ -229,6 +229,49 @@ def binomial(n, p, ckey):
 
 
 @njit
+def binomial_table(p):
+    """Inversion table of Binomial(n, p) for every n up to :data:`BERNOULLI_MAX`.
+
+    Parameters
+    ----------
+    p : float
+        Success probability; as in :func:`binomial`, below 0 counts as 0, above 1 as 1 and NaN
+        gives a table that draws 0.
+
+    Returns
+    -------
+    (BERNOULLI_MAX + 1, BERNOULLI_MAX) ndarray of float64
+        Row n holds the CDF ``F(0), ..., F(n - 1)`` of Binomial(n, p), then ones; each
+        probability ``C(n, k) p^k (1 - p)^(n - k)`` is computed on its own, not by recurrence.
+        For :func:`binomial_inversion`: callers that draw many binomials with the same p build
+        it once.
+    """
+    table = np.ones((BERNOULLI_MAX + 1, BERNOULLI_MAX))
+    p = min(max(p, 0.0), 1.0) if p == p else p
+    q = 1.0 - p
+    for n in range(1, BERNOULLI_MAX + 1):
+        choose = 1.0
+        f = 0.0
+        for k in range(n):
+            f += choose * p ** k * q ** (n - k)
+            table[n, k] = f
+            choose = choose * (n - k) / (k + 1)
+    return table
+
+
+@njit
+def binomial_inversion(table, n, u):
+    """The Binomial(n, p) quantile of a uniform ``u`` from ``binomial_table(p)``, ``0 <= n <=
+    BERNOULLI_MAX``: the number of CDF values below u, counted without branching (inversion,
+    Devroye 1986, Non-Uniform Random Variate Generation, Springer, chapter X, from memory)."""
+    row = table[n]
+    k = 0
+    for j in range(BERNOULLI_MAX):
+        k += u > row[j]
+    return k
+
+
+@njit
 def _binomial_low(n, p, ckey):
     """Binomial(n, p) for 0 < p <= 0.5."""
     q = 1.0 - p
