@@ -493,6 +493,100 @@ def test_stochastic_matches_expectation_and_threads(edge, threads):
         assert abs(ret_from[p] - e_from[p]) < 4 * math.sqrt(e_from[p])
 
 
+def _alias_probabilities(threshold, index):
+    """Probability of each entry under an alias table: slot c (chance 1/S) gives c with
+    probability threshold[c], else index[c]."""
+    size = threshold.size
+    return (threshold + np.bincount(index, weights=1.0 - threshold, minlength=size)) / size
+
+
+@pytest.mark.parametrize("kind", list(D.KERNELS))
+def test_alias_table_reproduces_kernel_weights(kind):
+    """The alias table of a kernel gives each stencil entry exactly its weight (Walker 1977,
+    ACM TOMS 3:253; Vose 1991, IEEE TSE 17:972, both from memory), to 1e-15 relative."""
+    k = kernel(kind, mean=1.0, cell=0.3, cell_h=0.4)
+    s = k.offsets.shape[0]
+    assert s > 50 and k.alias_threshold.shape == (s,) and k.alias_index.shape == (s,)
+    assert (k.alias_threshold >= 0).all() and (k.alias_threshold <= 1).all()
+    w = k.stencil[k.offsets[:, 0] + k.ry, k.offsets[:, 1] + k.rx]
+    np.testing.assert_allclose(_alias_probabilities(k.alias_threshold, k.alias_index), w,
+                               rtol=1e-15 * s, atol=0)
+
+
+@D.njit
+def _alias_draws(threshold, index, key, m):
+    out = np.empty(m, np.int64)
+    for c in range(m):
+        out[c] = D._alias_draw(threshold, index, rng.uniform(rng.cell_key(key, c), 0))
+    return out
+
+
+def test_alias_draws_match_distribution_chi_square():
+    """Draws through the alias table of an uneven distribution over 40 entries (one with weight
+    1e-9, one with 0) against their probabilities: Pearson chi-square (scipy.stats.chisquare as
+    reference library) over 400000 draws; the zero-weight entry is never drawn, and the alias
+    probabilities equal the distribution (Walker 1977; Vose 1991, from memory)."""
+    g = np.random.default_rng(9)
+    probs = g.dirichlet(np.full(40, 0.5))
+    probs[7] = 1e-9
+    probs[11] = 0.0
+    probs /= probs.sum()
+    threshold, index = D._alias_table(probs)
+    np.testing.assert_allclose(_alias_probabilities(threshold, index), probs, rtol=1e-13,
+                               atol=1e-17)
+    m = 400_000
+    x = _alias_draws(threshold, index, np.uint64(KEY), m)
+    counts = np.bincount(x, minlength=probs.size)
+    assert counts[11] == 0
+    big = probs * m >= 5
+    obs = np.append(counts[big], counts[~big].sum())
+    exp = np.append(probs[big] * m, probs[~big].sum() * m)
+    assert stats.chisquare(obs, exp).pvalue > 1e-3
+
+
+@pytest.mark.parametrize("edge", list(D.EDGES))
+def test_stochastic_kernel_wider_than_grid(edge, sampling):
+    """A kernel reaching beyond a 5 x 4 grid (repeated folds at a reflecting edge): 100 000
+    dispersers from each cell land as the brute-force scatter expects; arrivals and stayed each
+    give a Pearson chi-square below its 0.9999 quantile (Pearson 1900, Philosophical Magazine
+    50:157, from memory); the reflecting edge keeps every disperser."""
+    k = kernel("exponential", mean=3.0, cell=1.0, cell_h=1.2, max_distance_m=9.0)
+    d = np.full((5, 4), 100_000.0)
+    settle = np.ones(d.shape, dtype=bool)
+    labels = np.ones(d.shape, dtype=np.int32)
+    arr, stay, ret, _ = D.disperse_stochastic(d, settle, labels, 1, k, edge, KEY)
+    ref_a, ref_s = scatter(d, k, edge)
+    if edge == "reflecting":
+        assert arr.sum() == d.sum() and ret[1] == d.sum()
+    for obs, exp in ((arr, ref_a), (stay, ref_s)):
+        assert ((obs - exp) ** 2 / exp).sum() < stats.chi2.ppf(0.9999, d.size)
+
+
+def test_stochastic_result_does_not_depend_on_row_blocks(monkeypatch, threads):
+    """The row blocks of the stochastic engine (any number, same-parity blocks written in
+    parallel) give bit-identical results: whole counts add exactly (definition of the counter-
+    based design, Salmon et al. 2011, SC'11)."""
+    g = np.random.default_rng(4)
+    d = np.floor(g.gamma(0.6, 3.0, (150, 70)))
+    d[70:80, 30] = 400.0
+    labels = np.kron(np.arange(1, 16, dtype=np.int32).reshape(15, 1), np.ones((10, 70),
+                                                                               np.int32))
+    settle = g.random(d.shape) < 0.7
+    k = kernel("gaussian", mean=1.0, cell=0.5)
+    numba.set_num_threads(1)
+    runs = []
+    for per_thread in (1, 3, 40):
+        monkeypatch.setattr(D, "BLOCKS_PER_THREAD", per_thread)
+        bounds = D._row_blocks(d, D.MULTINOMIAL_PER_CELL * k.conditional.size, k.ry)
+        assert (np.diff(bounds)[:-1] >= 2 * k.ry).all()
+        runs.append((bounds.size, D.disperse_stochastic(d, settle, labels, 15, k, "reflecting",
+                                                        KEY)))
+    assert len({size for size, _ in runs}) == 3
+    for _, res in runs[1:]:
+        for a, b in zip(runs[0][1], res, strict=True):
+            np.testing.assert_array_equal(a, b)
+
+
 def test_deterministic_thread_invariance(threads):
     """Same numbers for 1 and 2 threads: stencil (fixed summation order per cell) and FFT
     (pocketfft splits independent 1-D transforms)."""

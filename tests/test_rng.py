@@ -98,18 +98,84 @@ def test_poisson_boundaries():
 
 
 @pytest.mark.parametrize("n, p", [
-    (1, 0.3), (10, 0.5), (50, 0.1), (19, 0.52), (200, 0.05), (100, 0.3), (1000, 0.7),
-    (40, 0.97), (10**6, 1e-6), (10**6, 0.3), (10**6, 0.999999), (3_000_000_000, 0.5),
+    (1, 0.3), (10, 0.5), (16, 0.03), (16, 0.52), (16, 0.97), (17, 0.5), (50, 0.1), (19, 0.52),
+    (200, 0.05), (100, 0.3), (1000, 0.7), (40, 0.97), (10**6, 1e-6), (10**6, 0.3),
+    (10**6, 0.999999), (3_000_000_000, 0.5),
 ])
 def test_binomial_matches_scipy(n, p):
-    """Binomial sampler (inversion for n p < 10, BTRS of Hoermann 1993, J. Statist. Comput.
-    Simul. 46:101, otherwise; symmetry for p > 0.5) against scipy.stats.binom: chi-square goodness
-    of fit of the pmf, mean and variance within 4 SE (reference library: scipy)."""
+    """Binomial sampler (a sum of n Bernoulli trials for n <= BERNOULLI_MAX = 16; inversion for
+    n p < 10, BTRS of Hoermann 1993, J. Statist. Comput. Simul. 46:101, otherwise; symmetry for
+    p > 0.5) against scipy.stats.binom: chi-square goodness of fit of the pmf, mean and variance
+    within 4 SE (reference library: scipy)."""
     x = _binomial_draws(n, p, _key(stream=rng.STREAM_SURVIVAL), DRAWS)
     dist = stats.binom(n, p)
     assert x.min() >= 0 and x.max() <= n
     assert _chi_square_pvalue(x, dist) > 1e-3
     _assert_moments(x, dist)
+
+
+@njit
+def _table_draws(table, n, key, m):
+    out = np.empty(m, np.int64)
+    for c in range(m):
+        out[c] = rng.binomial_inversion(table, n, rng.uniform(rng.cell_key(key, c), 0))
+    return out
+
+
+def _ppf_agrees(draw, u, dist):
+    """``draw(u)`` against ``dist.ppf(u)`` (scipy) for every u not within 1e-12 of a CDF value,
+    where the rounding of the CDF may decide either way; returns how many were compared."""
+    k = np.array([draw(v) for v in u])
+    ref = dist.ppf(u)
+    near = (np.abs(dist.cdf(ref) - u) < 1e-12) | (np.abs(dist.cdf(ref - 1) - u) < 1e-12)
+    np.testing.assert_array_equal(k[~near], ref[~near])
+    return int((~near).sum())
+
+
+@pytest.mark.parametrize("p", [0.0, 1e-4, 0.2, 0.6, 0.999, 1.0])
+def test_binomial_table_is_the_binomial_cdf(p):
+    """binomial_table rows are the CDF of Binomial(n, p), n = 0..16, padded with ones (scipy.stats
+    .binom as reference library, 1e-14), and binomial_inversion returns the quantile
+    scipy.stats.binom.ppf of 300 uniforms per n, among them uniforms deep in both tails
+    (inversion: Devroye 1986, Non-Uniform Random Variate Generation, from memory)."""
+    table = rng.binomial_table(p)
+    assert table.shape == (rng.BERNOULLI_MAX + 1, rng.BERNOULLI_MAX)
+    g = np.random.default_rng(5)
+    u = np.concatenate([g.random(280), 10.0 ** -g.uniform(1, 15, 10),
+                        1 - 10.0 ** -g.uniform(1, 15, 10)])
+    compared = 0
+    for n in range(rng.BERNOULLI_MAX + 1):
+        dist = stats.binom(n, p)
+        np.testing.assert_allclose(table[n, :n], dist.cdf(np.arange(n)), rtol=0, atol=1e-14)
+        assert (table[n, n:] == 1.0).all()
+        compared += _ppf_agrees(lambda v, n=n: rng.binomial_inversion(table, n, v), u, dist)
+    assert compared > 0.9 * u.size * (rng.BERNOULLI_MAX + 1)
+
+
+@pytest.mark.parametrize("n, p", [(1, 0.3), (5, 0.2), (16, 0.6)])
+def test_binomial_table_draws_match_scipy(n, p):
+    """Draws of binomial_inversion on the counter-based uniforms (the path of the stochastic
+    kernels when many cells share one probability) against scipy.stats.binom: chi-square of the
+    pmf, mean and variance within 4 SE (reference library: scipy)."""
+    x = _table_draws(rng.binomial_table(p), n, _key(stream=rng.STREAM_EMIGRATION), DRAWS)
+    dist = stats.binom(n, p)
+    assert _chi_square_pvalue(x, dist) > 1e-3
+    _assert_moments(x, dist)
+
+
+@pytest.mark.parametrize("lam", [0.01, 0.7, 3.0, 6.5, 9.9])
+def test_poisson_inversion_is_the_poisson_quantile(lam):
+    """poisson_inversion(lam, exp(-lam), u) is the quantile scipy.stats.poisson.ppf(u) for 2000
+    uniforms, among them uniforms deep in the upper tail that run past the branch-free block of
+    POISSON_BLOCK terms (reference library: scipy)."""
+    g = np.random.default_rng(6)
+    u = np.concatenate([g.random(1980), 1 - 10.0 ** -g.uniform(1, 15, 20)])
+    dist = stats.poisson(lam)
+    em = math.exp(-lam)
+    compared = _ppf_agrees(lambda v: rng.poisson_inversion(lam, em, v), u, dist)
+    assert compared > 0.99 * u.size
+    if lam >= 3.0:
+        assert dist.ppf(u).max() > rng.POISSON_BLOCK
 
 
 def test_binomial_boundaries():
