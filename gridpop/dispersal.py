@@ -687,13 +687,16 @@ def _weighted_patch_sums(labels, d, w1, w2, out1, out2):
 # Stochastic engine
 
 
-@njit
-def _fold(g, n):
-    """Mirror a coordinate back into 0..n-1 (reflecting edge), repeatedly if needed."""
+def _edge_map(n: int, r: int, edge_code: int) -> np.ndarray:
+    """Cell reached along an axis of n cells by the coordinate g = -r..n+r-1 (at index g + r):
+    g inside the grid; off it -1 (absorbing: lost) or g mirrored back across the boundary,
+    repeatedly if needed (reflecting). A table, so that the kernel does not branch on the
+    edge."""
+    g = np.arange(-r, n + r, dtype=np.int64)
+    if edge_code == 0:
+        return np.where((g >= 0) & (g < n), g, -1)
     m = g % (2 * n)
-    if m < n:
-        return m
-    return 2 * n - 1 - m
+    return np.where(m < n, m, 2 * n - 1 - m)
 
 
 @njit
@@ -706,80 +709,103 @@ def _alias_draw(threshold, index, u):
 
 
 @njit
-def _land(i, j, k, cnt, offsets, edge_code, settle, labels, lab, arrivals):
-    """Put cnt dispersers from cell (i, j), of patch lab, at stencil entry k; off the grid
-    (absorbing) they are dropped. Returns how many of them landed back in (i, j), in a settle
-    cell, and in a settle cell of patch lab."""
-    ny, nx = arrivals.shape
-    y = i + offsets[k, 0]
-    x = j + offsets[k, 1]
-    if y < 0 or y >= ny or x < 0 or x >= nx:
-        if edge_code == 0:
-            return 0, 0, 0
-        y = _fold(y, ny)
-        x = _fold(x, nx)
+def _land(i, j, k, cnt, offsets, ymap, xmap, settle, labels, lab, arrivals):
+    """Put cnt dispersers from cell (i, j), of patch lab, at stencil entry k (``ymap``, ``xmap``:
+    :func:`_edge_map` of the rows and columns); off the grid (absorbing) they are dropped.
+    Returns how many of them landed back in (i, j), in a settle cell, and in a settle cell of
+    patch lab."""
+    ry = (ymap.size - arrivals.shape[0]) // 2
+    rx = (xmap.size - arrivals.shape[1]) // 2
+    y = ymap[i + offsets[k, 0] + ry]
+    x = xmap[j + offsets[k, 1] + rx]
+    if y < 0 or x < 0:
+        return 0, 0, 0
     arrivals[y, x] += cnt
-    settled = cnt if settle[y, x] else 0
-    return (cnt if y == i and x == j else 0), settled, (settled if labels[y, x] == lab else 0)
+    settled = cnt * settle[y, x]  # products, not branches: the outcomes are random
+    return cnt * ((y == i) & (x == j)), settled, settled * (labels[y, x] == lab)
+
+
+@njit
+def _place_multinomial(i, j, n, ck, cond, offsets, ymap, xmap, settle, labels, lab, arrivals):
+    """The n dispersers of cell (i, j) as one multinomial over the stencil: sequential binomials
+    ``Binomial(remaining, cond[k])`` on cell key ``cell_key(ck, k)``. Returns the counts of
+    :func:`_land`, summed."""
+    stay = 0
+    settled = 0
+    own = 0
+    for k in range(cond.size):
+        if n == 0:
+            break
+        cnt = rng.binomial(n, cond[k], rng.cell_key(ck, k))
+        if cnt > 0:
+            n -= cnt
+            st, se, ow = _land(i, j, k, cnt, offsets, ymap, xmap, settle, labels, lab, arrivals)
+            stay += st
+            settled += se
+            own += ow
+    return stay, settled, own
+
+
+@njit
+def _disperse_rows(dispersers, settle, labels, offsets, threshold, alias, cond, ymap, xmap, key,
+                   multinomial_min, r0, r1, arrivals, stayed, ret):
+    """The dispersers of rows r0..r1: landings added to ``arrivals`` and ``stayed``, and per
+    patch of origin the number landing in a settle cell of the patch (``ret[p, 0]``) and in any
+    settle cell (``ret[p, 1]``). Disperser t of a cell placed one by one takes ``uniform(ck,
+    t)`` through the alias table."""
+    nx = dispersers.shape[1]
+    for i in range(r0, r1):
+        for j in range(nx):
+            n = np.int64(dispersers[i, j])
+            if n <= 0:
+                continue
+            ck = rng.cell_key(key, i * nx + j)
+            lab = labels[i, j]
+            if n >= multinomial_min:
+                stay, settled, own = _place_multinomial(i, j, n, ck, cond, offsets, ymap, xmap,
+                                                        settle, labels, lab, arrivals)
+            else:
+                stay = 0
+                settled = 0
+                own = 0
+                for t in range(n):
+                    k = _alias_draw(threshold, alias, rng.uniform(ck, t))
+                    st, se, ow = _land(i, j, k, 1, offsets, ymap, xmap, settle, labels, lab,
+                                       arrivals)
+                    stay += st
+                    settled += se
+                    own += ow
+            stayed[i, j] = stay
+            if lab > 0:
+                ret[lab, 0] += own
+                ret[lab, 1] += settled
 
 
 @pjit
 def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, threshold, alias,
-                                cond, edge_code, key, multinomial_min, bounds, arrivals, stayed,
+                                cond, ymap, xmap, key, multinomial_min, bounds, arrivals, stayed,
                                 retained, settled_from):
     """Each disperser of cell (i, j) draws its destination from the kernel.
 
     Row block b (rows bounds[b]..bounds[b+1]) adds its landings straight into ``arrivals``:
-    destinations lie within ry rows of their source (a folded one too), and every block but the
-    last is at least 2 ry rows high, so blocks of the same parity never write the same row;
-    the even blocks run in parallel, then the odd ones. Counts are whole numbers, so the sums
-    are exact and the result does not depend on the blocks or the number of threads.
+    destinations lie within ry rows of their source (folding at a reflecting edge does not move
+    a point further from its source), and every block but the last is at least 2 ry rows high,
+    so blocks of the same parity never write the same row; the even blocks run in parallel,
+    then the odd ones. Counts are whole numbers, so the sums are exact and the result does not
+    depend on the blocks or the number of threads.
 
-    A cell with n >= multinomial_min dispersers draws a multinomial over the stencil by
-    sequential binomials ``Binomial(remaining, cond[k])`` on cell key ``cell_key(ck, k)``;
-    otherwise disperser t takes ``uniform(ck, t)`` through the alias table (ck the cell's key).
+    A cell with n >= multinomial_min dispersers draws a multinomial over the stencil
+    (:func:`_place_multinomial`), otherwise each disperser its own destination, from the
+    cell's key ``ck = rng.cell_key(key, i * nx + j)``.
     """
-    nx = dispersers.shape[1]
     nb = bounds.size - 1
     ret = np.zeros((nb, n_patches + 1, 2))
     for parity in range(2):
         for h in prange((nb - parity + 1) // 2):
             b = 2 * h + parity
-            for i in range(bounds[b], bounds[b + 1]):
-                for j in range(nx):
-                    n = np.int64(dispersers[i, j])
-                    if n <= 0:
-                        continue
-                    ck = rng.cell_key(key, i * nx + j)
-                    lab = labels[i, j]
-                    stay = 0
-                    settled = 0
-                    own = 0
-                    if n >= multinomial_min:
-                        rem = n
-                        for k in range(cond.size):
-                            if rem == 0:
-                                break
-                            cnt = rng.binomial(rem, cond[k], rng.cell_key(ck, k))
-                            if cnt > 0:
-                                rem -= cnt
-                                st, se, ow = _land(i, j, k, cnt, offsets, edge_code, settle,
-                                                   labels, lab, arrivals)
-                                stay += st
-                                settled += se
-                                own += ow
-                    else:
-                        for t in range(n):
-                            k = _alias_draw(threshold, alias, rng.uniform(ck, t))
-                            st, se, ow = _land(i, j, k, 1, offsets, edge_code, settle, labels,
-                                               lab, arrivals)
-                            stay += st
-                            settled += se
-                            own += ow
-                    stayed[i, j] = stay
-                    if lab > 0:
-                        ret[b, lab, 0] += own
-                        ret[b, lab, 1] += settled
+            _disperse_rows(dispersers, settle, labels, offsets, threshold, alias, cond, ymap,
+                           xmap, key, multinomial_min, bounds[b], bounds[b + 1], arrivals, stayed,
+                           ret[b])
     for b in range(nb):
         for p in range(n_patches + 1):
             retained[p] += ret[b, p, 0]
@@ -863,8 +889,9 @@ def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kern
     settled_from = np.zeros(n_patches + 1)
     _disperse_stochastic_kernel(d, settle, labels, n_patches, kernel.offsets,
                                 kernel.alias_threshold, kernel.alias_index, kernel.conditional,
-                                code, np.uint64(key), multinomial_min, bounds, arrivals, stayed,
-                                retained, settled_from)
+                                _edge_map(d.shape[0], kernel.ry, code),
+                                _edge_map(d.shape[1], kernel.rx, code), np.uint64(key),
+                                multinomial_min, bounds, arrivals, stayed, retained, settled_from)
     return arrivals, stayed, retained, settled_from
 
 
