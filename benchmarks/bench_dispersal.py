@@ -65,7 +65,7 @@ def bench_stochastic(radii=(2, 5, 10), counts=(1, 4, 16, 64, 256, 1024, 4096), s
     try:
         for r in radii:
             k = kernel("exponential", r)
-            s = k.cdf.size
+            s = k.conditional.size
             for n in counts:
                 d = np.full((size, size), float(n))
                 times = {}

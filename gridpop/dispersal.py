@@ -70,8 +70,10 @@ STENCIL_MAX_RADIUS = 4
 # Stochastic engine: a cell's n dispersers are placed one by one (one uniform each through the
 # alias table, O(1) whatever the number S of stencil cells with weight > 0) unless
 # n >= MULTINOMIAL_PER_CELL * S; then a sequential-binomial multinomial over the stencil (one
-# binomial per stencil cell, largest weights first, until none remain) is cheaper.
-MULTINOMIAL_PER_CELL = 0.5
+# binomial per stencil cell, largest weights first, until none remain) is cheaper. Measured with
+# benchmarks/bench_dispersal.py (1 and 2 threads): one by one costs ~11 ns per disperser; the
+# two cost the same near n = 0.7 S for S = 5 and 13, and n = 1.6 S for S = 81 and 317.
+MULTINOMIAL_PER_CELL = 1.5
 
 _CACHE_SIZE = 16  # kernel transforms and stay fractions kept per kernel (grid shapes, sub-boxes)
 
