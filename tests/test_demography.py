@@ -215,28 +215,36 @@ def test_poisson_ricker_one_step_mean_and_variance():
     assert np.array_equal(out, 50.0 - deaths + births)
 
 
-@pytest.mark.parametrize("capacity, allee_a", [(60.0, 0.0), (10.0, 0.0), (60.0, 30.0)])
-def test_binomial_survival_and_poisson_births_moments(capacity, allee_a):
+@pytest.mark.parametrize("n0, capacity, allee_a", [
+    (30.0, 60.0, 0.0), (30.0, 10.0, 0.0), (30.0, 60.0, 30.0), (6.0, 10.0, 0.0),
+    (6.0, 1.0, 0.0), (6.0, 60.0, 8.0),
+])
+def test_binomial_survival_and_poisson_births_moments(n0, capacity, allee_a):
     """With survival s the stochastic step has mean N p + m and variance N p (1 - p) + m, p =
     min(s, L), m = N max(L - s, 0) N/(N + A) (independent binomial survivors and Poisson births;
-    common practice), within 4 SE, for L above s, below s, and with an Allee effect; empty cells
-    stay empty."""
-    n = np.full((150, 200), 30.0)
+    common practice), within 4 SE, for L above s, below s, and with an Allee effect, with N above
+    and below rng.BERNOULLI_MAX (table, Bernoulli-sum and inversion or BTRS samplers; birth means
+    below 10 by inversion, above by PTRS); deaths are Binomial(N, 1 - p), mean and variance
+    within 4 SE; empty cells stay empty."""
+    n = np.full((150, 200), n0)
     n[::7, ::5] = 0.0
     k = np.full_like(n, capacity)
     r, s = 0.8, 0.7
     out, births, deaths = _stochastic(n, k, BH, r, s, year=4, allee_a=allee_a)
-    lam = math.exp(r) / (1 + (math.exp(r) - 1) * 30.0 / capacity)
+    lam = math.exp(r) / (1 + (math.exp(r) - 1) * n0 / capacity)
     p = min(s, lam)
-    m = 30.0 * max(lam - s, 0.0) * (30.0 / (30.0 + allee_a) if allee_a > 0 else 1.0)
+    m = n0 * max(lam - s, 0.0) * (n0 / (n0 + allee_a) if allee_a > 0 else 1.0)
     full = n > 0
     x = out[full]
-    mean, var = 30.0 * p + m, 30.0 * p * (1 - p) + m
+    mean, var = n0 * p + m, n0 * p * (1 - p) + m
     assert abs(x.mean() - mean) < 4 * math.sqrt(var / x.size)
     assert abs(x.var() - var) < 4 * var * math.sqrt(2.2 / x.size)
     assert abs(births[full].mean() - m) < 4 * math.sqrt(m / x.size) + 1e-12
+    dv = n0 * p * (1 - p)
+    assert abs(deaths[full].mean() - n0 * (1 - p)) < 4 * math.sqrt(dv / x.size)
+    assert abs(deaths[full].var() - dv) < 4 * dv * math.sqrt(2.2 / x.size)
     assert np.all(out[~full] == 0) and np.all(births[~full] == 0) and np.all(deaths[~full] == 0)
-    assert np.all(deaths[full] >= 0) and np.all(deaths[full] <= 30)
+    assert np.all(deaths[full] >= 0) and np.all(deaths[full] <= n0)
     assert np.array_equal(out, n - deaths + births)
     assert np.array_equal(deaths, np.round(deaths)) and np.array_equal(births, np.round(births))
 

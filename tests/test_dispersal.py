@@ -615,27 +615,52 @@ def test_leaving_deterministic_formula():
     np.testing.assert_allclose(D.leaving_deterministic(n, k, 0.4, 0.0), 0.4 * n, rtol=1e-15)
 
 
-def test_leaving_stochastic_binomial(threads):
-    """Binomial(n, f) per cell: mean n f and variance n f (1 - f) (common practice) within 4
-    standard errors over 40000 cells; whole numbers, 0 <= leaving <= n; identical for 1 and 2
-    threads."""
+@pytest.mark.parametrize("n0, capacity, dd", [(50.0, 100.0, 1.0), (7.0, 100.0, 1.0),
+                                              (7.0, 100.0, 0.0), (7.0, 5.0, 2.0)])
+def test_leaving_stochastic_binomial(threads, n0, capacity, dd):
+    """Binomial(n, f) per cell, f = 0.3 min(1, n/K)^dd: mean n f and variance n f (1 - f) (common
+    practice) within 4 standard errors over 40000 cells, for n above rng.BERNOULLI_MAX and below
+    it with f varying by cell (Bernoulli sums) or the plain fraction (binomial table); whole
+    numbers, 0 <= leaving <= n; identical for 1 and 2 threads."""
     shape = (200, 200)
-    n = np.full(shape, 50.0)
-    k = np.full(shape, 100.0)
+    n = np.full(shape, n0)
+    k = np.full(shape, capacity)
     key = rng.year_key(7, 0, 3, rng.STREAM_EMIGRATION)
     runs = []
     for nt in (1, 2):
         numba.set_num_threads(nt)
-        runs.append(D.leaving_stochastic(n, k, 0.3, 1.0, key))
+        runs.append(D.leaving_stochastic(n, k, 0.3, dd, key))
     np.testing.assert_array_equal(runs[0], runs[1])
     x = runs[0]
-    f = 0.3 * 0.5
+    f = 0.3 * min(1.0, n0 / capacity) ** dd
     m = x.size
-    var = 50 * f * (1 - f)
-    assert np.array_equal(x, np.round(x)) and x.min() >= 0 and x.max() <= 50
-    assert abs(x.mean() - 50 * f) < 4 * math.sqrt(var / m)
+    var = n0 * f * (1 - f)
+    assert np.array_equal(x, np.round(x)) and x.min() >= 0 and x.max() <= n0
+    assert abs(x.mean() - n0 * f) < 4 * math.sqrt(var / m)
     assert abs(x.var() - var) < 4 * var * math.sqrt(2 / m)
-    assert D.leaving_stochastic(np.zeros(shape), k, 0.3, 1.0, key).sum() == 0
+    assert D.leaving_stochastic(np.zeros(shape), k, 0.3, dd, key).sum() == 0
+
+
+def test_thin_binomial(threads):
+    """Binomial thinning: Binomial(c, p) per cell, mean c p and variance c p (1 - p) (common
+    practice) within 4 SE, for counts served by the binomial table (c <= rng.BERNOULLI_MAX) and
+    above it; groups draw different numbers; identical for 1 and 2 threads; p = 0 and p = 1 keep
+    none and all."""
+    counts = np.where(np.arange(200)[:, None] < 100, 9.0, 40.0) * np.ones((200, 150))
+    key = rng.year_key(7, 0, 3, rng.STREAM_BARRIER)
+    runs = []
+    for nt in (1, 2):
+        numba.set_num_threads(nt)
+        runs.append(D.thin(counts, 0.35, key, 2))
+    np.testing.assert_array_equal(runs[0], runs[1])
+    for c in (9.0, 40.0):
+        x = runs[0][counts == c]
+        var = c * 0.35 * 0.65
+        assert abs(x.mean() - c * 0.35) < 4 * math.sqrt(var / x.size)
+        assert abs(x.var() - var) < 4 * var * math.sqrt(2 / x.size)
+    assert not np.array_equal(runs[0], D.thin(counts, 0.35, key, 3))
+    assert D.thin(counts, 0.0, key, 2).sum() == 0
+    np.testing.assert_array_equal(D.thin(counts, 1.0, key, 2), counts)
 
 
 # ------------------------------------------------------------------------------------------
