@@ -407,54 +407,94 @@ def _edge_code(edge) -> int:
     return EDGES[edge]
 
 
+@njit
+def _fold(g, n):
+    """Mirror a coordinate back into 0..n-1 (reflecting edge), repeatedly if needed."""
+    m = g % (2 * n)
+    if m < n:
+        return m
+    return 2 * n - 1 - m
+
+
+@njit
+def _axpy(dst, w, src):
+    """``dst += w * src`` over two equal-length contiguous rows (a loop LLVM vectorises)."""
+    for j in range(dst.size):
+        dst[j] += w * src[j]
+
+
+@njit
+def _source_row(q, n, edge_code):
+    """Grid row of padded-row index ``q - r`` (the stencil reaching row ``q`` of the field
+    extended by the edge): the row itself inside the grid; off the grid -1 (absorbing) or the
+    mirrored row (reflecting)."""
+    if 0 <= q < n:
+        return q
+    return -1 if edge_code == 0 else _fold(q, n)
+
+
+@njit
+def _extend_row(row, rx, edge_code, ext):
+    """``ext`` = ``row`` with ``rx`` cells beyond each end: zeros (absorbing) or the mirror
+    images, repeated if ``rx`` exceeds the row (reflecting), as ``np.pad`` modes 'constant' and
+    'symmetric' do."""
+    nx = row.size
+    for p in range(ext.size):
+        x = p - rx
+        if 0 <= x < nx:
+            ext[p] = row[x]
+        else:
+            ext[p] = 0.0 if edge_code == 0 else row[_fold(x, nx)]
+
+
 @pjit
-def _stencil_separable(padded, wy, wx, out):
-    """Valid convolution of a padded field with outer(wy, wx): a row pass, then a column pass."""
-    ny, nx = out.shape
+def _stencil_separable(d, wy, wx, edge_code, tmp, out):
+    """``out`` = ``d`` convolved with ``outer(wy, wx)``, the field extended by the edge: a row
+    pass into ``tmp`` (same shape as ``d``), then a column pass."""
+    ny, nx = d.shape
     ry = (wy.size - 1) // 2
     rx = (wx.size - 1) // 2
-    tmp = np.zeros((padded.shape[0], nx))
-    for i in prange(padded.shape[0]):
-        src = padded[i]
+    for i in prange(ny):
+        ext = np.empty(nx + 2 * rx)
+        _extend_row(d[i], rx, edge_code, ext)
         t = tmp[i]
+        t[:] = 0.0
         for b in range(wx.size):
-            wv = wx[b]
-            off = 2 * rx - b
-            for j in range(nx):
-                t[j] += wv * src[j + off]
+            _axpy(t, wx[b], ext[2 * rx - b:2 * rx - b + nx])
     for i in prange(ny):
         o = out[i]
         o[:] = 0.0
         for a in range(wy.size):
-            wv = wy[a]
-            t = tmp[i + 2 * ry - a]
-            for j in range(nx):
-                o[j] += wv * t[j]
+            q = _source_row(i + ry - a, ny, edge_code)
+            if q >= 0:
+                _axpy(o, wy[a], tmp[q])
 
 
 @pjit
-def _stencil_full(padded, w, out):
-    """Valid convolution of a padded field with a (2ry+1, 2rx+1) stencil."""
-    ny, nx = out.shape
+def _stencil_full(d, w, edge_code, out):
+    """``out`` = ``d`` convolved with the (2ry+1, 2rx+1) stencil ``w``, the field extended by
+    the edge."""
+    ny, nx = d.shape
     ry = (w.shape[0] - 1) // 2
     rx = (w.shape[1] - 1) // 2
     for i in prange(ny):
+        ext = np.empty(nx + 2 * rx)
         o = out[i]
         o[:] = 0.0
         for a in range(w.shape[0]):
-            src = padded[i + 2 * ry - a]
+            q = _source_row(i + ry - a, ny, edge_code)
+            if q < 0:
+                continue
+            _extend_row(d[q], rx, edge_code, ext)
             for b in range(w.shape[1]):
-                wv = w[a, b]
-                if wv == 0.0:
-                    continue
-                off = 2 * rx - b
-                for j in range(nx):
-                    o[j] += wv * src[j + off]
+                if w[a, b] != 0.0:
+                    _axpy(o, w[a, b], ext[2 * rx - b:2 * rx - b + nx])
 
 
-def _fft_valid(padded, kernel: Kernel, shape) -> np.ndarray:
-    ny, nx = shape
+def _fft_valid(d, kernel: Kernel, edge_code: int) -> np.ndarray:
+    ny, nx = d.shape
     ry, rx = kernel.ry, kernel.rx
+    padded = np.pad(d, ((ry, ry), (rx, rx)), mode="constant" if edge_code == 0 else "symmetric")
     s = (sfft.next_fast_len(padded.shape[0], real=True),
          sfft.next_fast_len(padded.shape[1], real=True))
     workers = numba.get_num_threads()
@@ -465,27 +505,27 @@ def _fft_valid(padded, kernel: Kernel, shape) -> np.ndarray:
     return out
 
 
-def _spread(d: np.ndarray, kernel: Kernel, edge_code: int, method: str) -> np.ndarray:
-    """Where the dispersers ``d`` land (expected numbers).
+def _spread(d: np.ndarray, kernel: Kernel, edge_code: int, method: str, *, out=None,
+            work=None) -> np.ndarray:
+    """Where the dispersers ``d`` land (expected numbers), into ``out`` if given (the stencils;
+    ``work``: a scratch array of ``d``'s shape for the separable one).
 
     Reflecting edge: the destination off the grid is folded back (``A`` below). The kernel is
     symmetric under flipping either axis, which makes the fold operator symmetric, so the
-    forward scatter ``A d`` equals the gather over the mirror-padded field (``np.pad`` mode
+    forward scatter ``A d`` equals the gather over the mirror-extended field (``np.pad`` mode
     'symmetric', repeated when the kernel reaches beyond the grid), a plain valid convolution.
     """
-    ry, rx = kernel.ry, kernel.rx
-    mode = "constant" if edge_code == 0 else "symmetric"
-    padded = np.pad(d, ((ry, ry), (rx, rx)), mode=mode)
     if method == "auto":
         limit = STENCIL_MAX_RADIUS_SEPARABLE if kernel.separable else STENCIL_MAX_RADIUS
         method = "stencil" if kernel.radius <= limit else "fft"
     if method == "fft":
-        return _fft_valid(padded, kernel, d.shape)
-    out = np.empty(d.shape)
+        return _fft_valid(d, kernel, edge_code)
+    out = np.empty(d.shape) if out is None else out
     if kernel.separable is not None:
-        _stencil_separable(padded, kernel.separable[0], kernel.separable[1], out)
+        work = np.empty(d.shape) if work is None else work
+        _stencil_separable(d, kernel.separable[0], kernel.separable[1], edge_code, work, out)
     else:
-        _stencil_full(padded, np.ascontiguousarray(kernel.stencil), out)
+        _stencil_full(d, np.ascontiguousarray(kernel.stencil), edge_code, out)
     return out
 
 
@@ -496,10 +536,12 @@ def _fold_indicator(n: int, r: int) -> np.ndarray:
     return (np.where(m < n, m, 2 * n - 1 - m) == np.arange(n)[:, None]).astype(np.float64)
 
 
-def _stay_fraction(kernel: Kernel, shape, edge_code: int):
-    """Fraction of a cell's dispersers that land back in it (per cell when reflecting)."""
-    if edge_code == 0:
-        return kernel.stencil[kernel.ry, kernel.rx]
+def stay_share(kernel: Kernel, shape, edge: str) -> np.ndarray:
+    """Share of each cell's dispersers that land back in it, a read-only ``shape`` array (one
+    value broadcast when the edge is absorbing; per cell when reflecting: the fold brings some
+    back)."""
+    if _edge_code(edge) == 0:
+        return np.broadcast_to(kernel.stencil[kernel.ry, kernel.rx], shape)
     return kernel._cached(("stay", shape), lambda: _fold_indicator(shape[0], kernel.ry)
                           @ kernel.stencil @ _fold_indicator(shape[1], kernel.rx).T)
 
@@ -514,6 +556,16 @@ def _as_field(a, name: str) -> np.ndarray:
 def _check_method(method: str) -> None:
     if method not in ("auto", "stencil", "fft"):
         raise ValueError(f"method must be 'auto', 'stencil' or 'fft', got {method!r}")
+
+
+def spread(dispersers, kernel: Kernel, edge: str, *, method: str = "auto", out=None,
+           work=None) -> np.ndarray:
+    """Where expected numbers of dispersers land: the ``arrivals`` of
+    :func:`disperse_deterministic`, written into ``out`` by the stencils if given (float64,
+    the dispersers' shape; ``work``, the same, is scratch space for the separable stencil)."""
+    _check_method(method)
+    return _spread(_as_field(dispersers, "dispersers"), kernel, _edge_code(edge), method,
+                   out=out, work=work)
 
 
 def disperse_deterministic(dispersers, kernel: Kernel, edge: str, *, method: str = "auto"):
@@ -539,10 +591,8 @@ def disperse_deterministic(dispersers, kernel: Kernel, edge: str, *, method: str
     stayed : (ny, nx) ndarray of float64
         The part of each cell's dispersers that landed back in the same cell.
     """
-    _check_method(method)
     d = _as_field(dispersers, "dispersers")
-    code = _edge_code(edge)
-    return _spread(d, kernel, code, method), d * _stay_fraction(kernel, d.shape, code)
+    return spread(d, kernel, edge, method=method), d * stay_share(kernel, d.shape, edge)
 
 
 @dataclass(frozen=True, eq=False)
@@ -642,15 +692,6 @@ def _weighted_patch_sums(labels, d, w1, w2, out1, out2):
 
 # --------------------------------------------------------------------------------------------
 # Stochastic engine
-
-
-@njit
-def _fold(g, n):
-    """Mirror a coordinate back into 0..n-1 (reflecting edge), repeatedly if needed."""
-    m = g % (2 * n)
-    if m < n:
-        return m
-    return 2 * n - 1 - m
 
 
 @njit
@@ -852,14 +893,15 @@ def _leaving_args(n, k):
     return n, k
 
 
-def leaving_deterministic(n, k, fraction: float, density_dependence: float) -> np.ndarray:
+def leaving_deterministic(n, k, fraction: float, density_dependence: float, *,
+                          out=None) -> np.ndarray:
     """Expected emigrants per cell: ``n * fraction * min(1, n / k) ** density_dependence``.
 
     Cells with ``k <= 0``, and every cell when ``density_dependence == 0``, lose the plain
-    ``fraction``.
+    ``fraction``. Written into ``out`` (float64, ``n``'s shape) if given.
     """
     n, k = _leaving_args(n, k)
-    out = np.empty(n.shape)
+    out = np.empty(n.shape) if out is None else out
     _leaving_deterministic_kernel(n, k, float(fraction), float(density_dependence), out)
     return out
 

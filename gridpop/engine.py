@@ -55,8 +55,9 @@ from .dispersal import (
     leaving_deterministic,
     leaving_stochastic,
     make_kernel,
-    patch_retention_deterministic,
     settle_fields,
+    spread,
+    stay_share,
     thin,
 )
 from .disturbance import Regime, build_regime
@@ -219,72 +220,103 @@ def _walk_surface(scenario, landscape: Landscape, actions: Actions) -> Walk:
 N_CHUNKS = 64  # fixed row chunking of reductions: sums do not depend on the thread count
 
 
+@njit
+def _add5(part, c, q, x0, x1, x2, x3, x4):
+    part[c, q, 0] += x0
+    part[c, q, 1] += x1
+    part[c, q, 2] += x2
+    part[c, q, 3] += x3
+    part[c, q, 4] += x4
+
+
+def _patch_totals(part: np.ndarray) -> np.ndarray:
+    """(n_patches + 1, 5) sums from the chunk partials of :func:`_census` or :func:`_settle`:
+    chunks added in order, row 0 the whole landscape (the patches and the cells of no patch,
+    which the kernels keep in a last row)."""
+    s = part.sum(axis=0)
+    s[0] = s.sum(axis=0)
+    return s[:-1]
+
+
 @pjit
 def _census(labels, n_patches, n, births, deaths, dist_deaths, threshold, ever,
             sum_n, occupied, ever_count):
     """Per-patch sums of the census fields and the per-cell accumulators of one year.
 
-    Returns (n_chunks, n_patches + 1, 5) partial sums of abundance, births, deaths, disturbance
-    deaths and occupied cells (index 0: all cells); the caller adds chunks in order.
+    Returns (n_chunks, n_patches + 2, 5) partial sums of abundance, births, deaths, disturbance
+    deaths and occupied cells per chunk of rows and patch (row 0 unused, the last row the cells
+    of no patch); :func:`_patch_totals` adds them up. A run of cells of one patch along a row is
+    summed in registers and added to its patch once.
     """
     ny, nx = n.shape
     rows = (ny + N_CHUNKS - 1) // N_CHUNKS
-    part = np.zeros((N_CHUNKS, n_patches + 1, 5))
+    part = np.zeros((N_CHUNKS, n_patches + 2, 5))
     for c in prange(N_CHUNKS):
         for i in range(c * rows, min(ny, (c + 1) * rows)):
+            la = labels[i]
+            run = la[0]
+            r0 = r1 = r2 = r3 = r4 = 0.0
             for j in range(nx):
                 v = n[i, j]
-                occ = 1 if v >= threshold else 0
-                if occ:
-                    ever[i, j] = 1
+                hit = v >= threshold
+                e = 1 if hit or ever[i, j] else 0
+                ever[i, j] = e
                 sum_n[i, j] += v
-                occupied[i, j] += occ
-                ever_count[i, j] += ever[i, j]
-                b = births[i, j]
-                dd = deaths[i, j]
-                xd = dist_deaths[i, j]
-                if v == 0.0 and b == 0.0 and dd == 0.0 and xd == 0.0:
-                    continue
-                _add5(part, c, 0, v, b, dd, xd, occ)
-                p = labels[i, j]
-                if p > 0:
-                    _add5(part, c, p, v, b, dd, xd, occ)
+                occupied[i, j] += 1 if hit else 0
+                ever_count[i, j] += e
+                p = la[j]
+                if p != run:
+                    _add5(part, c, run if run > 0 else n_patches + 1, r0, r1, r2, r3, r4)
+                    run = p
+                    r0 = r1 = r2 = r3 = r4 = 0.0
+                r0 += v
+                r1 += births[i, j]
+                r2 += deaths[i, j]
+                r3 += dist_deaths[i, j]
+                r4 += 1.0 if hit else 0.0
+            _add5(part, c, run if run > 0 else n_patches + 1, r0, r1, r2, r3, r4)
     return part
 
 
-@njit
-def _add5(part, c, q, v, b, dd, xd, occ):
-    part[c, q, 0] += v
-    part[c, q, 1] += b
-    part[c, q, 2] += dd
-    part[c, q, 3] += xd
-    part[c, q, 4] += occ
-
-
-@njit
-def _settle(labels, k, n, leaving, arrivals, stayed, out_p, in_p):
+@pjit
+def _settle(labels, n_patches, k, n, leaving, arrivals, stayed, stay_is_share, own, anywhere):
     """Apply one year's movement in place: ``n <- n - leaving + arrivals`` where capacity
-    ``k > 0`` (arrivals elsewhere are lost). Adds the dispersers (``out_p``) and settlers
-    (``in_p``) of each patch (index 0: all cells) and returns the settled stayers, in one
-    row-major pass (the same order for any thread count)."""
+    ``k > 0`` (arrivals elsewhere are lost).
+
+    Returns chunk partials as :func:`_census` does, of the dispersers, the settlers, the
+    settled stayers (``stayed``: counts, or with ``stay_is_share`` the share of ``leaving``
+    that lands back home) and, when ``own`` is not empty (expected kernel dispersal, see
+    :func:`gridpop.dispersal.settle_fields`), the dispersers weighted by ``own`` and by
+    ``anywhere``: those that settle in their own patch and anywhere.
+    """
     ny, nx = n.shape
-    stay = 0.0
-    for i in range(ny):
-        for j in range(nx):
-            lv = leaving[i, j]
-            a = arrivals[i, j] if k[i, j] > 0.0 else 0.0
-            if lv == 0.0 and a == 0.0:
-                continue
-            if k[i, j] > 0.0:
-                stay += stayed[i, j]
-            n[i, j] = (n[i, j] - lv) + a
-            out_p[0] += lv
-            in_p[0] += a
-            p = labels[i, j]
-            if p > 0:
-                out_p[p] += lv
-                in_p[p] += a
-    return stay
+    expected = own.shape[0] > 0
+    rows = (ny + N_CHUNKS - 1) // N_CHUNKS
+    part = np.zeros((N_CHUNKS, n_patches + 2, 5))
+    for c in prange(N_CHUNKS):
+        for i in range(c * rows, min(ny, (c + 1) * rows)):
+            la = labels[i]
+            run = la[0]
+            r0 = r1 = r2 = r3 = r4 = 0.0
+            for j in range(nx):
+                lv = leaving[i, j]
+                settles = k[i, j] > 0.0
+                a = arrivals[i, j] if settles else 0.0
+                n[i, j] = (n[i, j] - lv) + a
+                p = la[j]
+                if p != run:
+                    _add5(part, c, run if run > 0 else n_patches + 1, r0, r1, r2, r3, r4)
+                    run = p
+                    r0 = r1 = r2 = r3 = r4 = 0.0
+                r0 += lv
+                r1 += a
+                if settles:
+                    r2 += stayed[i, j] * lv if stay_is_share else stayed[i, j]
+                if expected:
+                    r3 += lv * own[i, j]
+                    r4 += lv * anywhere[i, j]
+            _add5(part, c, run if run > 0 else n_patches + 1, r0, r1, r2, r3, r4)
+    return part
 
 
 class BatchSink:
@@ -337,6 +369,7 @@ class Replicate:
         self.dist_deaths = np.zeros(shape)
         self.ever = np.zeros(shape, np.uint8)
         self._zeros = np.zeros(shape)
+        self._work = {}  # scratch arrays, reused from year to year
         self._env_state = None
         self._dist_state = model.regime.start() if model.regime is not None else None
         self.effects = None  # the last year's disturbance effects
@@ -368,14 +401,14 @@ class Replicate:
         if m.kernel is not None or m.walk is not None:
             if self.visits is not None:
                 self.visits[:] = 0.0
-            _disperse(m, self.replicate, year, self.n, k, row, self.visits)
+            _disperse(m, self.replicate, year, self.n, k, row, self.visits, self._work)
 
     def census(self, t: int, sink: BatchSink) -> None:
         m = self.model
-        part = _census(m.labels, m.n_patches, self.n, self.births, self.deaths,
-                       self.dist_deaths, m.occupancy_threshold, self.ever,
-                       sink.acc["sum_n"][t], sink.acc["occupied"][t], sink.acc["ever"][t])
-        s = part.sum(axis=0)
+        s = _patch_totals(_census(m.labels, m.n_patches, self.n, self.births, self.deaths,
+                                  self.dist_deaths, m.occupancy_threshold, self.ever,
+                                  sink.acc["sum_n"][t], sink.acc["occupied"][t],
+                                  sink.acc["ever"][t]))
         row = self.ledger[t]
         row[:, F_ABUND] = s[:, 0]
         row[:, F_BIRTHS] = s[:, 1]
@@ -408,35 +441,52 @@ def _key(model: Model, replicate: int, year: int, stream: int) -> np.uint64:
 
 
 def _disperse(model: Model, replicate: int, year: int, n: np.ndarray, k: np.ndarray,
-              row: np.ndarray, visits: np.ndarray | None) -> None:
+              row: np.ndarray, visits: np.ndarray | None, work: dict) -> None:
     """Move dispersers in place in ``n`` and write the movement columns of one ledger row.
 
     Dispersers settle only where the capacity of the year ``k`` is positive; the rest are lost.
     Per patch: emigrants left the patch, immigrants settled in it from outside, losses are its
     dispersers that settled nowhere. For the landscape: emigrants left their cell, immigrants
     settled in another cell, losses settled nowhere (emigrants = immigrants + losses).
+    ``work`` holds the replicate's scratch arrays, reused from year to year.
     """
     settle = k > 0
     m = model
+    own = anywhere = _NO_FIELD
+    stay_is_share = False
     if m.stochastic:
         leaving = leaving_stochastic(n, k, m.fraction, m.density_dependence,
                                      _key(m, replicate, year, rng.STREAM_EMIGRATION))
     else:
-        leaving = leaving_deterministic(n, k, m.fraction, m.density_dependence)
+        leaving = leaving_deterministic(n, k, m.fraction, m.density_dependence,
+                                        out=_scratch(work, "leaving", n.shape))
     if m.walk is not None:
         res = m.walk.disperse(leaving, k, m.labels, m.n_patches, m.stochastic,
                               _key(m, replicate, year, rng.STREAM_WALK))
         arrivals, stayed, retained, settled_from = res[:4]
         visits += res.visits
-    elif m.regions is None:
-        arrivals, stayed, retained, settled_from = _kernel_step(m, leaving, settle, replicate,
-                                                                year)
-    else:
+    elif m.regions is not None:
         arrivals, stayed, retained, settled_from = _kernel_step_with_barriers(
             m, leaving, settle, replicate, year)
-    out_p = np.zeros(m.n_patches + 1)
-    in_p = np.zeros(m.n_patches + 1)
-    stay = _settle(m.labels, k, n, leaving, arrivals, stayed, out_p, in_p)
+    elif m.stochastic:
+        arrivals, stayed, retained, settled_from = disperse_stochastic(
+            leaving, settle, m.labels, m.n_patches, m.kernel, m.edge,
+            _key(m, replicate, year, rng.STREAM_DISPERSAL))
+    else:
+        arrivals = spread(leaving, m.kernel, m.edge, out=_scratch(work, "arrivals", n.shape),
+                          work=_scratch(work, "spread", n.shape))
+        stayed, stay_is_share = stay_share(m.kernel, n.shape, m.edge), True
+        fields = m.cache.get("settle_fields")
+        if fields is None or not np.array_equal(fields.settle, settle):
+            fields = m.cache["settle_fields"] = settle_fields(m.labels, settle, m.kernel,
+                                                              m.edge)
+        own, anywhere = fields.own, fields.anywhere
+    s = _patch_totals(_settle(m.labels, m.n_patches, k, n, leaving, arrivals, stayed,
+                              stay_is_share, own, anywhere))
+    out_p, in_p, stay = s[:, 0], s[:, 1], s[0, 2]
+    if own is not _NO_FIELD:
+        retained, settled_from = s[:, 3].copy(), s[:, 4].copy()
+        retained[0] = settled_from[0] = 0.0
     row[:, F_EMIG] = out_p - retained
     row[:, F_IMMIG] = in_p - retained
     row[:, F_LOSS] = out_p - settled_from
@@ -445,18 +495,24 @@ def _disperse(model: Model, replicate: int, year: int, n: np.ndarray, k: np.ndar
     row[0, F_LOSS] = out_p[0] - in_p[0]
 
 
-def _kernel_step(m: Model, leaving, settle, replicate, year):
-    """Kernel dispersal of ``leaving``: (arrivals, stayed, retained, settled_from)."""
+_NO_FIELD = np.empty((0, 0))
+"""``own`` and ``anywhere`` of :func:`_settle` when the dispersal step counts retention."""
+
+
+def _scratch(work: dict, name: str, shape) -> np.ndarray:
+    """The float64 scratch array ``name`` of ``shape`` in ``work``, made on first use."""
+    a = work.get(name)
+    if a is None:
+        a = work[name] = np.empty(shape)
+    return a
+
+
+def _kernel_spread(m: Model, leaving, settle, replicate, year):
+    """Kernel dispersal of ``leaving``: (arrivals, stayed), fresh arrays."""
     if m.stochastic:
         return disperse_stochastic(leaving, settle, m.labels, m.n_patches, m.kernel, m.edge,
-                                   _key(m, replicate, year, rng.STREAM_DISPERSAL))
-    arrivals, stayed = disperse_deterministic(leaving, m.kernel, m.edge)
-    fields = m.cache.get("settle_fields")
-    if fields is None or not np.array_equal(fields.settle, settle):
-        fields = m.cache["settle_fields"] = settle_fields(m.labels, settle, m.kernel, m.edge)
-    retained, settled_from = patch_retention_deterministic(leaving, m.labels, settle, m.kernel,
-                                                           m.edge, m.n_patches, fields=fields)
-    return arrivals, stayed, retained, settled_from
+                                   _key(m, replicate, year, rng.STREAM_DISPERSAL))[:2]
+    return disperse_deterministic(leaving, m.kernel, m.edge)
 
 
 def _kernel_step_with_barriers(m: Model, leaving, settle, replicate, year):
@@ -481,7 +537,7 @@ def _kernel_step_with_barriers(m: Model, leaving, settle, replicate, year):
             continue  # no one disperses from a barrier cell: see build_model
         inside = m.regions == r
         src = np.where(group == g, leaving, 0.0)
-        arr, st = _kernel_step(m, src, settle & inside, replicate, year)[:2]
+        arr, st = _kernel_spread(m, src, settle & inside, replicate, year)
         crossed = np.where(inside, 0.0, arr)
         kept = (thin(crossed, m.crossing_survival, key, int(g)) if m.stochastic
                 else crossed * m.crossing_survival)
