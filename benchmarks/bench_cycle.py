@@ -40,8 +40,7 @@ from gridpop.demography import MODELS, step_deterministic
 from gridpop.landscape import build_landscape
 from gridpop.scenario import load_scenario
 
-PHASES = ("step_deterministic", "step_stochastic", "leaving_deterministic", "leaving_stochastic",
-          "spread", "disperse_stochastic", "settle_fields", "_settle", "_census")
+PHASES = ("_grow", "spread", "disperse_stochastic", "settle_fields", "_count")
 """Functions the engine calls in the yearly cycle, timed one by one."""
 
 
@@ -64,7 +63,7 @@ def gridpop_cycle(model, folder: Path, years: int) -> tuple[float, dict]:
     sink = engine.BatchSink(folder, model, range(2))
     engine.simulate_replicate(model, 0, sink, 0)
     rep = engine.Replicate(model, 1, sink.ledger[1])
-    rep.census(0, sink)
+    rep.start(sink)
     best, best_phases = math.inf, {}
     for name, fn in originals.items():
         setattr(engine, name, timed(name, fn))
@@ -72,8 +71,7 @@ def gridpop_cycle(model, folder: Path, years: int) -> tuple[float, dict]:
         for t in range(1, years + 1):
             spent.update(dict.fromkeys(PHASES, 0.0))
             start = time.perf_counter()
-            rep.advance(t)
-            rep.census(t, sink)
+            rep.advance(t, sink)
             total = time.perf_counter() - start
             if total < best:
                 best = total

@@ -439,35 +439,49 @@ def _extend_row(row, rx, edge_code, ext):
     images, repeated if ``rx`` exceeds the row (reflecting), as ``np.pad`` modes 'constant' and
     'symmetric' do."""
     nx = row.size
-    for p in range(ext.size):
-        x = p - rx
-        if 0 <= x < nx:
-            ext[p] = row[x]
-        else:
-            ext[p] = 0.0 if edge_code == 0 else row[_fold(x, nx)]
+    ext[rx:rx + nx] = row
+    for p in range(rx):
+        ext[p] = 0.0 if edge_code == 0 else row[_fold(p - rx, nx)]
+        ext[rx + nx + p] = 0.0 if edge_code == 0 else row[_fold(nx + p, nx)]
+
+
+STENCIL_BAND_ROWS = 128
+"""Output rows per task of the separable stencil: each task keeps the row pass of the
+2 ry + 1 rows its current output row needs in a ring (in cache), and makes the row pass of the
+2 ry rows above and below its band once more."""
 
 
 @pjit
-def _stencil_separable(d, wy, wx, edge_code, tmp, out):
+def _stencil_separable(d, wy, wx, edge_code, out):
     """``out`` = ``d`` convolved with ``outer(wy, wx)``, the field extended by the edge: a row
-    pass into ``tmp`` (same shape as ``d``), then a column pass."""
+    pass of each source row into a ring of rows, then a column pass over the ring."""
     ny, nx = d.shape
     ry = (wy.size - 1) // 2
     rx = (wx.size - 1) // 2
-    for i in prange(ny):
+    w = wy.size
+    n_bands = (ny + STENCIL_BAND_ROWS - 1) // STENCIL_BAND_ROWS
+    for band in prange(n_bands):
+        i0 = band * STENCIL_BAND_ROWS
+        i1 = min(ny, i0 + STENCIL_BAND_ROWS)
+        ring = np.empty((w, nx))
         ext = np.empty(nx + 2 * rx)
-        _extend_row(d[i], rx, edge_code, ext)
-        t = tmp[i]
-        t[:] = 0.0
-        for b in range(wx.size):
-            _axpy(t, wx[b], ext[2 * rx - b:2 * rx - b + nx])
-    for i in prange(ny):
-        o = out[i]
-        o[:] = 0.0
-        for a in range(wy.size):
-            q = _source_row(i + ry - a, ny, edge_code)
-            if q >= 0:
-                _axpy(o, wy[a], tmp[q])
+        for q in range(i0 - ry, i1 + ry):
+            src = _source_row(q, ny, edge_code)
+            if src >= 0:
+                _extend_row(d[src], rx, edge_code, ext)
+                t = ring[(q - i0 + ry) % w]
+                t[:] = 0.0
+                for b in range(wx.size):
+                    _axpy(t, wx[b], ext[2 * rx - b:2 * rx - b + nx])
+            i = q - ry  # the output row whose source rows are now all in the ring
+            if i < i0:
+                continue
+            o = out[i]
+            o[:] = 0.0
+            for a in range(w):
+                qa = i + ry - a
+                if _source_row(qa, ny, edge_code) >= 0:
+                    _axpy(o, wy[a], ring[(qa - i0 + ry) % w])
 
 
 @pjit
@@ -505,10 +519,9 @@ def _fft_valid(d, kernel: Kernel, edge_code: int) -> np.ndarray:
     return out
 
 
-def _spread(d: np.ndarray, kernel: Kernel, edge_code: int, method: str, *, out=None,
-            work=None) -> np.ndarray:
-    """Where the dispersers ``d`` land (expected numbers), into ``out`` if given (the stencils;
-    ``work``: a scratch array of ``d``'s shape for the separable one).
+def _spread(d: np.ndarray, kernel: Kernel, edge_code: int, method: str, *,
+            out=None) -> np.ndarray:
+    """Where the dispersers ``d`` land (expected numbers), into ``out`` if given (stencils).
 
     Reflecting edge: the destination off the grid is folded back (``A`` below). The kernel is
     symmetric under flipping either axis, which makes the fold operator symmetric, so the
@@ -522,8 +535,7 @@ def _spread(d: np.ndarray, kernel: Kernel, edge_code: int, method: str, *, out=N
         return _fft_valid(d, kernel, edge_code)
     out = np.empty(d.shape) if out is None else out
     if kernel.separable is not None:
-        work = np.empty(d.shape) if work is None else work
-        _stencil_separable(d, kernel.separable[0], kernel.separable[1], edge_code, work, out)
+        _stencil_separable(d, kernel.separable[0], kernel.separable[1], edge_code, out)
     else:
         _stencil_full(d, np.ascontiguousarray(kernel.stencil), edge_code, out)
     return out
@@ -537,11 +549,11 @@ def _fold_indicator(n: int, r: int) -> np.ndarray:
 
 
 def stay_share(kernel: Kernel, shape, edge: str) -> np.ndarray:
-    """Share of each cell's dispersers that land back in it, a read-only ``shape`` array (one
-    value broadcast when the edge is absorbing; per cell when reflecting: the fold brings some
-    back)."""
+    """Share of each cell's dispersers that land back in it, for a grid of ``shape``: a
+    ``shape`` array when the edge is reflecting (the fold brings some back, more near the
+    edges), else one row ``(1, nx)`` of the kernel's centre weight, which broadcasts."""
     if _edge_code(edge) == 0:
-        return np.broadcast_to(kernel.stencil[kernel.ry, kernel.rx], shape)
+        return np.full((1, shape[1]), kernel.stencil[kernel.ry, kernel.rx])
     return kernel._cached(("stay", shape), lambda: _fold_indicator(shape[0], kernel.ry)
                           @ kernel.stencil @ _fold_indicator(shape[1], kernel.rx).T)
 
@@ -558,14 +570,14 @@ def _check_method(method: str) -> None:
         raise ValueError(f"method must be 'auto', 'stencil' or 'fft', got {method!r}")
 
 
-def spread(dispersers, kernel: Kernel, edge: str, *, method: str = "auto", out=None,
-           work=None) -> np.ndarray:
+def spread(dispersers, kernel: Kernel, edge: str, *, method: str = "auto",
+           out=None) -> np.ndarray:
     """Where expected numbers of dispersers land: the ``arrivals`` of
     :func:`disperse_deterministic`, written into ``out`` by the stencils if given (float64,
-    the dispersers' shape; ``work``, the same, is scratch space for the separable stencil)."""
+    the dispersers' shape)."""
     _check_method(method)
     return _spread(_as_field(dispersers, "dispersers"), kernel, _edge_code(edge), method,
-                   out=out, work=work)
+                   out=out)
 
 
 def disperse_deterministic(dispersers, kernel: Kernel, edge: str, *, method: str = "auto"):
@@ -866,23 +878,33 @@ def _emigration_fraction(n, k, fraction, dd):
     return fraction * (n / k) ** dd
 
 
+@njit
+def leaving_row_deterministic(n, k, fraction, dd, out):
+    """Expected emigrants of one row (1-D ``n``, ``k``; written to ``out``)."""
+    for j in range(n.size):
+        out[j] = n[j] * _emigration_fraction(n[j], k[j], fraction, dd)
+
+
+@njit
+def leaving_row_stochastic(n, k, fraction, dd, key, first_cell, out):
+    """Emigrants of one row, ``Binomial(n, f)`` on ``rng.cell_key(key, first_cell + j)``."""
+    for j in range(n.size):
+        c = np.int64(n[j])
+        out[j] = 0.0 if c <= 0 else rng.binomial(
+            c, _emigration_fraction(n[j], k[j], fraction, dd), rng.cell_key(key, first_cell + j))
+
+
 @pjit
 def _leaving_deterministic_kernel(n, k, fraction, dd, out):
-    ny, nx = n.shape
-    for i in prange(ny):
-        for j in range(nx):
-            out[i, j] = n[i, j] * _emigration_fraction(n[i, j], k[i, j], fraction, dd)
+    for i in prange(n.shape[0]):
+        leaving_row_deterministic(n[i], k[i], fraction, dd, out[i])
 
 
 @pjit
 def _leaving_stochastic_kernel(n, k, fraction, dd, key, out):
-    ny, nx = n.shape
-    for i in prange(ny):
-        for j in range(nx):
-            c = np.int64(n[i, j])
-            if c > 0:
-                f = _emigration_fraction(n[i, j], k[i, j], fraction, dd)
-                out[i, j] = rng.binomial(c, f, rng.cell_key(key, i * nx + j))
+    nx = n.shape[1]
+    for i in prange(n.shape[0]):
+        leaving_row_stochastic(n[i], k[i], fraction, dd, key, i * nx, out[i])
 
 
 def _leaving_args(n, k):
