@@ -60,12 +60,12 @@ year, Brunet and Derrida 1997)."""
 
 # Crossover of the deterministic engine, measured with benchmarks/bench_dispersal.py on a
 # 2048 x 2048 grid with 1 and 2 numba threads on a shared 2-core machine (results in
-# benchmarks/results/bench_dispersal.json). The FFT costs 0.10-0.15 s per step whatever the
-# radius; the separable stencil (two 1-D passes, ~2 (2R + 1) operations per cell) costs about
-# the same at R = 16-24 cells (0.13-0.26 s), so up to R = 20, a gaussian sigma of 3.8 cells at
-# the default truncation; the full 2-D stencil (~pi R^2 per cell) only up to R = 4 (0.07-0.21 s).
-STENCIL_MAX_RADIUS_SEPARABLE = 20
-STENCIL_MAX_RADIUS = 4
+# benchmarks/results/bench_dispersal.json). The FFT costs about 0.09 s per step whatever the
+# radius; the separable stencil (two 1-D passes, ~2 (2R + 1) operations per cell) costs the same
+# near R = 40-48 cells (0.08-0.11 s), so up to R = 40, a gaussian sigma of 7.6 cells at the
+# default truncation; the full 2-D stencil (~pi R^2 per cell) up to R = 8 (0.07-0.09 s).
+STENCIL_MAX_RADIUS_SEPARABLE = 40
+STENCIL_MAX_RADIUS = 8
 
 # Stochastic engine: a cell's n dispersers are placed one by one (binary search of the kernel CDF,
 # ~log2(S) steps each, S = stencil cells with weight > 0) unless n >= MULTINOMIAL_PER_CELL * S;

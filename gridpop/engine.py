@@ -732,8 +732,8 @@ kernels, GDAL), measured with benchmarks/bench_memory.py."""
 MODEL_BYTES_PER_CELL = 56
 """The model's and landscape's per-cell arrays (capacity, initial, labels, mask, ...)."""
 REPLICATE_BYTES_PER_CELL = 120
-"""State and temporaries of one replicate's yearly cycle (population, births, deaths, noise,
-dispersal fields), per cell. With the model's arrays about 1.4 times the anonymous memory per
+"""State and temporaries of one replicate's yearly cycle (population, emigrants, arrivals,
+noise, the stochastic dispersal's landing bands), per cell. With the model's arrays about 1.4 times the anonymous memory per
 cell measured by benchmarks/bench_memory.py (128 bytes between 1024^2 and 2048^2 grids)."""
 FFT_BYTES_PER_CELL = 48
 """Per cell of the padded grid when dispersal goes through the FFT: the padded field, its
