@@ -159,23 +159,23 @@ def step_deterministic(n, k, env, out, births, deaths, model, r, s, theta, allee
         Growth rate, adult survival, theta-logistic shape and Allee density A per cell
         (0 = no Allee effect).
     """
-    er = math.exp(r)
     for i in prange(n.shape[0]):
-        _lambda_row(n[i], k[i], env[i], births[i], model, r, er, theta)
-        _split_row_deterministic(n[i], out[i], births[i], deaths[i], s, allee_a)
+        grow_row(n[i], k[i], env[i], out[i], births[i], deaths[i], model, r, s, theta, allee_a,
+                 False, np.uint64(0), np.uint64(0), 0)
 
 
 @njit
 def _split_row_stochastic(n, out, births, deaths, s, allee_a, key_survival, key_births,
-                          first_cell, survival_table):
+                          first_cell):
     """Random survivors and births of one row; ``births`` holds the multiplier on entry.
 
     A first pass, which vectorises, puts the survival probability in ``deaths``, the mean of
     the births in ``births`` and its ``exp(-mean)`` (for the Poisson inversion) in a row buffer;
     the second pass draws. Survivors of a cell with at most ``rng.BERNOULLI_MAX`` individuals
-    and survival probability s come from ``survival_table = rng.binomial_table(s)``.
+    and survival probability s come from the binomial table of s.
     """
     m = n.size
+    survival_table = rng.binomial_table(s)
     for j in range(m):
         lam = births[j]
         deaths[j] = min(s, lam)
@@ -225,11 +225,25 @@ def step_stochastic(n, k, env, out, births, deaths, model, r, s, theta, allee_a,
     """
     er = math.exp(r)
     nx = n.shape[1]
-    table = rng.binomial_table(s)
     for i in prange(n.shape[0]):
         _lambda_row(n[i], k[i], env[i], births[i], model, r, er, theta)
         _split_row_stochastic(n[i], out[i], births[i], deaths[i], s, allee_a, key_survival,
-                              key_births, i * nx, table)
+                              key_births, i * nx)
+
+
+@njit
+def grow_row(n, k, env, out, births, deaths, model, r, s, theta, allee_a, stochastic,
+             key_survival, key_births, first_cell):
+    """One year of local growth over one row (1-D arrays), as :func:`step_stochastic` (with
+    ``stochastic``; the row's first cell has flat index ``first_cell``) or
+    :func:`step_deterministic` do over a grid: the row kernel the engine's yearly cycle is
+    built from."""
+    _lambda_row(n, k, env, births, model, r, math.exp(r), theta)
+    if stochastic:
+        _split_row_stochastic(n, out, births, deaths, s, allee_a, key_survival, key_births,
+                              first_cell)
+    else:
+        _split_row_deterministic(n, out, births, deaths, s, allee_a)
 
 
 @pjit

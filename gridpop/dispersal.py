@@ -60,12 +60,12 @@ year, Brunet and Derrida 1997)."""
 
 # Crossover of the deterministic engine, measured with benchmarks/bench_dispersal.py on a
 # 2048 x 2048 grid with 1 and 2 numba threads on a shared 2-core machine (results in
-# benchmarks/results/bench_dispersal.json). The FFT costs 0.10-0.15 s per step whatever the
-# radius; the separable stencil (two 1-D passes, ~2 (2R + 1) operations per cell) costs about
-# the same at R = 16-24 cells (0.13-0.26 s), so up to R = 20, a gaussian sigma of 3.8 cells at
-# the default truncation; the full 2-D stencil (~pi R^2 per cell) only up to R = 4 (0.07-0.21 s).
-STENCIL_MAX_RADIUS_SEPARABLE = 20
-STENCIL_MAX_RADIUS = 4
+# benchmarks/results/bench_dispersal.json). The FFT costs about 0.09 s per step whatever the
+# radius; the separable stencil (two 1-D passes, ~2 (2R + 1) operations per cell) costs the same
+# near R = 40-48 cells (0.08-0.11 s), so up to R = 40, a gaussian sigma of 7.6 cells at the
+# default truncation; the full 2-D stencil (~pi R^2 per cell) up to R = 8 (0.07-0.09 s).
+STENCIL_MAX_RADIUS_SEPARABLE = 40
+STENCIL_MAX_RADIUS = 8
 
 # Stochastic engine: a cell's n dispersers are placed one by one (one uniform each through the
 # alias table, O(1) whatever the number S of stencil cells with weight > 0) unless
@@ -452,54 +452,108 @@ def _edge_code(edge) -> int:
     return EDGES[edge]
 
 
+@njit
+def _fold(g, n):
+    """Mirror a coordinate back into 0..n-1 (reflecting edge), repeatedly if needed."""
+    m = g % (2 * n)
+    if m < n:
+        return m
+    return 2 * n - 1 - m
+
+
+@njit
+def _axpy(dst, w, src):
+    """``dst += w * src`` over two equal-length contiguous rows (a loop LLVM vectorises)."""
+    for j in range(dst.size):
+        dst[j] += w * src[j]
+
+
+@njit
+def _source_row(q, n, edge_code):
+    """Grid row of padded-row index ``q - r`` (the stencil reaching row ``q`` of the field
+    extended by the edge): the row itself inside the grid; off the grid -1 (absorbing) or the
+    mirrored row (reflecting)."""
+    if 0 <= q < n:
+        return q
+    return -1 if edge_code == 0 else _fold(q, n)
+
+
+@njit
+def _extend_row(row, rx, edge_code, ext):
+    """``ext`` = ``row`` with ``rx`` cells beyond each end: zeros (absorbing) or the mirror
+    images, repeated if ``rx`` exceeds the row (reflecting), as ``np.pad`` modes 'constant' and
+    'symmetric' do."""
+    nx = row.size
+    ext[rx:rx + nx] = row
+    for p in range(rx):
+        ext[p] = 0.0 if edge_code == 0 else row[_fold(p - rx, nx)]
+        ext[rx + nx + p] = 0.0 if edge_code == 0 else row[_fold(nx + p, nx)]
+
+
+STENCIL_BAND_ROWS = 128
+"""Output rows per task of the separable stencil: each task keeps the row pass of the
+2 ry + 1 rows its current output row needs in a ring (in cache), and makes the row pass of the
+2 ry rows above and below its band once more."""
+
+
 @pjit
-def _stencil_separable(padded, wy, wx, out):
-    """Valid convolution of a padded field with outer(wy, wx): a row pass, then a column pass."""
-    ny, nx = out.shape
+def _stencil_separable(d, wy, wx, edge_code, out):
+    """``out`` = ``d`` convolved with ``outer(wy, wx)``, the field extended by the edge: a row
+    pass of each source row into a ring of rows, then a column pass over the ring."""
+    ny, nx = d.shape
     ry = (wy.size - 1) // 2
     rx = (wx.size - 1) // 2
-    tmp = np.zeros((padded.shape[0], nx))
-    for i in prange(padded.shape[0]):
-        src = padded[i]
-        t = tmp[i]
-        for b in range(wx.size):
-            wv = wx[b]
-            off = 2 * rx - b
-            for j in range(nx):
-                t[j] += wv * src[j + off]
-    for i in prange(ny):
-        o = out[i]
-        o[:] = 0.0
-        for a in range(wy.size):
-            wv = wy[a]
-            t = tmp[i + 2 * ry - a]
-            for j in range(nx):
-                o[j] += wv * t[j]
+    w = wy.size
+    n_bands = (ny + STENCIL_BAND_ROWS - 1) // STENCIL_BAND_ROWS
+    for band in prange(n_bands):
+        i0 = band * STENCIL_BAND_ROWS
+        i1 = min(ny, i0 + STENCIL_BAND_ROWS)
+        ring = np.empty((w, nx))
+        ext = np.empty(nx + 2 * rx)
+        for q in range(i0 - ry, i1 + ry):
+            src = _source_row(q, ny, edge_code)
+            if src >= 0:
+                _extend_row(d[src], rx, edge_code, ext)
+                t = ring[(q - i0 + ry) % w]
+                t[:] = 0.0
+                for b in range(wx.size):
+                    _axpy(t, wx[b], ext[2 * rx - b:2 * rx - b + nx])
+            i = q - ry  # the output row whose source rows are now all in the ring
+            if i < i0:
+                continue
+            o = out[i]
+            o[:] = 0.0
+            for a in range(w):
+                qa = i + ry - a
+                if _source_row(qa, ny, edge_code) >= 0:
+                    _axpy(o, wy[a], ring[(qa - i0 + ry) % w])
 
 
 @pjit
-def _stencil_full(padded, w, out):
-    """Valid convolution of a padded field with a (2ry+1, 2rx+1) stencil."""
-    ny, nx = out.shape
+def _stencil_full(d, w, edge_code, out):
+    """``out`` = ``d`` convolved with the (2ry+1, 2rx+1) stencil ``w``, the field extended by
+    the edge."""
+    ny, nx = d.shape
     ry = (w.shape[0] - 1) // 2
     rx = (w.shape[1] - 1) // 2
     for i in prange(ny):
+        ext = np.empty(nx + 2 * rx)
         o = out[i]
         o[:] = 0.0
         for a in range(w.shape[0]):
-            src = padded[i + 2 * ry - a]
+            q = _source_row(i + ry - a, ny, edge_code)
+            if q < 0:
+                continue
+            _extend_row(d[q], rx, edge_code, ext)
             for b in range(w.shape[1]):
-                wv = w[a, b]
-                if wv == 0.0:
-                    continue
-                off = 2 * rx - b
-                for j in range(nx):
-                    o[j] += wv * src[j + off]
+                if w[a, b] != 0.0:
+                    _axpy(o, w[a, b], ext[2 * rx - b:2 * rx - b + nx])
 
 
-def _fft_valid(padded, kernel: Kernel, shape) -> np.ndarray:
-    ny, nx = shape
+def _fft_valid(d, kernel: Kernel, edge_code: int) -> np.ndarray:
+    ny, nx = d.shape
     ry, rx = kernel.ry, kernel.rx
+    padded = np.pad(d, ((ry, ry), (rx, rx)), mode="constant" if edge_code == 0 else "symmetric")
     s = (sfft.next_fast_len(padded.shape[0], real=True),
          sfft.next_fast_len(padded.shape[1], real=True))
     workers = numba.get_num_threads()
@@ -510,27 +564,25 @@ def _fft_valid(padded, kernel: Kernel, shape) -> np.ndarray:
     return out
 
 
-def _spread(d: np.ndarray, kernel: Kernel, edge_code: int, method: str) -> np.ndarray:
-    """Where the dispersers ``d`` land (expected numbers).
+def _spread(d: np.ndarray, kernel: Kernel, edge_code: int, method: str, *,
+            out=None) -> np.ndarray:
+    """Where the dispersers ``d`` land (expected numbers), into ``out`` if given (stencils).
 
     Reflecting edge: the destination off the grid is folded back (``A`` below). The kernel is
     symmetric under flipping either axis, which makes the fold operator symmetric, so the
-    forward scatter ``A d`` equals the gather over the mirror-padded field (``np.pad`` mode
+    forward scatter ``A d`` equals the gather over the mirror-extended field (``np.pad`` mode
     'symmetric', repeated when the kernel reaches beyond the grid), a plain valid convolution.
     """
-    ry, rx = kernel.ry, kernel.rx
-    mode = "constant" if edge_code == 0 else "symmetric"
-    padded = np.pad(d, ((ry, ry), (rx, rx)), mode=mode)
     if method == "auto":
         limit = STENCIL_MAX_RADIUS_SEPARABLE if kernel.separable else STENCIL_MAX_RADIUS
         method = "stencil" if kernel.radius <= limit else "fft"
     if method == "fft":
-        return _fft_valid(padded, kernel, d.shape)
-    out = np.empty(d.shape)
+        return _fft_valid(d, kernel, edge_code)
+    out = np.empty(d.shape) if out is None else out
     if kernel.separable is not None:
-        _stencil_separable(padded, kernel.separable[0], kernel.separable[1], out)
+        _stencil_separable(d, kernel.separable[0], kernel.separable[1], edge_code, out)
     else:
-        _stencil_full(padded, np.ascontiguousarray(kernel.stencil), out)
+        _stencil_full(d, np.ascontiguousarray(kernel.stencil), edge_code, out)
     return out
 
 
@@ -541,10 +593,12 @@ def _fold_indicator(n: int, r: int) -> np.ndarray:
     return (np.where(m < n, m, 2 * n - 1 - m) == np.arange(n)[:, None]).astype(np.float64)
 
 
-def _stay_fraction(kernel: Kernel, shape, edge_code: int):
-    """Fraction of a cell's dispersers that land back in it (per cell when reflecting)."""
-    if edge_code == 0:
-        return kernel.stencil[kernel.ry, kernel.rx]
+def stay_share(kernel: Kernel, shape, edge: str) -> np.ndarray:
+    """Share of each cell's dispersers that land back in it, for a grid of ``shape``: a
+    ``shape`` array when the edge is reflecting (the fold brings some back, more near the
+    edges), else one row ``(1, nx)`` of the kernel's centre weight, which broadcasts."""
+    if _edge_code(edge) == 0:
+        return np.full((1, shape[1]), kernel.stencil[kernel.ry, kernel.rx])
     return kernel._cached(("stay", shape), lambda: _fold_indicator(shape[0], kernel.ry)
                           @ kernel.stencil @ _fold_indicator(shape[1], kernel.rx).T)
 
@@ -559,6 +613,16 @@ def _as_field(a, name: str) -> np.ndarray:
 def _check_method(method: str) -> None:
     if method not in ("auto", "stencil", "fft"):
         raise ValueError(f"method must be 'auto', 'stencil' or 'fft', got {method!r}")
+
+
+def spread(dispersers, kernel: Kernel, edge: str, *, method: str = "auto",
+           out=None) -> np.ndarray:
+    """Where expected numbers of dispersers land: the ``arrivals`` of
+    :func:`disperse_deterministic`, written into ``out`` by the stencils if given (float64,
+    the dispersers' shape)."""
+    _check_method(method)
+    return _spread(_as_field(dispersers, "dispersers"), kernel, _edge_code(edge), method,
+                   out=out)
 
 
 def disperse_deterministic(dispersers, kernel: Kernel, edge: str, *, method: str = "auto"):
@@ -584,10 +648,8 @@ def disperse_deterministic(dispersers, kernel: Kernel, edge: str, *, method: str
     stayed : (ny, nx) ndarray of float64
         The part of each cell's dispersers that landed back in the same cell.
     """
-    _check_method(method)
     d = _as_field(dispersers, "dispersers")
-    code = _edge_code(edge)
-    return _spread(d, kernel, code, method), d * _stay_fraction(kernel, d.shape, code)
+    return spread(d, kernel, edge, method=method), d * stay_share(kernel, d.shape, edge)
 
 
 @dataclass(frozen=True, eq=False)
@@ -909,12 +971,11 @@ def _emigration_fraction(n, k, fraction, dd):
     return fraction * (n / k) ** dd
 
 
-@pjit
-def _leaving_deterministic_kernel(n, k, fraction, dd, out):
-    ny, nx = n.shape
-    for i in prange(ny):
-        for j in range(nx):
-            out[i, j] = n[i, j] * _emigration_fraction(n[i, j], k[i, j], fraction, dd)
+@njit
+def leaving_row_deterministic(n, k, fraction, dd, out):
+    """Expected emigrants of one row (1-D ``n``, ``k``; written to ``out``)."""
+    for j in range(n.size):
+        out[j] = n[j] * _emigration_fraction(n[j], k[j], fraction, dd)
 
 
 @njit
@@ -926,17 +987,29 @@ def _binomial_or_table(c, p, p_table, table, ckey):
     return rng.binomial(c, p, ckey)
 
 
+@njit
+def leaving_row_stochastic(n, k, fraction, dd, key, first_cell, out):
+    """Emigrants of one row, ``Binomial(n, f)`` on ``rng.cell_key(key, first_cell + j)``; cells
+    that lose the plain fraction draw from its binomial table."""
+    table = rng.binomial_table(fraction)
+    for j in range(n.size):
+        c = np.int64(n[j])
+        out[j] = 0.0 if c <= 0 else _binomial_or_table(
+            c, _emigration_fraction(n[j], k[j], fraction, dd), fraction, table,
+            rng.cell_key(key, first_cell + j))
+
+
+@pjit
+def _leaving_deterministic_kernel(n, k, fraction, dd, out):
+    for i in prange(n.shape[0]):
+        leaving_row_deterministic(n[i], k[i], fraction, dd, out[i])
+
+
 @pjit
 def _leaving_stochastic_kernel(n, k, fraction, dd, key, out):
-    ny, nx = n.shape
-    table = rng.binomial_table(fraction)
-    for i in prange(ny):
-        for j in range(nx):
-            c = np.int64(n[i, j])
-            if c > 0:
-                f = _emigration_fraction(n[i, j], k[i, j], fraction, dd)
-                out[i, j] = _binomial_or_table(c, f, fraction, table,
-                                               rng.cell_key(key, i * nx + j))
+    nx = n.shape[1]
+    for i in prange(n.shape[0]):
+        leaving_row_stochastic(n[i], k[i], fraction, dd, key, i * nx, out[i])
 
 
 def _leaving_args(n, k):
@@ -947,14 +1020,15 @@ def _leaving_args(n, k):
     return n, k
 
 
-def leaving_deterministic(n, k, fraction: float, density_dependence: float) -> np.ndarray:
+def leaving_deterministic(n, k, fraction: float, density_dependence: float, *,
+                          out=None) -> np.ndarray:
     """Expected emigrants per cell: ``n * fraction * min(1, n / k) ** density_dependence``.
 
     Cells with ``k <= 0``, and every cell when ``density_dependence == 0``, lose the plain
-    ``fraction``.
+    ``fraction``. Written into ``out`` (float64, ``n``'s shape) if given.
     """
     n, k = _leaving_args(n, k)
-    out = np.empty(n.shape)
+    out = np.empty(n.shape) if out is None else out
     _leaving_deterministic_kernel(n, k, float(fraction), float(density_dependence), out)
     return out
 

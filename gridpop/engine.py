@@ -45,18 +45,19 @@ from scipy import ndimage
 from . import __version__, rng
 from ._jit import njit, pjit, prange
 from .actions import Actions, apply_actions
-from .demography import MODELS, EnvironmentalNoise, step_deterministic, step_stochastic
+from .demography import MODELS, EnvironmentalNoise, grow_row
 from .dispersal import (
     STENCIL_MAX_RADIUS,
     STENCIL_MAX_RADIUS_SEPARABLE,
     Kernel,
     disperse_deterministic,
     disperse_stochastic,
-    leaving_deterministic,
-    leaving_stochastic,
+    leaving_row_deterministic,
+    leaving_row_stochastic,
     make_kernel,
-    patch_retention_deterministic,
     settle_fields,
+    spread,
+    stay_share,
     thin,
 )
 from .disturbance import Regime, build_regime
@@ -217,74 +218,139 @@ def _walk_surface(scenario, landscape: Landscape, actions: Actions) -> Walk:
 
 
 N_CHUNKS = 64  # fixed row chunking of reductions: sums do not depend on the thread count
+N_SUMS = 6  # fields per patch in the partial sums of _grow and _count
+
+
+def _patch_totals(part: np.ndarray) -> np.ndarray:
+    """(n_patches + 1, N_SUMS) sums from the chunk partials of :func:`_grow` or
+    :func:`_count`: chunks added in order, row 0 the whole landscape (the patches and the cells
+    of no patch, which the kernels keep in a last row)."""
+    s = part.sum(axis=0)
+    s[0] = s.sum(axis=0)
+    return s[:-1]
+
+
+@njit
+def _row_of(a, i):
+    """Row ``i`` of a field, or its only row: a (1, nx) array stands for a uniform field."""
+    return a[i] if a.shape[0] > 1 else a[0]
+
+
+@njit
+def _run_sums(part, c, labels, n_patches, x0, x1, x2, x3, x4, x5):
+    """Add the sums of six 1-D fields over one row to ``part[c, patch]`` (patch index
+    ``n_patches + 1`` for the cells of no patch). Each run of one patch along the row is summed
+    in registers and added once; the six sums are independent chains, so one pass costs about
+    what one field would."""
+    run = labels[0]
+    r0 = r1 = r2 = r3 = r4 = r5 = 0.0
+    for j in range(labels.size):
+        p = labels[j]
+        if p != run:
+            _add_run(part, c, run if run > 0 else n_patches + 1, r0, r1, r2, r3, r4, r5)
+            run = p
+            r0 = r1 = r2 = r3 = r4 = r5 = 0.0
+        r0 += x0[j]
+        r1 += x1[j]
+        r2 += x2[j]
+        r3 += x3[j]
+        r4 += x4[j]
+        r5 += x5[j]
+    _add_run(part, c, run if run > 0 else n_patches + 1, r0, r1, r2, r3, r4, r5)
+
+
+@njit
+def _add_run(part, c, q, r0, r1, r2, r3, r4, r5):
+    part[c, q, 0] += r0
+    part[c, q, 1] += r1
+    part[c, q, 2] += r2
+    part[c, q, 3] += r3
+    part[c, q, 4] += r4
+    part[c, q, 5] += r5
 
 
 @pjit
-def _census(labels, n_patches, n, births, deaths, dist_deaths, threshold, ever,
-            sum_n, occupied, ever_count):
-    """Per-patch sums of the census fields and the per-cell accumulators of one year.
+def _grow(labels, n_patches, n, k, env, out, leaving, model, r, s, theta, allee_a, stochastic,
+          fraction, dd, keys, share, own, anywhere):
+    """Local growth of every cell, then emigration: ``out`` gets the residents (grown minus
+    emigrants), ``leaving`` the emigrants (zero when ``fraction == 0``).
 
-    Returns (n_chunks, n_patches + 1, 5) partial sums of abundance, births, deaths, disturbance
-    deaths and occupied cells (index 0: all cells); the caller adds chunks in order.
+    ``env``: the year's environmental field, or (1, nx) for a uniform one. ``keys``: year keys
+    of survival, births and emigration (stochastic). When ``own`` is not empty (expected
+    kernel dispersal, :func:`gridpop.dispersal.settle_fields`), the emigrants are also summed
+    weighted by ``share`` (of them landing back home, where ``k > 0``; (1, nx) when uniform),
+    by ``own`` and by ``anywhere``: the stayers, those that settle in their own patch and those
+    that settle.
+
+    Returns (n_chunks, n_patches + 2, N_SUMS) partial sums per chunk of rows and patch (row 0
+    unused, the last row the cells of no patch; :func:`_patch_totals` adds them up) of births,
+    deaths, emigrants and the three weighted sums.
     """
     ny, nx = n.shape
     rows = (ny + N_CHUNKS - 1) // N_CHUNKS
-    part = np.zeros((N_CHUNKS, n_patches + 1, 5))
+    part = np.zeros((N_CHUNKS, n_patches + 2, N_SUMS))
+    weighted = own.shape[0] > 0
     for c in prange(N_CHUNKS):
+        births, deaths = np.empty(nx), np.empty(nx)
+        home, mine, anyw = np.zeros(nx), np.zeros(nx), np.zeros(nx)
         for i in range(c * rows, min(ny, (c + 1) * rows)):
+            o, lv, ki = out[i], leaving[i], k[i]
+            grow_row(n[i], ki, _row_of(env, i), o, births, deaths, model, r, s, theta, allee_a,
+                     stochastic, keys[0], keys[1], i * nx)
+            if fraction == 0.0:
+                lv[:] = 0.0
+            elif stochastic:
+                leaving_row_stochastic(o, ki, fraction, dd, keys[2], i * nx, lv)
+            else:
+                leaving_row_deterministic(o, ki, fraction, dd, lv)
             for j in range(nx):
-                v = n[i, j]
-                occ = 1 if v >= threshold else 0
-                if occ:
-                    ever[i, j] = 1
-                sum_n[i, j] += v
-                occupied[i, j] += occ
-                ever_count[i, j] += ever[i, j]
-                b = births[i, j]
-                dd = deaths[i, j]
-                xd = dist_deaths[i, j]
-                if v == 0.0 and b == 0.0 and dd == 0.0 and xd == 0.0:
-                    continue
-                _add5(part, c, 0, v, b, dd, xd, occ)
-                p = labels[i, j]
-                if p > 0:
-                    _add5(part, c, p, v, b, dd, xd, occ)
+                o[j] -= lv[j]
+            if weighted:
+                sh, ow, an = _row_of(share, i), own[i], anywhere[i]
+                for j in range(nx):
+                    home[j] = lv[j] * sh[j] if ki[j] > 0.0 else 0.0
+                    mine[j] = lv[j] * ow[j]
+                    anyw[j] = lv[j] * an[j]
+            _run_sums(part, c, labels[i], n_patches, births, deaths, lv, home, mine, anyw)
     return part
 
 
-@njit
-def _add5(part, c, q, v, b, dd, xd, occ):
-    part[c, q, 0] += v
-    part[c, q, 1] += b
-    part[c, q, 2] += dd
-    part[c, q, 3] += xd
-    part[c, q, 4] += occ
+@pjit
+def _count(labels, n_patches, k, n, arrivals, stayed, dist_deaths, threshold, ever, sum_n,
+           occupied, ever_count):
+    """Settle the year's arrivals, then take the census.
 
+    ``n`` holds the residents on entry and the census abundance on return: ``n + arrivals``
+    where capacity ``k > 0`` (arrivals elsewhere are lost). ``arrivals``, ``stayed`` (the
+    dispersers that landed back home) and ``dist_deaths`` (the year's disturbance deaths) may
+    be (1, nx) zeros. Adds this year's per-cell abundance, occupancy and ever-occupied to the
+    accumulators (``ever``: this replicate's cells occupied so far).
 
-@njit
-def _settle(labels, k, n, leaving, arrivals, stayed, out_p, in_p):
-    """Apply one year's movement in place: ``n <- n - leaving + arrivals`` where capacity
-    ``k > 0`` (arrivals elsewhere are lost). Adds the dispersers (``out_p``) and settlers
-    (``in_p``) of each patch (index 0: all cells) and returns the settled stayers, in one
-    row-major pass (the same order for any thread count)."""
+    Returns partial sums as :func:`_grow` does, of abundance, disturbance deaths, occupied
+    cells, settled arrivals and settled stayers (the last field is 0).
+    """
     ny, nx = n.shape
-    stay = 0.0
-    for i in range(ny):
-        for j in range(nx):
-            lv = leaving[i, j]
-            a = arrivals[i, j] if k[i, j] > 0.0 else 0.0
-            if lv == 0.0 and a == 0.0:
-                continue
-            if k[i, j] > 0.0:
-                stay += stayed[i, j]
-            n[i, j] = (n[i, j] - lv) + a
-            out_p[0] += lv
-            in_p[0] += a
-            p = labels[i, j]
-            if p > 0:
-                out_p[p] += lv
-                in_p[p] += a
-    return stay
+    rows = (ny + N_CHUNKS - 1) // N_CHUNKS
+    part = np.zeros((N_CHUNKS, n_patches + 2, N_SUMS))
+    for c in prange(N_CHUNKS):
+        occ, settled, home, zero = np.empty(nx), np.empty(nx), np.empty(nx), np.zeros(nx)
+        for i in range(c * rows, min(ny, (c + 1) * rows)):
+            v, ki, e, sn, oc, ec = n[i], k[i], ever[i], sum_n[i], occupied[i], ever_count[i]
+            a, st = _row_of(arrivals, i), _row_of(stayed, i)
+            for j in range(nx):
+                here = ki[j] > 0.0
+                settled[j] = a[j] if here else 0.0
+                home[j] = st[j] if here else 0.0
+                v[j] += settled[j]
+                hit = v[j] >= threshold
+                e[j] = 1 if hit or e[j] else 0
+                occ[j] = 1.0 if hit else 0.0
+                sn[j] += v[j]
+                oc[j] += 1 if hit else 0
+                ec[j] += e[j]
+            _run_sums(part, c, labels[i], n_patches, v, _row_of(dist_deaths, i), occ, settled,
+                      home, zero)
+    return part
 
 
 class BatchSink:
@@ -323,8 +389,9 @@ class BatchSink:
 class Replicate:
     """One replicate's state and the yearly cycle that advances it (see the module docstring).
 
-    ``advance(t)`` moves the population from census year ``t - 1`` to census year ``t`` and
-    writes ledger row ``t``. The random numbers of that transition are those of year ``t - 1``.
+    ``start(sink)`` takes the census of year 0; ``advance(t, sink)`` moves the population from
+    census year ``t - 1`` to census year ``t``, takes that census and writes ledger row ``t``.
+    The random numbers of that transition are those of year ``t - 1``.
     """
 
     def __init__(self, model: Model, replicate: int, ledger: np.ndarray):
@@ -332,19 +399,22 @@ class Replicate:
         shape = model.capacity.shape
         self.n = model.initial.copy()
         self._out = np.empty(shape)
-        self.births = np.zeros(shape)
-        self.deaths = np.zeros(shape)
-        self.dist_deaths = np.zeros(shape)
+        self._leaving = np.zeros(shape)
+        self._uniform = np.zeros((1, shape[1]))  # a field of zeros (see _row_of)
         self.ever = np.zeros(shape, np.uint8)
-        self._zeros = np.zeros(shape)
+        self._work = {}  # scratch arrays of the dispersal step, reused from year to year
         self._env_state = None
         self._dist_state = model.regime.start() if model.regime is not None else None
         self.effects = None  # the last year's disturbance effects
         self.visits = np.zeros(shape) if model.walk is not None else None  # the year's flow
 
-    def advance(self, t: int) -> None:
+    def start(self, sink: BatchSink) -> None:
+        self._census(0, sink, self.model.capacity, self._uniform, self._uniform,
+                     self._uniform)
+
+    def advance(self, t: int, sink: BatchSink) -> None:
         m, year = self.model, t - 1
-        env = self._zeros
+        env = dist_deaths = self._uniform
         if m.env is not None:
             env, self._env_state = m.env.draw(m.seed, self.replicate, year, self._env_state)
         k = m.actions.capacity_for_year(year)
@@ -352,36 +422,57 @@ class Replicate:
             self.effects = m.regime.apply(self._dist_state, self.n, k, seed=m.seed,
                                           replicate=self.replicate, year=year,
                                           stochastic=m.stochastic)
-            self.dist_deaths = self.effects.deaths
+            dist_deaths = self.effects.deaths
             k = self.effects.capacity
-        if m.stochastic:
-            step_stochastic(self.n, k, env, self._out, self.births, self.deaths, m.model_code,
-                            m.rate, m.survival, m.theta, m.allee_cells,
-                            _key(m, self.replicate, year, rng.STREAM_SURVIVAL),
-                            _key(m, self.replicate, year, rng.STREAM_BIRTHS))
-        else:
-            step_deterministic(self.n, k, env, self._out, self.births, self.deaths,
-                               m.model_code, m.rate, m.survival, m.theta, m.allee_cells)
+        moves = m.kernel is not None or m.walk is not None
+        expected = moves and not m.stochastic and m.walk is None and m.regions is None
+        share = own = anywhere = _NO_FIELD
+        if expected:
+            fields = _settle_fields(m, k)
+            share = stay_share(m.kernel, k.shape, m.edge)
+            own, anywhere = fields.own, fields.anywhere
+        keys = np.array([_key(m, self.replicate, year, stream) for stream in
+                         (rng.STREAM_SURVIVAL, rng.STREAM_BIRTHS, rng.STREAM_EMIGRATION)],
+                        np.uint64)
+        g = _patch_totals(_grow(m.labels, m.n_patches, self.n, k, env, self._out,
+                                self._leaving, m.model_code, m.rate, m.survival, m.theta,
+                                m.allee_cells, m.stochastic, m.fraction if moves else 0.0,
+                                m.density_dependence, keys, share, own, anywhere))
         self.n, self._out = self._out, self.n
         row = self.ledger[t]
-        row[:, F_EMIG:F_LOSS + 1] = 0.0
-        if m.kernel is not None or m.walk is not None:
+        row[:, F_BIRTHS] = g[:, 0]
+        row[:, F_DEATHS] = g[:, 1]
+        arrivals = stayed = self._uniform
+        if moves:
             if self.visits is not None:
                 self.visits[:] = 0.0
-            _disperse(m, self.replicate, year, self.n, k, row, self.visits)
+            arrivals, stayed, retained, settled_from = _disperse(
+                m, self.replicate, year, self._leaving, k, self.visits, self._work)
+        c = self._census(t, sink, k, arrivals, stayed, dist_deaths)
+        if moves:
+            out_p, in_p, stay = g[:, 2], c[:, 3], c[0, 4]
+            if expected:
+                stay, retained, settled_from = g[0, 3], g[:, 4].copy(), g[:, 5].copy()
+                retained[0] = settled_from[0] = 0.0
+            row[:, F_EMIG] = out_p - retained
+            row[:, F_IMMIG] = in_p - retained
+            row[:, F_LOSS] = out_p - settled_from
+            row[0, F_EMIG] = out_p[0] - stay
+            row[0, F_IMMIG] = in_p[0] - stay
+            row[0, F_LOSS] = out_p[0] - in_p[0]
 
-    def census(self, t: int, sink: BatchSink) -> None:
+    def _census(self, t: int, sink: BatchSink, k, arrivals, stayed, dist_deaths) -> np.ndarray:
+        """Settle the arrivals, take the census of year ``t`` into ``sink`` and the ledger;
+        returns the patch totals of :func:`_count`."""
         m = self.model
-        part = _census(m.labels, m.n_patches, self.n, self.births, self.deaths,
-                       self.dist_deaths, m.occupancy_threshold, self.ever,
-                       sink.acc["sum_n"][t], sink.acc["occupied"][t], sink.acc["ever"][t])
-        s = part.sum(axis=0)
+        s = _patch_totals(_count(m.labels, m.n_patches, k, self.n, arrivals, stayed,
+                                 dist_deaths, m.occupancy_threshold, self.ever,
+                                 sink.acc["sum_n"][t], sink.acc["occupied"][t],
+                                 sink.acc["ever"][t]))
         row = self.ledger[t]
         row[:, F_ABUND] = s[:, 0]
-        row[:, F_BIRTHS] = s[:, 1]
-        row[:, F_DEATHS] = s[:, 2]
-        row[:, F_DIST] = s[:, 3]
-        row[:, F_OCC] = s[:, 4]
+        row[:, F_DIST] = s[:, 1]
+        row[:, F_OCC] = s[:, 2]
         if self.visits is not None and t > 0:
             sink.acc["visits"][t] += self.visits
         if m.targets is not None:
@@ -392,71 +483,73 @@ class Replicate:
                 if hit is not None:
                     sink.acc[f"n_{kind}"][t] += hit
             sink.events += [(self.replicate, t, *e) for e in eff.events]
+        return s
 
 
 def simulate_replicate(model: Model, replicate: int, sink: BatchSink, row: int) -> None:
     """Run one replicate through all years, adding its results to ``sink`` at ledger ``row``."""
     rep = Replicate(model, replicate, sink.ledger[row])
-    rep.census(0, sink)
+    rep.start(sink)
     for t in range(1, model.years + 1):
-        rep.advance(t)
-        rep.census(t, sink)
+        rep.advance(t, sink)
 
 
 def _key(model: Model, replicate: int, year: int, stream: int) -> np.uint64:
     return np.uint64(rng.year_key(model.seed, replicate, year, stream))
 
 
-def _disperse(model: Model, replicate: int, year: int, n: np.ndarray, k: np.ndarray,
-              row: np.ndarray, visits: np.ndarray | None) -> None:
-    """Move dispersers in place in ``n`` and write the movement columns of one ledger row.
+def _disperse(model: Model, replicate: int, year: int, leaving: np.ndarray, k: np.ndarray,
+              visits: np.ndarray | None, work: dict):
+    """Where the year's emigrants ``leaving`` land: ``(arrivals, stayed, retained,
+    settled_from)``, anywhere (:func:`_count` settles those where capacity ``k > 0``).
 
-    Dispersers settle only where the capacity of the year ``k`` is positive; the rest are lost.
-    Per patch: emigrants left the patch, immigrants settled in it from outside, losses are its
-    dispersers that settled nowhere. For the landscape: emigrants left their cell, immigrants
-    settled in another cell, losses settled nowhere (emigrants = immigrants + losses).
+    ``stayed``: those that landed back in their own cell. Per patch (index 0 unused):
+    ``retained`` settled in their own patch, ``settled_from`` settled anywhere; for expected
+    kernel dispersal ``stayed`` is (1, nx) zeros and the last two None (:func:`_grow` counts
+    them). ``work`` holds the replicate's scratch arrays.
     """
-    settle = k > 0
     m = model
-    if m.stochastic:
-        leaving = leaving_stochastic(n, k, m.fraction, m.density_dependence,
-                                     _key(m, replicate, year, rng.STREAM_EMIGRATION))
-    else:
-        leaving = leaving_deterministic(n, k, m.fraction, m.density_dependence)
     if m.walk is not None:
         res = m.walk.disperse(leaving, k, m.labels, m.n_patches, m.stochastic,
                               _key(m, replicate, year, rng.STREAM_WALK))
-        arrivals, stayed, retained, settled_from = res[:4]
         visits += res.visits
-    elif m.regions is None:
-        arrivals, stayed, retained, settled_from = _kernel_step(m, leaving, settle, replicate,
-                                                                year)
-    else:
-        arrivals, stayed, retained, settled_from = _kernel_step_with_barriers(
-            m, leaving, settle, replicate, year)
-    out_p = np.zeros(m.n_patches + 1)
-    in_p = np.zeros(m.n_patches + 1)
-    stay = _settle(m.labels, k, n, leaving, arrivals, stayed, out_p, in_p)
-    row[:, F_EMIG] = out_p - retained
-    row[:, F_IMMIG] = in_p - retained
-    row[:, F_LOSS] = out_p - settled_from
-    row[0, F_EMIG] = out_p[0] - stay
-    row[0, F_IMMIG] = in_p[0] - stay
-    row[0, F_LOSS] = out_p[0] - in_p[0]
+        return res[:4]
+    if m.regions is not None:
+        return _kernel_step_with_barriers(m, leaving, k > 0, replicate, year)
+    if m.stochastic:
+        return disperse_stochastic(leaving, k > 0, m.labels, m.n_patches, m.kernel, m.edge,
+                                   _key(m, replicate, year, rng.STREAM_DISPERSAL))
+    arrivals = spread(leaving, m.kernel, m.edge, out=_scratch(work, "arrivals", k.shape))
+    return arrivals, np.zeros((1, k.shape[1])), None, None
 
 
-def _kernel_step(m: Model, leaving, settle, replicate, year):
-    """Kernel dispersal of ``leaving``: (arrivals, stayed, retained, settled_from)."""
+def _settle_fields(m: Model, k: np.ndarray):
+    """:func:`gridpop.dispersal.settle_fields` where capacity ``k > 0``, kept while that does
+    not change (``k`` is the same array, or has the same cells of positive capacity)."""
+    cached = m.cache.get("settle_fields")
+    if cached is None or (cached[0] is not k and not np.array_equal(cached[1].settle, k > 0)):
+        cached = m.cache["settle_fields"] = (k, settle_fields(m.labels, k > 0, m.kernel, m.edge))
+    return cached[1]
+
+
+_NO_FIELD = np.empty((0, 0))
+"""``share``, ``own`` and ``anywhere`` of :func:`_grow` when it does not count retention."""
+
+
+def _scratch(work: dict, name: str, shape) -> np.ndarray:
+    """The float64 scratch array ``name`` of ``shape`` in ``work``, made on first use."""
+    a = work.get(name)
+    if a is None:
+        a = work[name] = np.empty(shape)
+    return a
+
+
+def _kernel_spread(m: Model, leaving, settle, replicate, year):
+    """Kernel dispersal of ``leaving``: (arrivals, stayed), fresh arrays."""
     if m.stochastic:
         return disperse_stochastic(leaving, settle, m.labels, m.n_patches, m.kernel, m.edge,
-                                   _key(m, replicate, year, rng.STREAM_DISPERSAL))
-    arrivals, stayed = disperse_deterministic(leaving, m.kernel, m.edge)
-    fields = m.cache.get("settle_fields")
-    if fields is None or not np.array_equal(fields.settle, settle):
-        fields = m.cache["settle_fields"] = settle_fields(m.labels, settle, m.kernel, m.edge)
-    retained, settled_from = patch_retention_deterministic(leaving, m.labels, settle, m.kernel,
-                                                           m.edge, m.n_patches, fields=fields)
-    return arrivals, stayed, retained, settled_from
+                                   _key(m, replicate, year, rng.STREAM_DISPERSAL))[:2]
+    return disperse_deterministic(leaving, m.kernel, m.edge)
 
 
 def _kernel_step_with_barriers(m: Model, leaving, settle, replicate, year):
@@ -481,7 +574,7 @@ def _kernel_step_with_barriers(m: Model, leaving, settle, replicate, year):
             continue  # no one disperses from a barrier cell: see build_model
         inside = m.regions == r
         src = np.where(group == g, leaving, 0.0)
-        arr, st = _kernel_step(m, src, settle & inside, replicate, year)[:2]
+        arr, st = _kernel_spread(m, src, settle & inside, replicate, year)
         crossed = np.where(inside, 0.0, arr)
         kept = (thin(crossed, m.crossing_survival, key, int(g)) if m.stochastic
                 else crossed * m.crossing_survival)
@@ -639,8 +732,8 @@ kernels, GDAL), measured with benchmarks/bench_memory.py."""
 MODEL_BYTES_PER_CELL = 56
 """The model's and landscape's per-cell arrays (capacity, initial, labels, mask, ...)."""
 REPLICATE_BYTES_PER_CELL = 120
-"""State and temporaries of one replicate's yearly cycle (population, births, deaths, noise,
-dispersal fields), per cell. With the model's arrays about 1.4 times the anonymous memory per
+"""State and temporaries of one replicate's yearly cycle (population, emigrants, arrivals,
+noise, the stochastic dispersal's landing bands), per cell. With the model's arrays about 1.4 times the anonymous memory per
 cell measured by benchmarks/bench_memory.py (128 bytes between 1024^2 and 2048^2 grids)."""
 FFT_BYTES_PER_CELL = 48
 """Per cell of the padded grid when dispersal goes through the FFT: the padded field, its

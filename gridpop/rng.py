@@ -242,20 +242,27 @@ def binomial_table(p):
     -------
     (BERNOULLI_MAX + 1, BERNOULLI_MAX) ndarray of float64
         Row n holds the CDF ``F(0), ..., F(n - 1)`` of Binomial(n, p), then ones; each
-        probability ``C(n, k) p^k (1 - p)^(n - k)`` is computed on its own, not by recurrence.
-        For :func:`binomial_inversion`: callers that draw many binomials with the same p build
-        it once.
+        probability is ``C(n, k) p^k (1 - p)^(n - k)`` from Pascal's triangle and powers by
+        repeated products (a few hundred operations: cheap enough to build per row of a grid).
+        For :func:`binomial_inversion`.
     """
-    table = np.ones((BERNOULLI_MAX + 1, BERNOULLI_MAX))
+    m = BERNOULLI_MAX
+    table = np.ones((m + 1, m))
     p = min(max(p, 0.0), 1.0) if p == p else p
-    q = 1.0 - p
-    for n in range(1, BERNOULLI_MAX + 1):
-        choose = 1.0
+    pk = np.ones(m + 1)
+    qk = np.ones(m + 1)
+    choose = np.zeros(m + 1)
+    choose[0] = 1.0
+    for k in range(1, m + 1):
+        pk[k] = pk[k - 1] * p
+        qk[k] = qk[k - 1] * (1.0 - p)
+    for n in range(1, m + 1):
+        for k in range(n, 0, -1):  # row n of Pascal's triangle
+            choose[k] += choose[k - 1]
         f = 0.0
         for k in range(n):
-            f += choose * p ** k * q ** (n - k)
+            f += choose[k] * pk[k] * qk[n - k]
             table[n, k] = f
-            choose = choose * (n - k) / (k + 1)
     return table
 
 

@@ -261,3 +261,77 @@ def test_barrier_crossing_mortality_thins_crossers_exactly(make_scenario, make_r
                           edits=(("env_sd = 0.3", "env_sd = 0.0"), ("years = 8", "years = 1")))
     assert a[(0, 1, p)][5] > 0
     assert b[(0, 1, p)][5] == pytest.approx(0.5 * a[(0, 1, p)][5], rel=1e-9)
+
+
+def test_settle_and_census_sums_match_numpy():
+    """The census kernel's per-patch sums (runs of a patch along a row summed in registers)
+    against ``np.bincount`` over the cells (NumPy as the reference library), and its per-cell
+    accumulators against whole-array arithmetic."""
+    from gridpop import engine
+
+    rng = np.random.default_rng(3)
+    ny, nx, n_patches = 37, 53, 5
+    labels = np.repeat(rng.integers(0, n_patches + 1, (ny, 8)), 7, axis=1)[:, :nx]
+    labels = np.ascontiguousarray(labels, dtype=np.int32)
+    k = np.where(rng.random((ny, nx)) < 0.8, rng.uniform(1.0, 9.0, (ny, nx)), 0.0)
+    n = rng.uniform(0.0, 5.0, (ny, nx))
+    arrivals, stayed, dist = (rng.uniform(0.0, 2.0, (ny, nx)) for _ in range(3))
+    ever = (rng.random((ny, nx)) < 0.3).astype(np.uint8)
+    acc = [np.full((ny, nx), 1.5), np.full((ny, nx), 2, np.int32), np.full((ny, nx), 3, np.int32)]
+    settled = np.where(k > 0, arrivals, 0.0)
+    after = n + settled
+    ever_after = ever | (after >= 1.0)
+    got = n.copy()
+    s = engine._patch_totals(engine._count(labels, n_patches, k, got, arrivals, stayed, dist, 1.0,
+                                           ever, *acc))
+    np.testing.assert_array_equal(got, after)
+    np.testing.assert_array_equal(ever, ever_after)
+    np.testing.assert_array_equal(acc[0], 1.5 + after)
+    np.testing.assert_array_equal(acc[1], 2 + (after >= 1.0))
+    np.testing.assert_array_equal(acc[2], 3 + ever_after)
+    for f, x in enumerate([after, dist, after >= 1.0, settled, np.where(k > 0, stayed, 0.0)]):
+        ref = np.bincount(labels.ravel(), weights=x.ravel().astype(float),
+                          minlength=n_patches + 1)
+        ref[0] = x.sum()
+        np.testing.assert_allclose(s[:, f], ref, rtol=1e-12)
+    assert np.all(s[:, 5] == 0.0)
+
+
+@pytest.mark.parametrize("stochastic", [False, True])
+def test_growth_pass_matches_the_stage_functions(stochastic):
+    """The engine's fused growth-and-emigration pass gives what the growth step and the
+    emigration step give one after the other (demography.step_*, dispersal.leaving_*), and its
+    per-patch sums match ``np.bincount`` (NumPy as the reference library)."""
+    from gridpop import demography, dispersal, engine, rng
+
+    r = np.random.default_rng(4)
+    ny, nx, n_patches = 29, 41, 4
+    labels = np.ascontiguousarray(np.repeat(r.integers(0, n_patches + 1, (ny, 6)), 7,
+                                            axis=1)[:, :nx], dtype=np.int32)
+    k = np.where(r.random((ny, nx)) < 0.7, r.uniform(2.0, 20.0, (ny, nx)), 0.0)
+    n = np.floor(r.uniform(0.0, 15.0, (ny, nx))) * (k > 0)
+    env = np.zeros((ny, nx))
+    keys = np.array([rng.year_key(7, 0, 3, s) for s in
+                     (rng.STREAM_SURVIVAL, rng.STREAM_BIRTHS, rng.STREAM_EMIGRATION)], np.uint64)
+    model, rate, surv, theta = demography.MODELS["ricker"], 0.5, 0.7, 1.0
+    grown, births, deaths = (np.empty((ny, nx)) for _ in range(3))
+    if stochastic:
+        demography.step_stochastic(n, k, env, grown, births, deaths, model, rate, surv, theta,
+                                   0.0, keys[0], keys[1])
+        leaving = dispersal.leaving_stochastic(grown, k, 0.25, 1.0, keys[2])
+    else:
+        demography.step_deterministic(n, k, env, grown, births, deaths, model, rate, surv,
+                                      theta, 0.0)
+        leaving = dispersal.leaving_deterministic(grown, k, 0.25, 1.0)
+    out, lv = np.empty((ny, nx)), np.empty((ny, nx))
+    no = engine._NO_FIELD
+    s = engine._patch_totals(engine._grow(labels, n_patches, n, k, np.zeros((1, nx)), out, lv,
+                                          model, rate, surv, theta, 0.0, stochastic, 0.25, 1.0,
+                                          keys, no, no, no))
+    np.testing.assert_array_equal(lv, leaving)
+    np.testing.assert_array_equal(out, grown - leaving)
+    assert leaving.sum() > 0
+    for f, x in enumerate([births, deaths, leaving]):
+        ref = np.bincount(labels.ravel(), weights=x.ravel(), minlength=n_patches + 1)
+        ref[0] = x.sum()
+        np.testing.assert_allclose(s[:, f], ref, rtol=1e-12)
