@@ -813,7 +813,7 @@ def _place_multinomial(i, j, n, ck, cond, offsets, ymap, xmap, settle, labels, l
 @njit
 def _disperse_rows(dispersers, settle, labels, offsets, threshold, alias, cond, ymap, xmap, key,
                    multinomial_min, r0, r1, arrivals, stayed, ret):
-    """The dispersers of rows r0..r1: landings added to ``arrivals`` and ``stayed``, and per
+    """The dispersers of rows r0..r1: landings added to ``arrivals``, ``stayed`` written, and per
     patch of origin the number landing in a settle cell of the patch (``ret[p, 0]``) and in any
     settle cell (``ret[p, 1]``). Disperser t of a cell placed one by one takes ``uniform(ck,
     t)`` through the alias table."""
@@ -822,6 +822,7 @@ def _disperse_rows(dispersers, settle, labels, offsets, threshold, alias, cond, 
         for j in range(nx):
             n = np.int64(dispersers[i, j])
             if n <= 0:
+                stayed[i, j] = 0.0
                 continue
             ck = rng.cell_key(key, i * nx + j)
             lab = labels[i, j]
@@ -851,7 +852,8 @@ def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, 
                                 retained, settled_from):
     """Each disperser of cell (i, j) draws its destination from the kernel.
 
-    Row block b (rows bounds[b]..bounds[b+1]) adds its landings straight into ``arrivals``:
+    ``arrivals`` is zeroed first, ``stayed`` written for every cell. Row block b (rows
+    bounds[b]..bounds[b+1]) then adds its landings straight into ``arrivals``:
     destinations lie within ry rows of their source (folding at a reflecting edge does not move
     a point further from its source), and every block but the last is at least 2 ry rows high,
     so blocks of the same parity never write the same row; the even blocks run in parallel,
@@ -862,6 +864,8 @@ def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, 
     (:func:`_place_multinomial`), otherwise each disperser its own destination, from the
     cell's key ``ck = rng.cell_key(key, i * nx + j)``.
     """
+    for i in prange(arrivals.shape[0]):
+        arrivals[i] = 0.0
     nb = bounds.size - 1
     ret = np.zeros((nb, n_patches + 1, 2))
     for parity in range(2):
@@ -908,7 +912,7 @@ def _row_blocks(dispersers: np.ndarray, multinomial_min: float, ry: int) -> np.n
 
 
 def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kernel, edge: str,
-                        key):
+                        key, *, out=None):
     """Move whole individuals: each disperser draws its destination from the kernel.
 
     Parameters
@@ -925,6 +929,10 @@ def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kern
     key : int
         ``rng.year_key(seed, replicate, year, rng.STREAM_DISPERSAL)``; cell (i, j) uses
         ``rng.cell_key(key, i * nx + j)``.
+    out : (arrivals, stayed), optional
+        Two C-contiguous float64 arrays of the dispersers' shape to write the first two results
+        into (overwritten), so that a caller can keep them from year to year: fresh memory
+        costs page faults that slow the kernel down, most on 2 threads.
 
     Returns
     -------
@@ -947,8 +955,15 @@ def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kern
     code = _edge_code(edge)
     multinomial_min = MULTINOMIAL_PER_CELL * kernel.conditional.size
     bounds = _row_blocks(d, multinomial_min, kernel.ry)
-    arrivals = np.zeros(d.shape)
-    stayed = np.zeros(d.shape)
+    if out is None:
+        arrivals, stayed = np.empty(d.shape), np.empty(d.shape)
+    else:
+        arrivals, stayed = out
+        for a in out:
+            if not (isinstance(a, np.ndarray) and a.dtype == np.float64 and a.shape == d.shape
+                    and a.flags.c_contiguous):
+                raise ValueError(f"out must be two C-contiguous float64 arrays of shape "
+                                 f"{d.shape}")
     retained = np.zeros(n_patches + 1)
     settled_from = np.zeros(n_patches + 1)
     _disperse_stochastic_kernel(d, settle, labels, n_patches, kernel.offsets,

@@ -587,6 +587,27 @@ def test_stochastic_result_does_not_depend_on_row_blocks(monkeypatch, threads):
             np.testing.assert_array_equal(a, b)
 
 
+def test_stochastic_out_buffers(threads):
+    """Results written into caller buffers (filled with garbage first) equal fresh ones, for 1
+    and 2 threads (counter-based random numbers: the same draws); wrong buffers are refused."""
+    g = np.random.default_rng(8)
+    d = np.floor(g.gamma(0.8, 2.0, (60, 45)))
+    labels = np.kron(np.arange(1, 4, dtype=np.int32).reshape(3, 1), np.ones((20, 45), np.int32))
+    settle = g.random(d.shape) < 0.6
+    k = kernel("exponential", mean=1.0, cell=0.5, max_distance_m=2.5)
+    fresh = D.disperse_stochastic(d, settle, labels, 3, k, "absorbing", KEY)
+    for nt in (1, 2):
+        numba.set_num_threads(nt)
+        out = (np.full(d.shape, 7.0), np.full(d.shape, -3.0))
+        res = D.disperse_stochastic(d, settle, labels, 3, k, "absorbing", KEY, out=out)
+        assert res[0] is out[0] and res[1] is out[1]
+        for a, b in zip(fresh, res, strict=True):
+            np.testing.assert_array_equal(a, b)
+    with pytest.raises(ValueError, match="out must be"):
+        D.disperse_stochastic(d, settle, labels, 3, k, "absorbing", KEY,
+                              out=(np.zeros(d.shape), np.zeros((60, 44))))
+
+
 def test_deterministic_thread_invariance(threads):
     """Same numbers for 1 and 2 threads: stencil (fixed summation order per cell) and FFT
     (pocketfft splits independent 1-D transforms)."""
