@@ -169,10 +169,10 @@ def _split_row_stochastic(n, out, births, deaths, s, allee_a, key_survival, key_
                           first_cell):
     """Random survivors and births of one row; ``births`` holds the multiplier on entry.
 
-    A first pass, which vectorises, puts the survival probability in ``deaths``, the mean of
-    the births in ``births`` and its ``exp(-mean)`` (for the Poisson inversion) in a row buffer;
-    the second pass draws. Survivors of a cell with at most ``rng.BERNOULLI_MAX`` individuals
-    and survival probability s come from the binomial table of s.
+    Two passes that vectorise put the survival probability in ``deaths``, the mean of the
+    births in ``births`` and its ``exp(-mean)`` (for the Poisson inversion) in a row buffer; a
+    third pass draws. Survivors of a cell with at most ``rng.BERNOULLI_MAX`` individuals and
+    survival probability s come from the binomial table of s.
     """
     m = n.size
     survival_table = rng.binomial_table(s)

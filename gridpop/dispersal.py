@@ -930,9 +930,9 @@ def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kern
         ``rng.year_key(seed, replicate, year, rng.STREAM_DISPERSAL)``; cell (i, j) uses
         ``rng.cell_key(key, i * nx + j)``.
     out : (arrivals, stayed), optional
-        Two C-contiguous float64 arrays of the dispersers' shape to write the first two results
-        into (overwritten), so that a caller can keep them from year to year: fresh memory
-        costs page faults that slow the kernel down, most on 2 threads.
+        Two C-contiguous float64 arrays of the dispersers' shape (not the dispersers) to write
+        the first two results into (overwritten), so that a caller can keep them from year to
+        year: fresh memory costs page faults that slow the kernel down, most on 2 threads.
 
     Returns
     -------
