@@ -518,7 +518,9 @@ def _disperse(model: Model, replicate: int, year: int, leaving: np.ndarray, k: n
         return _kernel_step_with_barriers(m, leaving, k > 0, replicate, year)
     if m.stochastic:
         return disperse_stochastic(leaving, k > 0, m.labels, m.n_patches, m.kernel, m.edge,
-                                   _key(m, replicate, year, rng.STREAM_DISPERSAL))
+                                   _key(m, replicate, year, rng.STREAM_DISPERSAL),
+                                   out=(_scratch(work, "arrivals", k.shape),
+                                        _scratch(work, "stayed", k.shape)))
     arrivals = spread(leaving, m.kernel, m.edge, out=_scratch(work, "arrivals", k.shape))
     return arrivals, np.zeros((1, k.shape[1])), None, None
 
@@ -733,7 +735,7 @@ MODEL_BYTES_PER_CELL = 56
 """The model's and landscape's per-cell arrays (capacity, initial, labels, mask, ...)."""
 REPLICATE_BYTES_PER_CELL = 120
 """State and temporaries of one replicate's yearly cycle (population, emigrants, arrivals,
-noise, the stochastic dispersal's landing bands), per cell. With the model's arrays about 1.4 times the anonymous memory per
+stayers, noise), per cell. With the model's arrays about 1.4 times the anonymous memory per
 cell measured by benchmarks/bench_memory.py (128 bytes between 1024^2 and 2048^2 grids)."""
 FFT_BYTES_PER_CELL = 48
 """Per cell of the padded grid when dispersal goes through the FFT: the padded field, its
