@@ -59,13 +59,14 @@ invasion front would otherwise be multiplied by the growth rate every year and m
 year, Brunet and Derrida 1997)."""
 
 # Crossover of the deterministic engine, measured with benchmarks/bench_dispersal.py on a
-# 2048 x 2048 grid with 1 and 2 numba threads on a shared 2-core machine (results in
-# benchmarks/results/bench_dispersal.json). The FFT costs about 0.09 s per step whatever the
+# 2048 x 2048 grid with 1 and 2 numba threads (results in
+# benchmarks/results/bench_dispersal.json). The FFT costs 0.06-0.10 s per step whatever the
 # radius; the separable stencil (two 1-D passes, ~2 (2R + 1) operations per cell) costs the same
-# near R = 40-48 cells (0.08-0.11 s), so up to R = 40, a gaussian sigma of 7.6 cells at the
-# default truncation; the full 2-D stencil (~pi R^2 per cell) up to R = 8 (0.07-0.09 s).
+# near R = 40-56 cells, so up to R = 40, a gaussian sigma of 7.6 cells at the default
+# truncation; the full 2-D stencil (~pi R^2 per cell) up to R = 6 (0.03-0.06 s; 0.09-0.10 s at
+# R = 8).
 STENCIL_MAX_RADIUS_SEPARABLE = 40
-STENCIL_MAX_RADIUS = 8
+STENCIL_MAX_RADIUS = 6
 
 # Stochastic engine: a cell's n dispersers are placed one by one (one uniform each through the
 # alias table, O(1) whatever the number S of stencil cells with weight > 0) unless
