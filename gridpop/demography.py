@@ -65,27 +65,36 @@ def fast_exp(x):
 
 @njit
 def _lambda_row(n, k, env, lam, model, r, er, theta):
-    """``lam = lambda(n, k) exp(env)`` over one row; ``er = exp(r)``.
+    """``lam = lambda(n, k) exp(env)`` over one row; ``er = exp(r)``. ``env`` holds one
+    deviation per cell, or one for the whole row (size 1: then ``exp(r + env)`` is computed
+    once, not per cell).
 
     One loop per model and ``np.divide`` (no zero-division check), so that each loop vectorises.
     """
     m = n.size
+    if env.size == m:
+        lam[:] = env
+    else:
+        lam[:] = env[0]
     if model == _RICKER:
         for j in range(m):
-            lam[j] = fast_exp(r * (1.0 - np.divide(n[j], k[j])) + env[j])
+            lam[j] = fast_exp(r * (1.0 - np.divide(n[j], k[j])) + lam[j])
     elif model == _THETA_LOGISTIC:
         for j in range(m):
-            lam[j] = fast_exp(r * (1.0 - np.divide(n[j], k[j]) ** theta) + env[j])
-    elif model == _BEVERTON_HOLT and r > 0.0:
-        crowding = er - 1.0
-        for j in range(m):
-            lam[j] = np.divide(fast_exp(r + env[j]), 1.0 + crowding * np.divide(n[j], k[j]))
-    elif model == _CEILING:
-        for j in range(m):  # K / 0 = inf: an empty cell grows at e^r
-            lam[j] = min(fast_exp(r + env[j]), np.divide(k[j], n[j]))
-    else:
-        for j in range(m):
-            lam[j] = fast_exp(r + env[j])
+            lam[j] = fast_exp(r * (1.0 - np.divide(n[j], k[j]) ** theta) + lam[j])
+    else:  # exp(r + env), then the model's density dependence
+        if env.size == m:
+            for j in range(m):
+                lam[j] = fast_exp(r + lam[j])
+        else:
+            lam[:] = fast_exp(r + env[0])
+        if model == _BEVERTON_HOLT and r > 0.0:
+            crowding = er - 1.0
+            for j in range(m):
+                lam[j] = np.divide(lam[j], 1.0 + crowding * np.divide(n[j], k[j]))
+        elif model == _CEILING:
+            for j in range(m):  # K / 0 = inf: an empty cell grows at e^r
+                lam[j] = min(lam[j], np.divide(k[j], n[j]))
     for j in range(m):
         lam[j] = lam[j] if k[j] > 0.0 else 0.0
 
@@ -234,7 +243,8 @@ def step_stochastic(n, k, env, out, births, deaths, model, r, s, theta, allee_a,
 @njit
 def grow_row(n, k, env, out, births, deaths, model, r, s, theta, allee_a, stochastic,
              key_survival, key_births, first_cell):
-    """One year of local growth over one row (1-D arrays), as :func:`step_stochastic` (with
+    """One year of local growth over one row (1-D arrays; ``env`` may have size 1, one
+    deviation for the row), as :func:`step_stochastic` (with
     ``stochastic``; the row's first cell has flat index ``first_cell``) or
     :func:`step_deterministic` do over a grid: the row kernel the engine's yearly cycle is
     built from."""

@@ -275,12 +275,12 @@ def _grow(labels, n_patches, n, k, env, out, leaving, model, r, s, theta, allee_
     """Local growth of every cell, then emigration: ``out`` gets the residents (grown minus
     emigrants), ``leaving`` the emigrants (zero when ``fraction == 0``).
 
-    ``env``: the year's environmental field, or (1, nx) for a uniform one. ``keys``: year keys
-    of survival, births and emigration (stochastic). When ``own`` is not empty (expected
-    kernel dispersal, :func:`gridpop.dispersal.settle_fields`), the emigrants are also summed
-    weighted by ``share`` (of them landing back home, where ``k > 0``; (1, nx) when uniform),
-    by ``own`` and by ``anywhere``: the stayers, those that settle in their own patch and those
-    that settle.
+    ``env``: the year's environmental field, or (1, 1) for one deviation everywhere.
+    ``keys``: year keys of survival, births and emigration (stochastic). When ``own`` is not
+    empty (expected kernel dispersal, :func:`gridpop.dispersal.settle_fields`), the emigrants
+    are also summed weighted by ``share`` (of them landing back home, where ``k > 0``; (1, nx)
+    when uniform), by ``own`` and by ``anywhere``: the stayers, those that settle in their own
+    patch and those that settle.
 
     Returns (n_chunks, n_patches + 2, N_SUMS) partial sums per chunk of rows and patch (row 0
     unused, the last row the cells of no patch; :func:`_patch_totals` adds them up) of births,
@@ -401,6 +401,7 @@ class Replicate:
         self._out = np.empty(shape)
         self._leaving = np.zeros(shape)
         self._uniform = np.zeros((1, shape[1]))  # a field of zeros (see _row_of)
+        self._no_env = np.zeros((1, 1))  # no environmental deviation (one value per row)
         self.ever = np.zeros(shape, np.uint8)
         self._work = {}  # scratch arrays of the dispersal step, reused from year to year
         self._env_state = None
@@ -414,7 +415,7 @@ class Replicate:
 
     def advance(self, t: int, sink: BatchSink) -> None:
         m, year = self.model, t - 1
-        env = dist_deaths = self._uniform
+        env, dist_deaths = self._no_env, self._uniform
         if m.env is not None:
             env, self._env_state = m.env.draw(m.seed, self.replicate, year, self._env_state)
         k = m.actions.capacity_for_year(year)
