@@ -400,3 +400,21 @@ def test_thread_count_invariance():
     assert len(one) == len(two)
     for a, b in zip(one, two, strict=True):
         assert np.array_equal(a, b)
+
+
+@pytest.mark.parametrize("model", sorted(dm.MODELS))
+def test_uniform_deviation_row_equals_the_same_deviation_per_cell(model):
+    """A row's single environmental deviation (size-1 ``env``) gives exactly what that
+    deviation repeated in every cell gives (the engine's shortcut without noise)."""
+    rng = np.random.default_rng(5)
+    nx = 37
+    n = np.floor(rng.uniform(0.0, 30.0, nx))
+    k = np.where(rng.random(nx) < 0.8, rng.uniform(5.0, 40.0, nx), 0.0)
+    results = []
+    for env in (np.full(1, 0.3), np.full(nx, 0.3)):
+        out, births, deaths = np.empty(nx), np.empty(nx), np.empty(nx)
+        dm.grow_row(n, k, env, out, births, deaths, dm.MODELS[model], 0.6, 0.5, 1.5, 0.0, False,
+                 np.uint64(0), np.uint64(0), 0)
+        results.append(np.concatenate([out, births, deaths]))
+    np.testing.assert_array_equal(results[0], results[1])
+    assert results[0].sum() > 0
