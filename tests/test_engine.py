@@ -58,12 +58,18 @@ def test_ledger_identity_landscape_and_patches(make_scenario, tmp_path, stochast
         assert total == pytest.approx(row[0], rel=1e-9)
 
 
-def test_same_seed_bit_identical_whatever_threads_and_batches(make_scenario, tmp_path):
+@pytest.mark.parametrize("stochastic, kernel", [(True, "exponential"), (False, "gaussian")])
+def test_same_seed_bit_identical_whatever_threads_and_batches(make_scenario, tmp_path, stochastic,
+                                                              kernel):
     """Counter-based random numbers (Salmon et al. 2011, SC'11): any split of the work gives the
-    same numbers. Runs in subprocesses with NUMBA_NUM_THREADS 1 and 2 and two batch sizes."""
+    same numbers, and sums run over a fixed chunking of rows. Runs in subprocesses with
+    NUMBA_NUM_THREADS 1 and 2 and two batch sizes (stochastic with the full stencil's kernel,
+    deterministic with the separable one)."""
     outs = []
     for threads, batch in ((1, 1), (2, 3)):
-        scen = make_scenario(scenario_text(batch=batch), name=f"s{threads}.toml")
+        text = scenario_text(batch=batch, stochastic=stochastic).replace(
+            'kernel = "exponential"', f'kernel = "{kernel}"')
+        scen = make_scenario(text, name=f"s{threads}.toml")
         out = tmp_path / f"r{threads}"
         code = ("import sys, gridpop; gridpop.run(sys.argv[1], sys.argv[2])")
         subprocess.run([sys.executable, "-c", code, str(scen), str(out)], check=True,
