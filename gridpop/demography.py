@@ -72,27 +72,23 @@ def _lambda_row(n, k, env, lam, model, r, er, theta):
     One loop per model and ``np.divide`` (no zero-division check), so that each loop vectorises.
     """
     m = n.size
-    if env.size == m:
-        lam[:] = env
-    else:
-        lam[:] = env[0]
+    per_cell = env.size == m
+    e0 = env[0]
     if model == _RICKER:
         for j in range(m):
-            lam[j] = fast_exp(r * (1.0 - np.divide(n[j], k[j])) + lam[j])
+            e = env[j] if per_cell else e0
+            lam[j] = fast_exp(r * (1.0 - np.divide(n[j], k[j])) + e)
     elif model == _THETA_LOGISTIC:
         for j in range(m):
-            lam[j] = fast_exp(r * (1.0 - np.divide(n[j], k[j]) ** theta) + lam[j])
-    else:  # exp(r + env), then the model's density dependence
-        if env.size == m:
-            for j in range(m):
-                lam[j] = fast_exp(r + lam[j])
-        else:
-            lam[:] = fast_exp(r + env[0])
-        if model == _BEVERTON_HOLT and r > 0.0:
-            crowding = er - 1.0
-            for j in range(m):
-                lam[j] = np.divide(lam[j], 1.0 + crowding * np.divide(n[j], k[j]))
-        elif model == _CEILING:
+            e = env[j] if per_cell else e0
+            lam[j] = fast_exp(r * (1.0 - np.divide(n[j], k[j]) ** theta) + e)
+    else:  # exp(r + env), divided by the crowding of the beverton-holt model
+        crowding = er - 1.0 if model == _BEVERTON_HOLT and r > 0.0 else 0.0
+        g0 = fast_exp(r + e0)
+        for j in range(m):
+            g = fast_exp(r + env[j]) if per_cell else g0
+            lam[j] = np.divide(g, 1.0 + crowding * np.divide(n[j], k[j]))
+        if model == _CEILING:
             for j in range(m):  # K / 0 = inf: an empty cell grows at e^r
                 lam[j] = min(lam[j], np.divide(k[j], n[j]))
     for j in range(m):
