@@ -697,57 +697,6 @@ def settle_fields(labels, settle, kernel: Kernel, edge: str, *,
     return SettleFields(settle.copy(), anywhere, own)
 
 
-def patch_retention_deterministic(dispersers, labels, settle, kernel: Kernel, edge: str,
-                                  n_patches: int, *, method: str = "auto",
-                                  fields: SettleFields | None = None):
-    """Expected dispersers that settle back in their own patch, and that settle anywhere.
-
-    Parameters
-    ----------
-    dispersers : (ny, nx) array_like of float
-    labels : (ny, nx) array_like of int
-        0 = no patch, 1..n_patches the patches.
-    settle : (ny, nx) array_like of bool
-        Cells where a disperser may settle.
-    kernel, edge, method
-        As in :func:`disperse_deterministic`.
-    n_patches : int
-    fields : SettleFields, optional
-        :func:`settle_fields` of the same labels, settle, kernel and edge, to reuse.
-
-    Returns
-    -------
-    retained : (n_patches + 1,) ndarray of float64
-        ``retained[p]``: dispersers from cells of patch p landing in settle cells of patch p;
-        ``retained[0] = 0``.
-    settled_from : (n_patches + 1,) ndarray of float64
-        Dispersers from cells of patch p landing in any settle cell.
-    """
-    d = _as_field(dispersers, "dispersers")
-    labels = np.asarray(labels)
-    if fields is None:
-        fields = settle_fields(labels, settle, kernel, edge, method=method)
-    retained = np.zeros(n_patches + 1)
-    settled_from = np.zeros(n_patches + 1)
-    _weighted_patch_sums(np.ascontiguousarray(labels, dtype=np.int32), d, fields.own,
-                         fields.anywhere, retained, settled_from)
-    return retained, settled_from
-
-
-@njit
-def _weighted_patch_sums(labels, d, w1, w2, out1, out2):
-    """out1[p] += sum of d * w1 and out2[p] += sum of d * w2 over the cells of patch p > 0, in
-    row-major order (one pass, the same order for any thread count)."""
-    ny, nx = d.shape
-    for i in range(ny):
-        for j in range(nx):
-            p = labels[i, j]
-            v = d[i, j]
-            if p > 0 and v != 0.0:
-                out1[p] += v * w1[i, j]
-                out2[p] += v * w2[i, j]
-
-
 # --------------------------------------------------------------------------------------------
 # Stochastic engine
 
