@@ -148,6 +148,13 @@ class Model:
                                   entry_survival=w.entry_survival)
 
     @property
+    def expected_kernel(self) -> bool:
+        """Expected numbers move by the kernel with no barrier: the growth pass counts who
+        stays home and who settles in its own patch (:func:`_grow`), the dispersal step only
+        spreads."""
+        return self.kernel is not None and not self.stochastic and self.regions is None
+
+    @property
     def disturbance_kinds(self) -> list[str]:
         return sorted({t.kind for t in self.regime.tables}) if self.regime else []
 
@@ -232,7 +239,8 @@ def _patch_totals(part: np.ndarray) -> np.ndarray:
 
 @njit
 def _row_of(a, i):
-    """Row ``i`` of a field, or its only row: a (1, nx) array stands for a uniform field."""
+    """Row ``i`` of a field, or its only row: a one-row array stands for a field uniform
+    along the grid's columns ((1, nx)), or everywhere ((1, 1), where the kernels allow it)."""
     return a[i] if a.shape[0] > 1 else a[0]
 
 
@@ -426,7 +434,7 @@ class Replicate:
             dist_deaths = self.effects.deaths
             k = self.effects.capacity
         moves = m.kernel is not None or m.walk is not None
-        expected = moves and not m.stochastic and m.walk is None and m.regions is None
+        expected = m.expected_kernel
         share = own = anywhere = _NO_FIELD
         if expected:
             fields = _settle_fields(m, k)
@@ -505,11 +513,14 @@ def _disperse(model: Model, replicate: int, year: int, leaving: np.ndarray, k: n
     settled_from)``, anywhere (:func:`_count` settles those where capacity ``k > 0``).
 
     ``stayed``: those that landed back in their own cell. Per patch (index 0 unused):
-    ``retained`` settled in their own patch, ``settled_from`` settled anywhere; for expected
-    kernel dispersal ``stayed`` is (1, nx) zeros and the last two None (:func:`_grow` counts
-    them). ``work`` holds the replicate's scratch arrays.
+    ``retained`` settled in their own patch, ``settled_from`` settled anywhere; with
+    :attr:`Model.expected_kernel` ``stayed`` is (1, nx) zeros and the last two None
+    (:func:`_grow` counts them). ``work`` holds the replicate's scratch arrays.
     """
     m = model
+    if m.expected_kernel:
+        arrivals = spread(leaving, m.kernel, m.edge, out=_scratch(work, "arrivals", k.shape))
+        return arrivals, np.zeros((1, k.shape[1])), None, None
     if m.walk is not None:
         res = m.walk.disperse(leaving, k, m.labels, m.n_patches, m.stochastic,
                               _key(m, replicate, year, rng.STREAM_WALK))
@@ -517,13 +528,10 @@ def _disperse(model: Model, replicate: int, year: int, leaving: np.ndarray, k: n
         return res[:4]
     if m.regions is not None:
         return _kernel_step_with_barriers(m, leaving, k > 0, replicate, year)
-    if m.stochastic:
-        return disperse_stochastic(leaving, k > 0, m.labels, m.n_patches, m.kernel, m.edge,
-                                   _key(m, replicate, year, rng.STREAM_DISPERSAL),
-                                   out=(_scratch(work, "arrivals", k.shape),
-                                        _scratch(work, "stayed", k.shape)))
-    arrivals = spread(leaving, m.kernel, m.edge, out=_scratch(work, "arrivals", k.shape))
-    return arrivals, np.zeros((1, k.shape[1])), None, None
+    return disperse_stochastic(leaving, k > 0, m.labels, m.n_patches, m.kernel, m.edge,
+                               _key(m, replicate, year, rng.STREAM_DISPERSAL),
+                               out=(_scratch(work, "arrivals", k.shape),
+                                    _scratch(work, "stayed", k.shape)))
 
 
 def _settle_fields(m: Model, k: np.ndarray):
