@@ -196,12 +196,8 @@ def _split_row_stochastic(n, out, births, deaths, s, allee_a, key_survival, key_
             deaths[j] = 0.0
             continue
         cell = first_cell + j
-        c = np.int64(nj)
-        ck = rng.cell_key(key_survival, cell)
-        if c <= rng.BERNOULLI_MAX and deaths[j] == s:
-            surv = rng.binomial_inversion(survival_table, c, rng.uniform(ck, 0))
-        else:
-            surv = rng.binomial(c, deaths[j], ck)
+        surv = rng.binomial_with_table(np.int64(nj), deaths[j], s, survival_table,
+                                       rng.cell_key(key_survival, cell))
         mean = births[j]
         ck = rng.cell_key(key_births, cell)
         if mean < 10.0:
@@ -228,12 +224,10 @@ def step_stochastic(n, k, env, out, births, deaths, model, r, s, theta, allee_a,
         ``rng.STREAM_BIRTHS`` (wrap in ``np.uint64``: numba returns a Python int, and keys above
         2**63 would not convert back).
     """
-    er = math.exp(r)
     nx = n.shape[1]
     for i in prange(n.shape[0]):
-        _lambda_row(n[i], k[i], env[i], births[i], model, r, er, theta)
-        _split_row_stochastic(n[i], out[i], births[i], deaths[i], s, allee_a, key_survival,
-                              key_births, i * nx)
+        grow_row(n[i], k[i], env[i], out[i], births[i], deaths[i], model, r, s, theta, allee_a,
+                 True, key_survival, key_births, i * nx)
 
 
 @njit

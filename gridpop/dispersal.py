@@ -944,22 +944,13 @@ def leaving_row_deterministic(n, k, fraction, dd, out):
 
 
 @njit
-def _binomial_or_table(c, p, p_table, table, ckey):
-    """Binomial(c, p) on ``ckey``, from ``table = rng.binomial_table(p_table)`` when p is
-    p_table and c is small enough."""
-    if c <= rng.BERNOULLI_MAX and p == p_table:
-        return rng.binomial_inversion(table, c, rng.uniform(ckey, 0))
-    return rng.binomial(c, p, ckey)
-
-
-@njit
 def leaving_row_stochastic(n, k, fraction, dd, key, first_cell, out):
     """Emigrants of one row, ``Binomial(n, f)`` on ``rng.cell_key(key, first_cell + j)``; cells
     that lose the plain fraction draw from its binomial table."""
     table = rng.binomial_table(fraction)
     for j in range(n.size):
         c = np.int64(n[j])
-        out[j] = 0.0 if c <= 0 else _binomial_or_table(
+        out[j] = 0.0 if c <= 0 else rng.binomial_with_table(
             c, _emigration_fraction(n[j], k[j], fraction, dd), fraction, table,
             rng.cell_key(key, first_cell + j))
 
@@ -1022,7 +1013,7 @@ def _thin_kernel(counts, p, key, group, out):
     for i in prange(ny):
         for j in range(nx):
             c = np.int64(counts[i, j])
-            out[i, j] = 0.0 if c <= 0 else _binomial_or_table(
+            out[i, j] = 0.0 if c <= 0 else rng.binomial_with_table(
                 c, p, p, table, rng.cell_key(key, (group * ny + i) * nx + j))
 
 

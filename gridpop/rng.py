@@ -279,6 +279,17 @@ def binomial_inversion(table, n, u):
 
 
 @njit
+def binomial_with_table(n, p, p_table, table, ckey):
+    """Binomial(n, p) on cell key ``ckey``: from ``table = binomial_table(p_table)`` by
+    :func:`binomial_inversion` of ``uniform(ckey, 0)`` when ``p == p_table`` and ``n <=
+    BERNOULLI_MAX``, else :func:`binomial`. For many draws of which most share one
+    probability."""
+    if n <= BERNOULLI_MAX and p == p_table:
+        return binomial_inversion(table, n, uniform(ckey, 0))
+    return binomial(n, p, ckey)
+
+
+@njit
 def _binomial_low(n, p, ckey):
     """Binomial(n, p) for 0 < p <= 0.5."""
     q = 1.0 - p
