@@ -4,7 +4,7 @@
    the Gaussian of the same spread (per-axis sigma^2 = n / sqrt(2), the walk's variance on a uniform
    surface) by scipy.ndimage.gaussian_filter and by the kernel engine (gridpop.dispersal).
 2. Stochastic: whole dispersers (about one per habitat cell) walking over the same landscape, with
-   persistence 1 and settlement probability q or q^8: dispersers and steps per second.
+   heading_bias 1 and settlement probability q or q^8: dispersers and steps per second.
 
 The landscape is smoothed noise: suitability s in [0, 1], resistance 1 + 49 (1 - s)^2, habitat
 quality s where s > 0.6 (else matrix), a road of infinite resistance across the middle.
@@ -49,9 +49,9 @@ def make_landscape(size):
     return permeability_from_resistance(r), quality
 
 
-def walk_params(steps, persistence, settle_shape=1.0):
-    return WalkParams(max_steps=steps, mortality_per_resistance=0.02, persistence=persistence,
-                      settle_shape=settle_shape)
+def walk_params(steps, heading_bias, settle_exponent=1.0):
+    return WalkParams(walk_length=steps, death_per_resistance=0.02, heading_bias=heading_bias,
+                      settle_exponent=settle_exponent)
 
 
 def bench_deterministic(size, steps, perm, quality, labels):
@@ -87,7 +87,7 @@ def bench_stochastic(size, steps, perm, quality, labels, per_cell):
             t = best_time(partial(disperse_walk_stochastic, d, perm, quality, labels, 0, params,
                                   key), repeat=2)
             visits = disperse_walk_stochastic(d, perm, quality, labels, 0, params, key).visits.sum()
-            row = {"steps": n, "settle_shape": shape, "dispersers": float(d.sum()), "walk_s": t,
+            row = {"steps": n, "settle_exponent": shape, "dispersers": float(d.sum()), "walk_s": t,
                    "dispersers_per_s": d.sum() / t, "steps_per_s": visits / t,
                    "mean_steps": visits / d.sum()}
             rows.append(row)
@@ -109,7 +109,7 @@ def main():
     print(f"{'steps':>6} {'sigma':>7} {'walk':>9} {'persistent':>11} {'gaussian':>9} "
           f"{'kernel':>9}")
     det = bench_deterministic(size, steps, perm, quality, labels)
-    print("stochastic (persistence 1)")
+    print("stochastic (heading_bias 1)")
     print(f"{'steps':>6} {'shape':>6} {'dispersers':>12} {'seconds':>9} {'dispersers/s':>14} "
           f"{'steps/s':>12} {'steps/w':>8}")
     sto = bench_stochastic(size, steps, perm, quality, labels, per_cell=1.0)

@@ -3,7 +3,7 @@
 :func:`compare` runs every plan into a sub-folder of one output folder and writes:
 
 - ``comparison.csv`` and ``comparison.json``: per plan its risk at the horizon, expected minimum
-  abundance, final abundance, occupied patches, colonisation of the target areas and
+  abundance, final abundance, occupied patches, colonisation of the focus areas and
   metapopulation capacity, with the differences from the first plan and their intervals, and a
   ranking;
 - ``occupancy_difference_<plan>.tif``: final-year occupancy probability of each plan minus the
@@ -39,7 +39,7 @@ from .errors import ScenarioError
 from .landscape import load_grid
 from .metrics import paired_difference
 from .outputs import prepare_output, publish, write_json, write_stack
-from .summary import N_BOOT, target_census
+from .summary import N_BOOT, focus_census
 
 PAIRING = ("Replicates are paired by common random numbers: replicate i of every plan uses the "
            "same random numbers (seed {seed}), so plans are compared replicate by replicate.")
@@ -65,7 +65,7 @@ def prepare_plans(scenarios: list) -> tuple[list, list[str]]:
     ScenarioError
         Fewer than two plans, two files with the same name, different grids (template CRS,
         transform or shape), horizons or replicate counts, fewer than two replicates, or a bad
-        ``[risk]`` target layer.
+        ``[risk]`` focus-area layer.
     """
     if len(scenarios) < 2:
         raise ScenarioError("compare needs at least two scenario files (the first is the "
@@ -108,7 +108,7 @@ def prepare_plans(scenarios: list) -> tuple[list, list[str]]:
         if "occupancy" not in s.output.rasters:
             out[i] = s.replace("output", rasters=[*s.output.rasters, "occupancy"])
             notes.append(f"{s.path.stem}: occupancy.tif written for the difference maps")
-        target_census(s, grid)  # bad target layers fail before anything runs
+        focus_census(s, grid)  # bad focus-area layers fail before anything runs
     return out, notes
 
 
@@ -133,7 +133,7 @@ def _difference(d: dict) -> tuple[float, float, float]:
     return d["mean_difference"], d["lo"], d["hi"]
 
 
-def _row(name, run_dir, summary, diffs, target_names) -> dict:
+def _row(name, run_dir, summary, diffs, focus_names) -> dict:
     risk, em = summary["risk"], summary["expected_minimum"]
     cap = summary["metapopulation_capacity"]
     row = {"plan": name, "description": summary["plan"]["description"],
@@ -150,7 +150,7 @@ def _row(name, run_dir, summary, diffs, target_names) -> dict:
     row["final_difference"], row["final_difference_lo"], row["final_difference_hi"] = (
         _difference(diffs["final"]))
     row["patches_occupied"] = summary["occupied_patches"]["mean"][-1]
-    for t in target_names:
+    for t in focus_names:
         col = summary["colonisation"].get(t)
         row[f"colonisation_{t}"] = col["probability"][-1] if col else None
     row["metapopulation_capacity"] = cap["lambda_M"] if cap else None
@@ -260,20 +260,20 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
     work = prepare_output(out_dir, overwrite=overwrite)
     threshold, confidence = first.risk.quasi_extinction, first.risk.confidence
     alpha, seed = 1.0 - confidence, first.run.seed
-    rows, outcomes, details, targets = [], [], {}, []
+    rows, outcomes, details, focus = [], [], {}, []
     summaries = []
     for s in plans:
         run(s, work / s.path.stem, progress=progress, workers=workers, scheduler=scheduler,
             force=force)
         summary = json.loads((work / s.path.stem / "summary.json").read_text())
         summaries.append(summary)
-        targets += [t for t in summary["colonisation"] if t not in targets]
+        focus += [t for t in summary["colonisation"] if t not in focus]
         outcomes.append(_outcomes(_abundance(work / s.path.stem), threshold))
     for s, summary, o in zip(plans, summaries, outcomes, strict=True):
         diffs = {k: paired_difference(outcomes[0][k], o[k], n_boot=N_BOOT,
                                       confidence=confidence, seed=seed) for k in o}
         details[s.path.stem] = diffs
-        row = _row(s.path.stem, s.path.stem, summary, diffs, targets)
+        row = _row(s.path.stem, s.path.stem, summary, diffs, focus)
         row["scenario"] = str(s.path)
         rows.append(row)
     for row, r in zip(rows, rank(rows, outcomes, alpha, seed), strict=True):
@@ -282,7 +282,7 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
         row["distinguishable"] = bool(diffs["quasi_extinct"]["mcnemar_p"] < alpha
                                       or diffs["minimum"]["distinguishable"])
     files = _difference_maps(work, plans, grid)
-    columns = (list(COLUMNS_FIXED) + [f"colonisation_{t}" for t in targets]
+    columns = (list(COLUMNS_FIXED) + [f"colonisation_{t}" for t in focus]
                + ["metapopulation_capacity", "rank", "distinguishable"])
     with open(work / "comparison.csv", "w", newline="") as fh:
         w = csv.writer(fh)

@@ -84,7 +84,7 @@ from .resistance import (
     resistance_from_suitability,
 )
 from .scenario import OUTPUT_RASTERS
-from .summary import TargetCensus, parameters, target_census, write_summary
+from .summary import FocusCensus, focus_census, parameters, write_summary
 
 N_FIELDS = len(LEDGER_FIELDS)
 F_ABUND, F_BIRTHS, F_DEATHS, F_DIST, F_EMIG, F_IMMIG, F_LOSS, F_OCC = range(N_FIELDS)
@@ -122,7 +122,7 @@ class Model:
     occupancy_threshold: float
     actions: Actions
     regime: Regime | None
-    targets: TargetCensus | None = None  # target areas counted at each census (gridpop.summary)
+    focus: FocusCensus | None = None  # focus areas counted at each census (gridpop.summary)
     # derived arrays reused from year to year (e.g. dispersal.SettleFields)
     cache: dict = dataclasses.field(default_factory=dict, compare=False, repr=False)
 
@@ -195,7 +195,7 @@ def build_model(scenario, base: Landscape) -> Model:
         n_regions=n_regions, crossing_survival=crossing_survival, edge=d.edge, env=env,
         occupancy_threshold=scenario.output.occupancy_threshold,
         actions=actions, regime=build_regime(scenario, landscape, actions),
-        targets=target_census(scenario, grid),
+        focus=focus_census(scenario, grid),
     )
 
 
@@ -218,8 +218,8 @@ def _walk_surface(scenario, landscape: Landscape, actions: Actions) -> Walk:
         partial = (actions.barrier > 0) & (actions.barrier < 1.0)
         if partial.any():
             entry = np.where(partial, 1.0 - actions.barrier, 1.0)
-    params = WalkParams(max_steps=d.max_steps, mortality_per_resistance=d.step_mortality,
-                        settle_shape=d.settle_shape, persistence=d.persistence)
+    params = WalkParams(walk_length=d.walk_length, death_per_resistance=d.death_per_resistance,
+                        settle_exponent=d.settle_exponent, heading_bias=d.heading_bias)
     full = scenario.habitat.capacity_per_ha * grid.cell_area_ha
     return Walk(np.ascontiguousarray(perm), entry, full, params)
 
@@ -380,8 +380,8 @@ class BatchSink:
         self.events: list[tuple] = []
         self.folder = folder
         self.replicates = replicates
-        self.targets = (model.targets.table(len(replicates), model.years)
-                        if model.targets is not None else None)
+        self.focus = (model.focus.table(len(replicates), model.years)
+                        if model.focus is not None else None)
 
     def close(self) -> None:
         for a in self.acc.values():
@@ -389,8 +389,8 @@ class BatchSink:
         np.save(self.folder / "ledger.npy", self.ledger)
         with open(self.folder / "events.json", "w") as fh:
             json.dump(self.events, fh)
-        if self.targets is not None:
-            np.save(self.folder / "targets.npy", self.targets)
+        if self.focus is not None:
+            np.save(self.folder / "focus.npy", self.focus)
         (self.folder / "done").write_text("ok\n")
 
 
@@ -484,8 +484,8 @@ class Replicate:
         row[:, F_OCC] = s[:, 2]
         if self.visits is not None and t > 0:
             sink.acc["visits"][t] += self.visits
-        if m.targets is not None:
-            m.targets.record(sink.targets[self.replicate - sink.replicates.start, t], self.n)
+        if m.focus is not None:
+            m.focus.record(sink.focus[self.replicate - sink.replicates.start, t], self.n)
         eff = self.effects
         if t > 0 and eff is not None:
             for kind, hit in (("fire", eff.burned), ("flood", eff.flooded)):
@@ -1029,11 +1029,11 @@ def stacks_written(scenario, model: Model) -> dict[str, str]:
 
 
 def _blocks(model: Model) -> list[tuple[str, np.ndarray]]:
-    """The two areas a corridor joins: the first two [risk] targets, else patches 1 and 2."""
+    """The two areas a corridor joins: the first two [risk] focus_areas, else patches 1 and 2."""
     shape = model.capacity.shape
-    if model.targets is not None and len(model.targets.names) >= 2:
+    if model.focus is not None and len(model.focus.names) >= 2:
         out = []
-        for name, idx in list(zip(model.targets.names, model.targets.cells, strict=True))[:2]:
+        for name, idx in list(zip(model.focus.names, model.focus.cells, strict=True))[:2]:
             mask = np.zeros(shape, bool)
             mask.ravel()[idx] = True
             out.append((name, mask))
@@ -1079,7 +1079,7 @@ def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
         "note": "matrix[i][j]: probability that a disperser leaving patch i+1 settles in patch "
                 "j+1 in one year (expected walk, year-0 landscape). corridors: per corridor "
                 "action, its share of all walker visits over the run, and of the one-year flow "
-                "between the two blocks (the first two [risk] targets, else patches 1 and 2) "
+                "between the two blocks (the first two [risk] focus_areas, else patches 1 and 2) "
                 "the part that passed through it."})
     return ["connectivity.csv", "connectivity.json"]
 
@@ -1158,8 +1158,9 @@ def describe(scenario, model: Model) -> list[str]:
             f"{d.resistance_shape:g})")
         blocked = int((w.permeability == 0).sum())
         lines.append(f"dispersal: {d.fraction:g} of individuals per year walk over the "
-                     f"landscape, {source}; up to {d.max_steps} steps, step mortality "
-                     f"{d.step_mortality:g} per unit resistance, persistence {d.persistence:g}; "
+                     f"landscape, {source}; up to {d.walk_length} steps, "
+                     f"death_per_resistance {d.death_per_resistance:g}, heading_bias "
+                     f"{d.heading_bias:g}; "
                      f"{blocked} cells impassable")
     else:
         lines.append("dispersal: none (fraction = 0)")

@@ -55,8 +55,8 @@ _DASHES = ("-", "--", "-.", ":")
 
 ACTION_STYLE = {"reserve": ("#CC79A7", "-"), "corridor": ("#D55E00", "--"),
                 "barrier": ("#000000", ":"), "restoration": ("#009E73", "-."),
-                "habitat_loss": ("#E69F00", (0, (5, 1, 1, 1))), "target": ("#FFFFFF", "-")}
-"""Outline colour and line style per action kind (and the target areas) on the maps."""
+                "habitat_loss": ("#E69F00", (0, (5, 1, 1, 1))), "focus": ("#FFFFFF", "-")}
+"""Outline colour and line style per action kind (and the focus areas) on the maps."""
 
 DPI = 110
 
@@ -138,17 +138,17 @@ def _colour(i: int) -> tuple[str, str]:
 
 def risk_figure(plans: list[Plan]) -> Figure:
     """Quasi-extinction risk curves: P(abundance fell below the threshold by year t), one line
-    per plan with its confidence band, one panel for the whole landscape and one per target."""
+    per plan with its confidence band, one panel for the whole landscape and one per focus area."""
     first = plans[0].summary
-    panels = [("whole landscape", "risk")] + [(f"target {t}", t) for t in first.get(
-        "target_risk", {})]
+    panels = [("whole landscape", "risk")] + [(f"focus area {t}", t) for t in first.get(
+        "focus_risk", {})]
     fig = Figure(figsize=(6.4 * min(len(panels), 2), 4.2 * math.ceil(len(panels) / 2)),
                  layout="constrained")
     axes = fig.subplots(math.ceil(len(panels) / 2), min(len(panels), 2), squeeze=False,
                         sharey=True).ravel()
     for ax, (title, key) in zip(axes, panels, strict=False):
         for i, plan in enumerate(plans):
-            r = plan.summary["risk"] if key == "risk" else plan.summary["target_risk"].get(key)
+            r = plan.summary["risk"] if key == "risk" else plan.summary["focus_risk"].get(key)
             if r is None:
                 continue
             colour, dash = _colour(i)
@@ -202,7 +202,7 @@ def abundance_figure(plans: list[Plan], *, replicate_lines: int = 3) -> Figure:
     axes[0].set_ylabel("total abundance (individuals)")
     fig.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center", ncols=4,
                fontsize="small")
-    fig.suptitle("Abundance trajectories")
+    fig.suptitle("Total abundance over time")
     return fig
 
 
@@ -309,11 +309,11 @@ def read_band(path: Path, band: int | None = None) -> MapLayer:
 
 
 def outlines(plan: Plan, crs: pyproj.CRS) -> list[tuple[str, gpd.GeoDataFrame]]:
-    """The plan's vector action areas and its target areas, reprojected to ``crs``, as
+    """The plan's vector action areas and its focus areas, reprojected to ``crs``, as
     ``(kind, features)``; raster areas are skipped, a missing file is skipped with a warning."""
     areas = [(a["kind"], a["area"]) for a in plan.summary.get("plan", {}).get("actions", [])]
-    if plan.summary.get("targets"):
-        areas.append(("target", plan.summary["targets"]["file"]))
+    if plan.summary.get("focus_areas"):
+        areas.append(("focus", plan.summary["focus_areas"]["file"]))
     out = []
     for kind, area in areas:
         path = Path(area)
@@ -331,8 +331,8 @@ def outlines(plan: Plan, crs: pyproj.CRS) -> list[tuple[str, gpd.GeoDataFrame]]:
 
 
 def _stroke(kind: str) -> list:
-    """A halo under an outline so it reads on any map colour (black under the white targets)."""
-    return [pe.withStroke(linewidth=3.4, foreground="black" if kind == "target" else "white")]
+    """A halo under an outline so it reads on any map colour (black under the white focus areas)."""
+    return [pe.withStroke(linewidth=3.4, foreground="black" if kind == "focus" else "white")]
 
 
 def _draw_outlines(ax, layers) -> None:
@@ -393,7 +393,7 @@ def map_figure(panels: list[tuple[str, MapLayer, list]], *, cmap: str, vmin: flo
         ax.set_visible(False)
     fig.colorbar(image, ax=axes[:len(panels)].tolist(), label=label, shrink=0.85)
     handles = [Line2D([], [], color=c, linestyle=dash, linewidth=1.6, path_effects=_stroke(k),
-                      label="target area" if k == "target" else k.replace("_", " "))
+                      label="focus area" if k == "focus" else k.replace("_", " "))
                for k, (c, dash) in ACTION_STYLE.items() if k in kinds]
     if grey:
         handles.append(Patch(color=NOT_REACHED, label=no_value))
@@ -446,7 +446,7 @@ def plot_run(run_dir) -> list[Path]:
 
     risk.png (quasi-extinction risk with intervals), abundance.png (median, 5-95 % band and a
     few replicates), occupancy.png (final-year occupancy probability), colonisation.png (median
-    colonisation year), both maps with the plan's vector action areas and target areas, and
+    colonisation year), both maps with the plan's vector action areas and focus areas, and
     ledger.png (births, deaths, disturbance deaths, net movement per year).
     """
     run_dir = Path(run_dir)

@@ -88,14 +88,14 @@ ASSUMPTIONS = (
 """(title, text) of the section on model assumptions and limitations."""
 
 CAPTIONS = {
-    "risk": "Probability that total abundance (and abundance in each target area) has fallen "
+    "risk": "Probability that total abundance (and abundance in each focus area) has fallen "
             "below the quasi-extinction threshold by year t, per plan; the band is the "
             "confidence interval.",
     "abundance": "Total abundance: median over replicates (thick line), 5-95 % of replicates "
                  "(band) and a few single replicates (thin lines); dotted: the quasi-extinction "
                  "threshold.",
     "occupancy": "Fraction of replicates in which each cell is occupied in the final year, "
-                 "with the plan's action areas and the target areas.",
+                 "with the plan's action areas and the focus areas.",
     "colonisation": "Median year in which each cell is first occupied; grey cells are not "
                     "occupied in at least half of the replicates.",
     "ledger": "Yearly ledger, mean over replicates: births, deaths and disturbance deaths, and "
@@ -232,14 +232,14 @@ def _run_results(plans: list[Plan]) -> str:
          for p in plans])
     add(f"patches occupied in year {horizon} (mean)",
         [fmt(p.summary["occupied_patches"]["mean"][-1]) for p in plans])
-    for target in s0.get("target_risk", {}):
-        add(f"target {target}: risk by year {horizon}",
-            [risk(p.summary["target_risk"][target], "ever_below")
-             if target in p.summary.get("target_risk", {}) else fmt(None) for p in plans])
-    for target in s0.get("colonisation", {}):
-        add(f"target {target}: probability colonised by year {horizon}",
-            [fmt(p.summary["colonisation"][target]["probability"][-1])
-             if target in p.summary.get("colonisation", {}) else fmt(None) for p in plans])
+    for name in s0.get("focus_risk", {}):
+        add(f"focus area {name}: risk by year {horizon}",
+            [risk(p.summary["focus_risk"][name], "ever_below")
+             if name in p.summary.get("focus_risk", {}) else fmt(None) for p in plans])
+    for name in s0.get("colonisation", {}):
+        add(f"focus area {name}: probability colonised by year {horizon}",
+            [fmt(p.summary["colonisation"][name]["probability"][-1])
+             if name in p.summary.get("colonisation", {}) else fmt(None) for p in plans])
     add("metapopulation capacity",
         [fmt((p.summary.get("metapopulation_capacity") or {}).get("lambda_M")) for p in plans])
     conf = s0.get("confidence", 0.95)
@@ -272,7 +272,7 @@ def _comparison_results(folder: Path) -> str:
                 values.append(_interval(v, _csv_value(r[f"{c}_lo"]), _csv_value(r[f"{c}_hi"])))
             else:
                 values.append(fmt(v))
-        label = LABELS.get(c) or (f"probability target {c[len('colonisation_'):]} colonised by "
+        label = LABELS.get(c) or (f"probability focus area {c[len('colonisation_'):]} colonised by "
                                   "the horizon" if c.startswith("colonisation_") else c)
         rows.append((f'{_e(label)} <span class="col">{_e(c)}</span>', values))
     out = [_table(["", *[r.get("plan", "") for r in records]], rows)]

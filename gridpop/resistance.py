@@ -15,30 +15,30 @@ the best habitat, ``r_max`` in the worst, ``shape > 1`` keeps resistance low in 
 
 One walk
 --------
-A disperser leaves its cell and takes at least one and at most ``max_steps`` steps. Each step:
+A disperser leaves its cell and takes at least one and at most ``walk_length`` steps. Each step:
 
 1. **Direction.** It steps to one of its 8 neighbours ``b`` with probability proportional to
    ``P(b) / len`` (``len`` = 1 for the 4 orthogonal, ``sqrt(2)`` for the 4 diagonal neighbours),
    times ``exp(kappa (cos(theta) - 1))`` (that is, proportional to ``exp(kappa cos(theta))``)
-   where ``theta`` is the turn from its previous step (``kappa = persistence``; 0 = uncorrelated;
+   where ``theta`` is the turn from its previous step (``kappa = heading_bias``; 0 = uncorrelated;
    the first step has no previous direction). A cell with ``P = 0`` is never entered, and a
    diagonal step is refused when both orthogonal cells it passes between are impassable, so a
    barrier drawn as a diagonal line of cells also holds. A walker with no enterable neighbour is
    lost where it stands.
 2. **Mortality.** It dies on entering cell ``b`` with probability
-   ``1 - exp(-mortality_per_resistance * R(b) * len)``: the hazard is the cost distance of the step
+   ``1 - exp(-death_per_resistance * R(b) * len)``: the hazard is the cost distance of the step
    (resistance times length), 0 when the parameter is 0.
-3. **Settlement.** If alive, it settles in ``b`` with probability ``q(b) ** settle_shape``; never in
-   the matrix (``q = 0``).
+3. **Settlement.** If alive, it settles in ``b`` with probability ``q(b) ** settle_exponent``;
+   never in the matrix (``q = 0``).
 
-A walker still moving after ``max_steps`` steps dies. Lost walkers (mortality, trapped, out of
+A walker still moving after ``walk_length`` steps dies. Lost walkers (mortality, trapped, out of
 steps) are the difference ``sum(dispersers) - sum(arrivals)``; ``lost``, when given, receives where
 they were lost. ``visits`` counts entries into each cell (a walker that dies on entering a cell has
 visited it; the start cell is not visited by leaving it).
 
 Reversibility
 -------------
-Without persistence, the step weight ``P(b) / len`` makes the walk a reversible Markov chain: with
+Without heading_bias, the step weight ``P(b) / len`` makes the walk a reversible Markov chain: with
 the symmetric edge conductance ``c_ab = P(a) P(b) / len_ab`` the transition is
 ``c_ab / sum_b c_ab`` (``P(a)`` cancels), so the stationary measure is ``sum_b c_ab`` and the walk
 is the random walk of an electrical network with those conductances (Doyle and Snell 1984). Escape
@@ -57,14 +57,14 @@ exact.
 
 *Deterministic* (:func:`disperse_walk_deterministic`): the expected densities of walkers still
 moving are propagated one step at a time (a Markov-chain redistribution), the exact expectation of
-the stochastic walk. With persistence the state is (cell, direction of the last step), 8 layers.
+the stochastic walk. With heading_bias the state is (cell, direction of the last step), 8 layers.
 Each target cell gathers from its neighbours (no write conflicts, same floating-point order for
 any thread count). The origin of a walker is not tracked: ``stayed = 0`` and ``retained = 0``, that
 is, a walker that settles back in its own cell or patch counts as an emigrant and an immigrant
 (:func:`patch_connectivity` gives the patch-to-patch probabilities).
 
-Cost: the deterministic engine gathers 8 neighbours per cell and step (8 x 8 with persistence) and
-keeps about 10 float64 grids (33 with persistence); the stochastic one costs per walker step and
+Cost: the deterministic engine gathers 8 neighbours per cell and step (8 x 8 with heading_bias) and
+keeps about 10 float64 grids (33 with heading_bias); the stochastic one costs per walker step and
 keeps 3 float64 grids per numba thread. ``benchmarks/bench_walk.py`` measures both.
 
 References
@@ -113,31 +113,31 @@ class WalkParams:
 
     Parameters
     ----------
-    max_steps : int
+    walk_length : int
         Largest number of steps of one walk (>= 1).
-    mortality_per_resistance : float
+    death_per_resistance : float
         Hazard per unit of cost distance (resistance x step length); 0 = no mortality.
-    settle_shape : float
-        Settlement probability is ``quality ** settle_shape`` (> 0).
-    persistence : float
+    settle_exponent : float
+        Settlement probability is ``quality ** settle_exponent`` (> 0).
+    heading_bias : float
         Concentration ``kappa`` of the turning angle, >= 0; 0 = uncorrelated walk.
     """
 
-    max_steps: int
-    mortality_per_resistance: float = 0.0
-    settle_shape: float = 1.0
-    persistence: float = 0.0
+    walk_length: int
+    death_per_resistance: float = 0.0
+    settle_exponent: float = 1.0
+    heading_bias: float = 0.0
 
     def __post_init__(self):
         checks = (
-            ("max_steps", isinstance(self.max_steps, (int, np.integer))
-             and not isinstance(self.max_steps, bool) and self.max_steps >= 1,
+            ("walk_length", isinstance(self.walk_length, (int, np.integer))
+             and not isinstance(self.walk_length, bool) and self.walk_length >= 1,
              "an integer >= 1"),
-            ("mortality_per_resistance", _finite(self.mortality_per_resistance)
-             and self.mortality_per_resistance >= 0, "a finite number >= 0"),
-            ("settle_shape", _finite(self.settle_shape) and self.settle_shape > 0,
+            ("death_per_resistance", _finite(self.death_per_resistance)
+             and self.death_per_resistance >= 0, "a finite number >= 0"),
+            ("settle_exponent", _finite(self.settle_exponent) and self.settle_exponent > 0,
              "a finite number > 0"),
-            ("persistence", _finite(self.persistence) and self.persistence >= 0,
+            ("heading_bias", _finite(self.heading_bias) and self.heading_bias >= 0,
              "a finite number >= 0"),
         )
         for name, ok, allowed in checks:
@@ -209,7 +209,7 @@ class _Surfaces(NamedTuple):
     """Per-cell arrays the kernels read, derived once from the inputs."""
 
     perm: np.ndarray  # permeability, 0 = impassable
-    settle: np.ndarray  # settlement probability q ** settle_shape
+    settle: np.ndarray  # settlement probability q ** settle_exponent
     surv1: np.ndarray  # survival of an orthogonal step into the cell
     surv2: np.ndarray  # survival of a diagonal step into the cell
 
@@ -233,9 +233,9 @@ def _surfaces(permeability, quality, params: WalkParams, entry_survival=None) ->
     if bad.any():
         raise InputDataError(f"habitat quality: values must be in [0, 1] or NaN, got "
                              f"{q[bad][0]:g} in {int(bad.sum())} cell(s)")
-    settle = np.where(q > 0, q, 0.0) ** params.settle_shape
+    settle = np.where(q > 0, q, 0.0) ** params.settle_exponent
     resist = np.divide(1.0, perm, out=np.zeros_like(perm), where=perm > 0)
-    mu = params.mortality_per_resistance
+    mu = params.death_per_resistance
     surv1, surv2 = np.exp(-mu * resist), np.exp(-mu * math.sqrt(2.0) * resist)
     if entry_survival is not None:
         surv1 *= entry_survival
@@ -243,13 +243,13 @@ def _surfaces(permeability, quality, params: WalkParams, entry_survival=None) ->
     return _Surfaces(perm, settle, surv1, surv2)
 
 
-def _turn_table(persistence: float) -> np.ndarray:
-    """Turning weights ``(rows, 8)``: row 0 = no previous step (all 1); with persistence, row
+def _turn_table(heading_bias: float) -> np.ndarray:
+    """Turning weights ``(rows, 8)``: row 0 = no previous step (all 1); with heading_bias, row
     ``d + 1`` = previous step in direction ``d``, weight ``exp(kappa (cos(turn) - 1))``."""
-    if persistence == 0.0:
+    if heading_bias == 0.0:
         return np.ones((1, 8))
     cos = (np.outer(_DY, _DY) + np.outer(_DX, _DX)) / np.outer(_LEN, _LEN)
-    return np.vstack([np.ones((1, 8)), np.exp(persistence * (cos - 1.0))])
+    return np.vstack([np.ones((1, 8)), np.exp(heading_bias * (cos - 1.0))])
 
 
 def _check_shape(name: str, a: np.ndarray, shape: tuple[int, ...]) -> None:
@@ -320,7 +320,7 @@ def _pick(perm, y, x, turn, row, target):
 
 
 @pjit
-def _walk_stochastic(dispersers, perm, settle, surv1, surv2, labels, turn, max_steps, mortal,
+def _walk_stochastic(dispersers, perm, settle, surv1, surv2, labels, turn, walk_length, mortal,
                      key, arrivals, visits, lost, retained, settled_from, stayed):
     ny, nx = perm.shape
     persist = turn.shape[0] > 1
@@ -338,7 +338,7 @@ def _walk_stochastic(dispersers, perm, settle, surv1, surv2, labels, turn, max_s
                 x = np.int64(j)
                 row = 0
                 settled = False
-                for t in range(max_steps):
+                for t in range(walk_length):
                     z = _norm(perm, y, x, turn, row)
                     if z <= 0.0:
                         break
@@ -399,9 +399,9 @@ def _det_step(g, perm, settle, surv1, surv2, turn, invz, last, g_next, arrivals,
     ``g[a, l]`` holds the density of moving walkers of cell a in state layer ``l`` divided by the
     normaliser of their turn row ``r(l)``, so the flow into cell c from neighbour a = c - d_k is
     ``weight_k(a) * sum_l g[a, l] * turn[r(l), k]``; ``r(l) = l + 1`` for the 8 direction layers,
-    0 for a single layer (no persistence, or before the first step). Each target cell gathers its
+    0 for a single layer (no heading_bias, or before the first step). Each target cell gathers its
     inflow, removes the dead and the settled, and stores its own scaled density in ``g_next``: one
-    layer per arrival direction with persistence, a single layer without.
+    layer per arrival direction with heading_bias, a single layer without.
     """
     ny, nx = perm.shape
     nl = g.shape[2]
@@ -461,7 +461,7 @@ def _det_step(g, perm, settle, surv1, surv2, turn, invz, last, g_next, arrivals,
 # --------------------------------------------------------------------------- wrappers
 
 
-def _propagate(dispersers: np.ndarray, surf: _Surfaces, turn: np.ndarray, max_steps: int):
+def _propagate(dispersers: np.ndarray, surf: _Surfaces, turn: np.ndarray, walk_length: int):
     """Expected walk of ``dispersers``: (arrivals, visits, lost) maps."""
     threads = numba.get_num_threads()
     if dispersers.size < SERIAL_CELLS:
@@ -475,9 +475,9 @@ def _propagate(dispersers: np.ndarray, surf: _Surfaces, turn: np.ndarray, max_st
         g = np.empty(shape + (1,))  # no direction before the first step
         _det_start(dispersers, invz, g, lost)
         g_next = np.empty(shape + (layers,))
-        for t in range(max_steps):
+        for t in range(walk_length):
             _det_step(g, surf.perm, surf.settle, surf.surv1, surf.surv2, turn, invz,
-                      t == max_steps - 1, g_next, arrivals, visits, lost)
+                      t == walk_length - 1, g_next, arrivals, visits, lost)
             if g.shape[2] != layers:
                 g = np.empty_like(g_next)
             g, g_next = g_next, g
@@ -532,20 +532,20 @@ def disperse_walk_deterministic(dispersers, permeability, quality, labels, n_pat
     WalkResult
         ``stayed`` is zero: cell origins are not tracked in this mode (see the module
         docstring). ``retained`` and ``settled_from`` are exact: each patch's dispersers are also
-        propagated on their own, on the patch's bounding box widened by ``max_steps + 1``.
+        propagated on their own, on the patch's bounding box widened by ``walk_length + 1``.
     """
     surf = _surfaces(permeability, quality, params, entry_survival)
     d = _check_dispersers(dispersers, surf.perm.shape, whole=False)
     lab = _check_labels(labels, n_patches, surf.perm.shape)
-    turn = _turn_table(params.persistence)
-    arrivals, visits, lost_map = _propagate(d, surf, turn, params.max_steps)
+    turn = _turn_table(params.heading_bias)
+    arrivals, visits, lost_map = _propagate(d, surf, turn, params.walk_length)
     if lost is not None:
         lost += lost_map
     retained, settled_from = np.zeros(n_patches + 1), np.zeros(n_patches + 1)
-    for p, ys, xs in _patch_windows(lab, n_patches, params.max_steps + 1):
+    for p, ys, xs in _patch_windows(lab, n_patches, params.walk_length + 1):
         start = np.where(lab[ys, xs] == p, d[ys, xs], 0.0)
         if start.any():
-            arr, _, _ = _propagate(start, surf.crop(ys, xs), turn, params.max_steps)
+            arr, _, _ = _propagate(start, surf.crop(ys, xs), turn, params.walk_length)
             settled_from[p] = arr.sum()
             retained[p] = arr[lab[ys, xs] == p].sum()
     return WalkResult(arrivals, np.zeros_like(arrivals), retained, settled_from, visits)
@@ -589,9 +589,9 @@ def disperse_walk_stochastic(dispersers, permeability, quality, labels, n_patche
     arrivals, visits, lost_t = (np.zeros((nt,) + shape) for _ in range(3))
     retained, settled_from = np.zeros((nt, n_patches + 1)), np.zeros((nt, n_patches + 1))
     stayed = np.zeros(shape)
-    mortal = params.mortality_per_resistance > 0 or entry_survival is not None
+    mortal = params.death_per_resistance > 0 or entry_survival is not None
     _walk_stochastic(d, surf.perm, surf.settle, surf.surv1, surf.surv2, lab,
-                     _turn_table(params.persistence), int(params.max_steps), mortal,
+                     _turn_table(params.heading_bias), int(params.walk_length), mortal,
                      np.uint64(key), arrivals, visits, lost_t, retained, settled_from, stayed)
     if lost is not None:
         lost += lost_t.sum(axis=0)
@@ -625,7 +625,7 @@ def patch_connectivity(labels, n_patches: int, permeability, quality, params: Wa
 
     Notes
     -----
-    Each patch's walk is computed on its bounding box widened by ``max_steps + 1`` cells, the
+    Each patch's walk is computed on its bounding box widened by ``walk_length + 1`` cells, the
     farthest a walker can reach, so the result is the same as on the full grid.
     """
     surf = _surfaces(permeability, quality, params, entry_survival)
@@ -635,15 +635,15 @@ def patch_connectivity(labels, n_patches: int, permeability, quality, params: Wa
     _check_shape("weights", w, shape)
     if not (np.isfinite(w).all() and (w >= 0).all()):
         raise ValueError("weights must be finite and >= 0")
-    turn = _turn_table(params.persistence)
+    turn = _turn_table(params.heading_bias)
     out = np.zeros((n_patches, n_patches))
-    for p, ys, xs in _patch_windows(lab, n_patches, params.max_steps + 1):
+    for p, ys, xs in _patch_windows(lab, n_patches, params.walk_length + 1):
         lab_w = lab[ys, xs]
         start = np.where(lab_w == p, w[ys, xs], 0.0)
         total = start.sum()
         if total == 0.0:
             continue
-        arrivals, _, _ = _propagate(start / total, surf.crop(ys, xs), turn, params.max_steps)
+        arrivals, _, _ = _propagate(start / total, surf.crop(ys, xs), turn, params.walk_length)
         out[p - 1] = np.bincount(lab_w.ravel(), weights=arrivals.ravel(),
                                  minlength=n_patches + 1)[1:]
     return out

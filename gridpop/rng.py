@@ -119,9 +119,11 @@ def poisson_inversion(lam, exp_neg_lam, u):
     -------
     int
         Inversion by sequential search (Devroye 1986, Non-Uniform Random Variate Generation,
-        Springer, chapter X, from memory). The first :data:`POISSON_BLOCK` comparisons are
-        counted without branching (a search that stops at a random step costs a mispredicted
-        branch per draw); the search goes on one term at a time beyond them.
+        Springer: section III.2, the inversion method for discrete distributions, and section
+        X.3, the Poisson distribution; section numbers from memory, pages not verified).
+        The first :data:`POISSON_BLOCK` comparisons are counted without branching (a search
+        that stops at a random step costs a mispredicted branch per draw); the search goes on
+        one term at a time beyond them.
     """
     p = exp_neg_lam
     f = p
@@ -270,7 +272,9 @@ def binomial_table(p):
 def binomial_inversion(table, n, u):
     """The Binomial(n, p) quantile of a uniform ``u`` from ``binomial_table(p)``, ``0 <= n <=
     BERNOULLI_MAX``: the number of CDF values below u, counted without branching (inversion,
-    Devroye 1986, Non-Uniform Random Variate Generation, Springer, chapter X, from memory)."""
+    Devroye 1986, Non-Uniform Random Variate Generation, Springer: section III.2, inversion for
+    discrete distributions, and section X.4, the binomial distribution; section numbers from
+    memory, pages not verified)."""
     row = table[n]
     k = 0
     for j in range(BERNOULLI_MAX):

@@ -179,16 +179,16 @@ SECTIONS: dict[str, tuple[str, tuple[Key, ...]]] = {
             Key("resistance_shape", "float", 1.0, "Walk: shape of the suitability-to-"
                 "resistance transform (> 1 keeps resistance low in middling habitat).", low=0,
                 low_open=True),
-            Key("max_steps", "int", 60, "Walk: the most cell-to-cell steps a disperser takes "
+            Key("walk_length", "int", 60, "Walk: the most cell-to-cell steps a disperser takes "
                 "in a year; one still moving after that dies.", "cells", low=1),
-            Key("step_mortality", "float", 0.0, "Walk: hazard per unit resistance and cell "
+            Key("death_per_resistance", "float", 0.0, "Walk: hazard per unit resistance and cell "
                 "length: entering a cell of resistance R kills with probability "
-                "1 - exp(-step_mortality R len).", low=0),
-            Key("settle_shape", "float", 1.0, "Walk: a walker settles on a cell of suitability "
-                "s with probability s^settle_shape (never where capacity is 0).", low=0,
+                "1 - exp(-death_per_resistance R len).", low=0),
+            Key("settle_exponent", "float", 1.0, "Walk: a walker settles on a cell of suitability "
+                "s with probability s^settle_exponent (never where capacity is 0).", low=0,
                 low_open=True),
-            Key("persistence", "float", 0.0, "Walk: directional persistence kappa (correlated "
-                "random walk; 0 = none).", low=0),
+            Key("heading_bias", "float", 0.0, "Walk: heading bias kappa, how strongly a walker "
+                "keeps its last direction (correlated random walk; 0 = none).", low=0),
         ),
     ),
     "output": (
@@ -207,11 +207,11 @@ SECTIONS: dict[str, tuple[str, tuple[Key, ...]]] = {
             Key("quasi_extinction", "float", 10.0, "Quasi-extinction threshold: a replicate is "
                 "below it in a year when abundance < this value.", "individuals", low=0,
                 low_open=True),
-            Key("targets", "path", None, "Vector file of named target areas (polygons): risk "
+            Key("focus_areas", "path", None, "Vector file of named focus areas (polygons): risk "
                 "and colonisation are also reported for the individuals inside each.",
-                example="targets.gpkg"),
-            Key("target_name_field", "str", "name", "Attribute of the target areas holding "
-                "their names (features with the same name form one target)."),
+                example="focus_areas.gpkg"),
+            Key("focus_name_field", "str", "name", "Attribute of the focus areas holding "
+                "their names (features with the same name form one focus area)."),
             Key("confidence", "float", 0.95, "Coverage of the confidence intervals.", low=0,
                 high=1, low_open=True, high_open=True),
         ),

@@ -14,11 +14,11 @@ Definitions (the functions of :mod:`gridpop.metrics` do the arithmetic):
 
 - Abundance is the census of the ledger (after dispersal, see :mod:`gridpop.engine`), year 0 the
   initial population. A replicate is *below* the quasi-extinction threshold ``[risk]
-  quasi_extinction`` in a year when its abundance is smaller than it; a patch or a target area is
+  quasi_extinction`` in a year when its abundance is smaller than it; a patch or a focus area is
   *occupied* when its abundance is at least ``[output] occupancy_threshold``.
-- Target areas (``[risk] targets``, a vector file): each name of ``target_name_field`` is one
-  target, the cells whose centre its features cover. Its abundance is counted at every census of
-  every replicate (:class:`TargetCensus`), so it is exact and stays the same cells in every plan,
+- Focus areas (``[risk] focus_areas``, a vector file): each name of ``focus_name_field`` is one
+  focus area, the cells whose centre its features cover. Its abundance is counted at every census of
+  every replicate (:class:`FocusCensus`), so it is exact and stays the same cells in every plan,
   even where a corridor joins two patches into one.
 - Metapopulation capacity: the run's patches (after the plan's actions), each at its centroid
   with its area in hectares, and ``alpha = 1 / [dispersal] mean_distance_m``; with the walk
@@ -77,55 +77,55 @@ FILES = ("summary.json", "risk.csv", "patch_occupancy.csv", "colonisation_year.t
 
 
 @dataclass(frozen=True, eq=False)
-class TargetCensus:
-    """Abundance inside named target areas, counted at each census of each replicate.
+class FocusCensus:
+    """Abundance inside named focus areas, counted at each census of each replicate.
 
     Attributes
     ----------
     names : tuple of str
         Target names, in the order of their first feature in the file.
     cells : tuple of (k,) int64 ndarray
-        Flat indices (``i * nx + j``) of each target's cells.
+        Flat indices (``i * nx + j``) of each focus area's cells.
     """
 
     names: tuple[str, ...]
     cells: tuple[np.ndarray, ...]
 
     def table(self, replicates: int, years: int) -> np.ndarray:
-        """An empty ``(replicates, years + 1, targets)`` table for a batch."""
+        """An empty ``(replicates, years + 1, focus areas)`` table for a batch."""
         return np.zeros((replicates, years + 1, len(self.names)))
 
     def record(self, row: np.ndarray, n: np.ndarray) -> None:
-        """Write the abundance inside each target of the census ``n`` (ny, nx) into ``row``."""
+        """Write the abundance inside each focus area of the census ``n`` (ny, nx) into ``row``."""
         flat = n.ravel()
         for q, idx in enumerate(self.cells):
             row[q] = flat[idx].sum()
 
 
-def target_census(scenario, grid) -> TargetCensus | None:
-    """The target areas of ``[risk] targets`` on the grid, or None when none are given.
+def focus_census(scenario, grid) -> FocusCensus | None:
+    """The focus areas of ``[risk] focus_areas`` on the grid, or None when none are given.
 
     Raises
     ------
     ScenarioError
-        ``target_name_field`` is not an attribute of the layer, or a feature has no name.
+        ``focus_name_field`` is not an attribute of the layer, or a feature has no name.
     InputDataError
-        The layer cannot be read, has no CRS, or a target covers no cell centre of the grid.
+        The layer cannot be read, has no CRS, or a focus area covers no cell centre of the grid.
     """
     risk = scenario.risk
-    if risk.targets is None:
+    if risk.focus_areas is None:
         return None
-    loc = f"{where(scenario.path, 'risk', 'targets')} ({risk.targets})"
-    gdf, _ = _read_vector(risk.targets, grid, loc)
-    field = risk.target_name_field
+    loc = f"{where(scenario.path, 'risk', 'focus_areas')} ({risk.focus_areas})"
+    gdf, _ = _read_vector(risk.focus_areas, grid, loc)
+    field = risk.focus_name_field
     columns = [str(c) for c in gdf.columns if c != gdf.geometry.name]
     if field not in columns:
-        raise ScenarioError(f"{where(scenario.path, 'risk', 'target_name_field')} = {field!r}: "
-                            f"{Path(risk.targets).name} has no such attribute; it has "
+        raise ScenarioError(f"{where(scenario.path, 'risk', 'focus_name_field')} = {field!r}: "
+                            f"{Path(risk.focus_areas).name} has no such attribute; it has "
                             f"{', '.join(columns) or 'no attributes'}.")
     if gdf[field].isna().any():
         raise ScenarioError(f"{loc}: {int(gdf[field].isna().sum())} features have no "
-                            f"{field!r}; every target area needs a name.")
+                            f"{field!r}; every focus area needs a name.")
     names = list(dict.fromkeys(str(v) for v in gdf[field]))
     cells = []
     for name in names:
@@ -133,11 +133,11 @@ def target_census(scenario, grid) -> TargetCensus | None:
         mask = rasterio.features.rasterize(((g, 1) for g in geoms), out_shape=grid.shape,
                                            transform=grid.transform, fill=0, dtype=np.uint8)
         if not mask.any():
-            raise InputDataError(f"{loc}: target {name!r} covers no cell centre of the grid "
+            raise InputDataError(f"{loc}: focus area {name!r} covers no cell centre of the grid "
                                  f"(its bounds {_fmt_bounds(geoms.total_bounds)}, grid bounds "
                                  f"{_fmt_bounds(grid.bounds)}).")
         cells.append(np.flatnonzero(mask))
-    return TargetCensus(tuple(names), tuple(cells))
+    return FocusCensus(tuple(names), tuple(cells))
 
 
 def patch_centroids(labels: np.ndarray, n_patches: int, grid) -> np.ndarray:
@@ -195,7 +195,7 @@ def plan(scenario) -> dict:
                         for c in scenario.extra.get("action", ())]}
 
 
-def summarise(scenario, model, ledger: np.ndarray, target_abundance: np.ndarray | None) -> dict:
+def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray | None) -> dict:
     """The content of summary.json.
 
     Parameters
@@ -205,8 +205,8 @@ def summarise(scenario, model, ledger: np.ndarray, target_abundance: np.ndarray 
     ledger : (R, T + 1, P + 1, F) ndarray
         The combined ledger (index 0 the landscape, 1..P the patches; fields
         :data:`gridpop.outputs.LEDGER_FIELDS`).
-    target_abundance : (R, T + 1, Q) ndarray or None
-        Abundance inside each target area (:class:`TargetCensus`).
+    focus_abundance : (R, T + 1, Q) ndarray or None
+        Abundance inside each focus area (:class:`FocusCensus`).
     """
     risk, occ_threshold = scenario.risk, scenario.output.occupancy_threshold
     total = ledger[:, :, 0, ABUNDANCE]
@@ -216,21 +216,21 @@ def summarise(scenario, model, ledger: np.ndarray, target_abundance: np.ndarray 
     out = {"quasi_extinction": risk.quasi_extinction, "replicates": reps, "years": steps - 1,
            "confidence": risk.confidence, "occupancy_threshold": occ_threshold,
            "risk": _risk(total, risk.quasi_extinction, risk.confidence),
-           "target_risk": {}, "expected_minimum": {"estimate": est, "lo": lo, "hi": hi},
+           "focus_risk": {}, "expected_minimum": {"estimate": est, "lo": lo, "hi": hi},
            "final_abundance": final_abundance(total),
            "occupied_patches": {"year": list(range(steps)), "mean": np.zeros(steps)},
            "colonisation": {}, "notes": []}
     if model.n_patches:
         occ = occupancy_over_time(ledger[:, :, 1:, ABUNDANCE], occ_threshold)
         out["occupied_patches"]["mean"] = occ["mean_n_occupied"]
-    if target_abundance is not None:
-        names = model.targets.names
-        col = colonisation_probability(target_abundance, occ_threshold)
+    if focus_abundance is not None:
+        names = model.focus.names
+        col = colonisation_probability(focus_abundance, occ_threshold)
         for q, name in enumerate(names):
-            out["target_risk"][name] = _risk(target_abundance[:, :, q], risk.quasi_extinction,
+            out["focus_risk"][name] = _risk(focus_abundance[:, :, q], risk.quasi_extinction,
                                              risk.confidence)
             out["colonisation"][name] = {"year": list(range(steps)), "probability": col[:, q]}
-        out["targets"] = {"file": str(risk.targets), "name_field": risk.target_name_field,
+        out["focus_areas"] = {"file": str(risk.focus_areas), "name_field": risk.focus_name_field,
                           "names": list(names)}
     out.update(metapopulation_capacity=_capacity(scenario, model, out["notes"]),
                parameters=parameters(scenario), plan=plan(scenario), cautions=CAUTIONS)
@@ -275,7 +275,7 @@ def write_summary(work: Path, scenario, model, ledger: np.ndarray, totals: dict,
     totals : dict
         The combined accumulators (``"ever"``: replicates occupied by year t, per cell).
     parts : list of Path
-        The batch folders, in replicate order (each holds ``targets.npy`` when targets are
+        The batch folders, in replicate order (each holds ``focus.npy`` when focus areas are
         given).
 
     Returns
@@ -283,10 +283,10 @@ def write_summary(work: Path, scenario, model, ledger: np.ndarray, totals: dict,
     list of str
         The names of the files written.
     """
-    targets = None
-    if model.targets is not None:
-        targets = np.concatenate([np.load(p / "targets.npy") for p in parts], axis=0)
-    summary = summarise(scenario, model, ledger, targets)
+    focus = None
+    if model.focus is not None:
+        focus = np.concatenate([np.load(p / "focus.npy") for p in parts], axis=0)
+    summary = summarise(scenario, model, ledger, focus)
     write_json(work / "summary.json", summary)
     r = summary["risk"]
     keys = ("ever_below", "ever_below_lo", "ever_below_hi", "below_now", "below_now_lo",

@@ -19,7 +19,7 @@ from test_summary import (
     ledger_array,
     read_rows,
     suitability,
-    write_targets,
+    write_focus_areas,
 )
 
 from gridpop.cli import main
@@ -54,7 +54,7 @@ mean_distance_m = 60.0
 
 [risk]
 quasi_extinction = 70.0
-targets = "targets.gpkg"
+focus_areas = "focus_areas.gpkg"
 """
 
 RESERVE = """
@@ -76,8 +76,8 @@ def write_plans(tmp_path, plans, *, replicates=8, suit="suit.tif"):
     """Write the rasters and layers of the case and one scenario per (name, seed, multiplier,
     extra text); multiplier None is the base case without actions."""
     write_raster(tmp_path / "suit.tif", suitability(), transform=TRANSFORM)
-    write_targets(tmp_path / "targets.gpkg", ["east"], [box(*EAST)])
-    write_targets(tmp_path / "reserve.gpkg", ["west"], [box(*WEST)])
+    write_focus_areas(tmp_path / "focus_areas.gpkg", ["east"], [box(*EAST)])
+    write_focus_areas(tmp_path / "reserve.gpkg", ["west"], [box(*WEST)])
     paths = []
     for name, seed, multiplier, extra in plans:
         body = BASE.format(replicates=replicates, seed=seed, suitability=suit) + extra
@@ -235,8 +235,8 @@ def test_different_grids_exit_2_naming_both_files(tmp_path, capsys):
 @pytest.mark.parametrize(
     "edit, expect",
     [
-        ('targets = "targets.gpkg"', 'targets = "targets.gpkg"\ntarget_name_field = "site"',
-         ),
+        ('focus_areas = "focus_areas.gpkg"',
+         'focus_areas = "focus_areas.gpkg"\nfocus_name_field = "site"'),
         ("years = 8", "years = 9"),
     ],
 )
@@ -249,7 +249,7 @@ def test_bad_second_plan_exit_2_nothing_written(tmp_path, capsys, edit, expect):
     assert run_cli("compare", base, other, "--out", out, "--no-plots") == 2
     err = capsys.readouterr().err
     assert str(other) in err and "Traceback" not in err
-    key = "target_name_field = 'site'" if "site" in expect else "[run] years = 8 and 9"
+    key = "focus_name_field = 'site'" if "site" in expect else "[run] years = 8 and 9"
     assert key in err
     assert not out.exists() and not (tmp_path / ".cmp.partial").exists()
 

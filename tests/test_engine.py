@@ -175,9 +175,9 @@ WALK = """
 [dispersal]
 fraction = 0.3
 method = "walk"
-max_steps = 40
-step_mortality = 0.02
-persistence = 0.5
+walk_length = 40
+death_per_resistance = 0.02
+heading_bias = 0.5
 """
 
 

@@ -55,7 +55,7 @@ def _curve(n: np.ndarray, threshold: float) -> dict:
 
 def _areas(folder):
     """A reserve polygon stored in WGS 84 longitude/latitude, a corridor line in UTM, a raster
-    area and a target area."""
+    area and a focus area."""
     to_ll = pyproj.Transformer.from_crs(UTM, "EPSG:4326", always_xy=True)
     x0, y0, x1, y1 = RESERVE
     corners = [to_ll.transform(x, y) for x, y in ((x0, y0), (x1, y0), (x1, y1), (x0, y1))]
@@ -65,7 +65,7 @@ def _areas(folder):
     gpd.GeoDataFrame(geometry=[LineString([(X0 + 750, Y0 - 600), (X0 + 1200, Y0 - 900)])],
                      crs=UTM).to_file(corridor)
     restoration = write_raster(folder / "restoration.tif", np.ones((NY, NX)))
-    targets = folder / "targets.gpkg"
+    targets = folder / "focus_areas.gpkg"
     gpd.GeoDataFrame({"name": ["east"]}, geometry=[box(X0 + 1200, Y0 - 1100, X0 + 1600,
                                                        Y0 - 700)], crs=UTM).to_file(targets)
     return reserve, corridor, restoration, targets
@@ -104,7 +104,7 @@ def make_run(folder, name, *, years=12, replicates=8, seed=0, growth=0.0, action
                     {"kind": "restoration", "area": str(restoration)}] if actions else []
     summary = {
         "quasi_extinction": 50.0, "replicates": r, "years": years, "confidence": 0.95,
-        "risk": _curve(n, 50.0), "target_risk": {"east": _curve(n / 4, 10.0)},
+        "risk": _curve(n, 50.0), "focus_risk": {"east": _curve(n / 4, 10.0)},
         "expected_minimum": {"estimate": 41.5, "lo": 30.25, "hi": 52.75},
         "final_abundance": {"mean": 70.5, "p5": 10.0, "p25": 40.0, "p50": 66.0, "p75": 90.0,
                             "p95": 130.0},
@@ -120,7 +120,7 @@ def make_run(folder, name, *, years=12, replicates=8, seed=0, growth=0.0, action
                        "action": plan_actions},
         "plan": {"name": name, "description": f"question <of> plan {name} & more",
                  "actions": plan_actions},
-        "targets": {"file": str(targets), "name_field": "name", "names": ["east"]},
+        "focus_areas": {"file": str(targets), "name_field": "name", "names": ["east"]},
         "cautions": CAUTIONS, "notes": ["fake note <b>"],
     }
     (folder / "summary.json").write_text(json.dumps(summary))
@@ -195,13 +195,13 @@ def test_plot_compare_one_risk_curve_per_plan(compare_dir):
     _, plans = read_plans(compare_dir)
     fig = risk_figure(plans)
     visible = [ax for ax in fig.axes if ax.get_visible()]
-    assert [ax.get_title() for ax in visible] == ["whole landscape", "target east"]
+    assert [ax.get_title() for ax in visible] == ["whole landscape", "focus area east"]
     for ax, key in zip(visible, ("risk", "east"), strict=True):
         lines = [ln for ln in ax.get_lines() if not ln.get_label().startswith("_")]
         assert [ln.get_label() for ln in lines] == ["base", "corridor", "reserve"]
         assert len(ax.collections) == 3  # one interval band per plan
         for ln, plan in zip(lines, plans, strict=True):
-            curve = plan.summary["risk"] if key == "risk" else plan.summary["target_risk"][key]
+            curve = plan.summary["risk"] if key == "risk" else plan.summary["focus_risk"][key]
             np.testing.assert_array_equal(ln.get_ydata(), curve["ever_below"])
         colours = {ln.get_color() for ln in lines}
         assert len(colours) == 3
@@ -281,7 +281,7 @@ def test_maps_outline_in_grid_crs_and_scale_bar(run_dir):
     plan = read_run(run_dir)
     layer = read_band(run_dir / "occupancy.tif")
     areas = outlines(plan, layer.crs)
-    assert [k for k, _ in areas] == ["reserve", "corridor", "target"]
+    assert [k for k, _ in areas] == ["reserve", "corridor", "focus"]
     x, y = areas[0][1].geometry.iloc[0].exterior.xy
     np.testing.assert_allclose([min(x), min(y), max(x), max(y)], RESERVE, atol=1e-3)
     assert layer.extent == (X0, X0 + NX * CELL, Y0 - NY * CELL, Y0)
@@ -322,7 +322,7 @@ def test_missing_area_file_warns(run_dir):
     (run_dir / "reserve.gpkg").unlink()
     with pytest.warns(UserWarning, match="reserve area of plan corridor is missing"):
         areas = outlines(read_run(run_dir), read_band(run_dir / "occupancy.tif").crs)
-    assert [k for k, _ in areas] == ["corridor", "target"]
+    assert [k for k, _ in areas] == ["corridor", "focus"]
 
 
 def test_not_a_result_folder(tmp_path):

@@ -87,7 +87,7 @@ def test_compare_report_contents(compare_dir):
                   "12.75", "13.75", "14.75", "40.5", "60.5", "-0.25"):
         assert f">{value}<" in text, value
     assert "Replicates are paired by common random numbers (seed 7)." in words
-    assert "probability target east colonised by the horizon" in words
+    assert "probability focus area east colonised by the horizon" in words
     # parameters: one column per plan, the growth rate differs between plans
     rates = re.search(r'<tr class="differs"><th>growth\.rate</th>(.*?)</tr>', text).group(1)
     assert re.findall(r">([^<]+)</td>", rates) == ["0.35", "0.37", "0.39"]

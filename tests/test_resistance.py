@@ -102,7 +102,7 @@ def test_deterministic_walk_is_the_one_step_stencil_convolved_n_times(n):
     practice). scipy.signal.fftconvolve is the reference."""
     size = 2 * n + 5
     c = size // 2
-    params = WalkParams(max_steps=n)
+    params = WalkParams(walk_length=n)
     _, visits, lost = det(point(size, 1.0), np.ones((size, size)), np.zeros((size, size)), params)
     stencil = np.array([[1 / SQ2, 1, 1 / SQ2], [1, 0, 1], [1 / SQ2, 1, 1 / SQ2]])
     stencil /= stencil.sum()
@@ -124,7 +124,7 @@ def test_stochastic_displacement_variance_grows_linearly(n):
     size = 2 * n + 5
     c = size // 2
     walkers = 20_000
-    params = WalkParams(max_steps=n)
+    params = WalkParams(walk_length=n)
     perm, q = np.ones((size, size)), np.zeros((size, size))
     _, _, lost_exact = det(point(size, 1.0), perm, q, params)
     arrivals, _, _, visits, lost = sto(point(size, walkers), perm, q, params, key())
@@ -145,7 +145,7 @@ def test_persistence_mean_squared_displacement_matches_direction_chain():
     n, kappa = 10, 1.5
     size = 2 * n + 5
     c = size // 2
-    params = WalkParams(max_steps=n, persistence=kappa)
+    params = WalkParams(walk_length=n, heading_bias=kappa)
     _, _, lost = det(point(size, 1.0), np.ones((size, size)), np.zeros((size, size)), params)
     yy, xx = np.mgrid[:size, :size]
     msd = (lost * ((xx - c) ** 2 + (yy - c) ** 2)).sum()
@@ -165,7 +165,7 @@ def test_persistence_mean_squared_displacement_matches_direction_chain():
         for t in range(s + 1, n):
             ref += 2 * pi[s] @ (np.linalg.matrix_power(trans, t - s) * dots).sum(axis=1)
     assert msd == pytest.approx(ref, rel=1e-12)
-    assert msd > n * SQ2  # persistence spreads walkers faster than the uncorrelated walk
+    assert msd > n * SQ2  # heading_bias spreads walkers faster than the uncorrelated walk
 
 
 def test_mortality_and_settlement_follow_the_geometric_series():
@@ -177,7 +177,7 @@ def test_mortality_and_settlement_follow_the_geometric_series():
     n, mu = 8, 0.3
     size = 2 * n + 5
     perm, q = np.full((size, size), 0.5), np.full((size, size), 0.5)
-    params = WalkParams(max_steps=n, mortality_per_resistance=mu, settle_shape=2.0)
+    params = WalkParams(walk_length=n, death_per_resistance=mu, settle_exponent=2.0)
     s = 0.25
     s1 = (2 - SQ2) * math.exp(-2 * mu) + (SQ2 - 1) * math.exp(-2 * SQ2 * mu)
     r = s1 * (1 - s)
@@ -219,7 +219,7 @@ def test_infinite_resistance_barrier_splits_the_grid(name, wall, left):
     q = np.where(gen.random((size, size)) < 0.1, 0.3, 0.0)
     d = np.where(left, gen.integers(0, 30, (size, size)), 0).astype(float)
     right = ~left & ~wall
-    params = WalkParams(max_steps=200, mortality_per_resistance=0.01, persistence=0.5)
+    params = WalkParams(walk_length=200, death_per_resistance=0.01, heading_bias=0.5)
     arr_s, _, _, vis_s, lost_s = sto(d, perm, q, params, key())
     for arrivals, visits, lost in (det(d, perm, q, params), (arr_s, vis_s, lost_s)):
         assert arrivals[right].sum() == 0 and visits[right].sum() == 0 and lost[right].sum() == 0
@@ -244,7 +244,7 @@ def test_escape_probability_of_a_strip_is_one_over_conductance_times_resistance(
     perm = np.array([perm_row], dtype=float)
     labels = np.array([[1, 0, 0, 0, 0, 2]], dtype=np.int32)
     q = (labels > 0).astype(float)
-    m = patch_connectivity(labels, 2, perm, q, WalkParams(max_steps=4000))
+    m = patch_connectivity(labels, 2, perm, q, WalkParams(walk_length=4000))
     assert m[0, 1] == pytest.approx(expected, abs=1e-10)
     assert m[0, 0] == pytest.approx(1 - expected, abs=1e-10)
 
@@ -262,7 +262,7 @@ def grid_with_patches():
 
 
 def test_patch_settlement_probabilities_are_the_harmonic_voltages():
-    """Reversible walk (no persistence, no mortality), patches absorb, max_steps large: the
+    """Reversible walk (no heading_bias, no mortality), patches absorb, walk_length large: the
     probability that a disperser leaving patch i (uniform over its cells) settles in patch j is
     the mean over its cells of the one-step average of the voltage V_j, the harmonic function
     with V_j = 1 on patch j and 0 on the other patches, solved on the conductance network
@@ -270,7 +270,7 @@ def test_patch_settlement_probabilities_are_the_harmonic_voltages():
     Evolution 60:1551)."""
     perm, labels = grid_with_patches()
     q = (labels > 0).astype(float)
-    m = patch_connectivity(labels, 3, perm, q, WalkParams(max_steps=3000))
+    m = patch_connectivity(labels, 3, perm, q, WalkParams(walk_length=3000))
 
     c = conductances(perm)
     trans = sparse.diags(1.0 / np.maximum(np.asarray(c.sum(axis=1)).ravel(), 1e-300)) @ c
@@ -304,7 +304,7 @@ def test_commute_time_and_escape_probability_follow_effective_resistance():
     c = conductances(perm)
     r_eff = effective_resistance(c, ia, ib)
     degree = np.asarray(c.sum(axis=1)).ravel()
-    params = WalkParams(max_steps=8000)
+    params = WalkParams(walk_length=8000)
     hitting = []
     for src, dst in ((a, b), (b, a)):
         d = np.zeros((ny, nx))
@@ -342,8 +342,8 @@ def landscape(size=25, seed=5):
     return perm, q, labels
 
 
-PARAMS = WalkParams(max_steps=25, mortality_per_resistance=0.05, settle_shape=1.5,
-                    persistence=0.8)
+PARAMS = WalkParams(walk_length=25, death_per_resistance=0.05, settle_exponent=1.5,
+                    heading_bias=0.8)
 
 
 def test_stochastic_mode_conserves_and_tracks_origins_exactly():
@@ -445,7 +445,7 @@ def test_connectivity_window_equals_full_grid():
     walk of the patch's start weights, summed by patch (uniform and capacity weights)."""
     perm, q, labels = landscape(size=40, seed=4)
     labels[30:34, 2:5] = 3
-    params = WalkParams(max_steps=6, mortality_per_resistance=0.05, persistence=0.8)
+    params = WalkParams(walk_length=6, death_per_resistance=0.05, heading_bias=0.8)
     weights = np.random.default_rng(1).uniform(0, 5, perm.shape)
     for w in (None, weights):
         m = patch_connectivity(labels, 3, perm, q, params, weights=w)
@@ -476,14 +476,14 @@ def test_user_errors_name_the_value():
         resistance_from_suitability(np.array([[1.5]]), 10.0, 1.0)
     with pytest.raises(ScenarioError, match="r_max.*0.5"):
         resistance_from_suitability(np.array([[0.5]]), 0.5, 1.0)
-    with pytest.raises(ScenarioError, match="max_steps.*0"):
-        WalkParams(max_steps=0)
-    with pytest.raises(ScenarioError, match="persistence.*-1"):
-        WalkParams(max_steps=3, persistence=-1.0)
+    with pytest.raises(ScenarioError, match="walk_length.*0"):
+        WalkParams(walk_length=0)
+    with pytest.raises(ScenarioError, match="heading_bias.*-1"):
+        WalkParams(walk_length=3, heading_bias=-1.0)
     with pytest.raises(InputDataError, match="quality.*2"):
-        det(np.ones((2, 2)), np.ones((2, 2)), np.full((2, 2), 2.0), WalkParams(max_steps=1))
+        det(np.ones((2, 2)), np.ones((2, 2)), np.full((2, 2), 2.0), WalkParams(walk_length=1))
     with pytest.raises(InputDataError, match="permeability.*inf"):
-        det(np.ones((1, 2)), np.array([[1.0, np.inf]]), np.zeros((1, 2)), WalkParams(max_steps=1))
+        det(np.ones((1, 2)), np.array([[1.0, np.inf]]), np.zeros((1, 2)), WalkParams(walk_length=1))
 
 
 def test_patch_origins_exact_in_both_modes():
@@ -499,7 +499,7 @@ def test_patch_origins_exact_in_both_modes():
     labels[9:13, 9:13] = 2
     q[labels > 0] = 0.6
     d = np.where(labels > 0, 7.0, 0.0)
-    params = WalkParams(max_steps=30, mortality_per_resistance=0.05)
+    params = WalkParams(walk_length=30, death_per_resistance=0.05)
     res = disperse_walk_deterministic(d, perm, q, labels, 2, params)
     for p in (1, 2):
         alone = disperse_walk_deterministic(np.where(labels == p, d, 0.0), perm, q, labels, 2,
@@ -520,7 +520,7 @@ def test_entry_survival_thins_walkers_crossing_a_line():
     q[0, 5] = 1.0
     d = np.zeros((1, 6))
     d[0, 0] = 1.0
-    params = WalkParams(max_steps=5)
+    params = WalkParams(walk_length=5)
     surv = np.ones((1, 6))
     open_ = disperse_walk_deterministic(d, perm, q, np.zeros((1, 6), np.int32), 0, params)
     surv[0, 3] = 0.5
@@ -544,7 +544,7 @@ def test_connectivity_counts_barrier_crossing_mortality():
     q[labels > 0] = 0.5
     surv = np.ones((n, n))
     surv[:, 10] = 0.3
-    params = WalkParams(max_steps=80)
+    params = WalkParams(walk_length=80)
     free = patch_connectivity(labels, 2, perm, q, params)
     lossy = patch_connectivity(labels, 2, perm, q, params, entry_survival=surv)
     start = np.where(labels == 1, 1.0, 0.0)
@@ -574,7 +574,7 @@ def test_corridor_share_of_the_flow_between_two_blocks():
     perm[2:9, 0:3] = perm[2:9, 18:21] = 1.0
     corridor = np.zeros((ny, nx), bool)
     corridor[2, 5:16] = True
-    params = WalkParams(max_steps=200)
+    params = WalkParams(walk_length=200)
     flow, share = corridor_share(labels == 1, labels == 2, corridor, perm, q, params)
     assert flow > 0 and 0.3 < share < 0.7
     closed = perm.copy()

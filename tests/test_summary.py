@@ -17,7 +17,7 @@ from scipy import stats
 
 from gridpop.cli import main
 from gridpop.outputs import NODATA
-from gridpop.summary import TargetCensus
+from gridpop.summary import FocusCensus
 
 NY, NX, CELL = 10, 16, 30.0
 X0, Y0 = 500_000.0, 4_000_000.0
@@ -48,7 +48,7 @@ def block_order():
     return sorted(("west", "east"), key=lambda b: -s[WEST if b == "west" else EAST].sum())
 
 
-def write_targets(path, names, geoms, field="name"):
+def write_focus_areas(path, names, geoms, field="name"):
     gpd.GeoDataFrame({field: names}, geometry=geoms, crs=UTM).to_file(path)
     return path
 
@@ -56,7 +56,7 @@ def write_targets(path, names, geoms, field="name"):
 def write_case(tmp_path, body, targets=None, name="scenario.toml"):
     write_raster(tmp_path / "suit.tif", suitability(), transform=TRANSFORM)
     if targets is not None:
-        write_targets(tmp_path / "targets.gpkg", *targets)
+        write_focus_areas(tmp_path / "focus_areas.gpkg", *targets)
     path = tmp_path / name
     path.write_text(body)
     return path
@@ -107,7 +107,7 @@ stochastic = false
 
 [risk]
 quasi_extinction = 20.0
-targets = "targets.gpkg"
+focus_areas = "focus_areas.gpkg"
 """
 
 
@@ -120,7 +120,7 @@ def first_reached(values, threshold):
 def test_deterministic_doubling_hand_checked(tmp_path):
     """Deterministic exponential growth N_c(t) = N_c(0) lambda^t in every cell, lambda = e^r = 2
     (Malthus 1798, from memory; common practice): each cell is first occupied (N >= 1) at
-    ceil(log2(1 / N_c(0))), a target area or the whole landscape is below the threshold Q until
+    ceil(log2(1 / N_c(0))), a focus area or the whole landscape is below the threshold Q until
     ceil(log2(Q / N(0))). All replicates are equal, so the risk curves are 0 or 1 and the
     colonisation map is that year wherever it is reached by the horizon (nodata elsewhere).
     The GeoTIFF must carry the template's CRS and transform (rasterio / GDAL round trip)."""
@@ -154,17 +154,17 @@ def test_deterministic_doubling_hand_checked(tmp_path):
     np.testing.assert_array_equal(summary["risk"]["below_now"], (total < q).astype(float))
     np.testing.assert_array_equal(summary["risk"]["ever_below"], np.ones(years + 1))
     for name, cells in (("part", part), ("east", EAST)):
-        n_target = n0[cells].sum() * growth
-        first = first_reached(n_target, 1.0)
+        n_focus = n0[cells].sum() * growth
+        first = first_reached(n_focus, 1.0)
         assert first is not None
         col = np.zeros(years + 1)
         col[first:] = 1.0
         assert summary["colonisation"][name]["probability"] == col.tolist()
-        assert summary["target_risk"][name]["below_now"] == (n_target < q).astype(float).tolist()
+        assert summary["focus_risk"][name]["below_now"] == (n_focus < q).astype(float).tolist()
     assert summary["expected_minimum"]["estimate"] == pytest.approx(total[0], rel=1e-12)
     assert summary["final_abundance"]["p50"] == pytest.approx(total[-1], rel=1e-12)
     assert summary["metapopulation_capacity"] is None  # no dispersal
-    assert summary["targets"]["names"] == ["part", "east"]
+    assert summary["focus_areas"]["names"] == ["part", "east"]
 
 
 STOCHASTIC = """
@@ -195,8 +195,8 @@ mean_distance_m = 60.0
 
 [risk]
 quasi_extinction = 60.0
-targets = "targets.gpkg"
-target_name_field = "label"
+focus_areas = "focus_areas.gpkg"
+focus_name_field = "label"
 confidence = 0.9
 
 [plan]
@@ -275,8 +275,8 @@ def test_patch_and_target_occupancy_against_patch_ledger(stochastic_run):
     east = block_order().index("east")
     target = p[:, :, east]
     below = target < 60.0
-    assert summary["target_risk"]["east"]["below_now"] == pytest.approx(below.mean(axis=0))
-    assert summary["target_risk"]["east"]["ever_below"] == pytest.approx(
+    assert summary["focus_risk"]["east"]["below_now"] == pytest.approx(below.mean(axis=0))
+    assert summary["focus_risk"]["east"]["ever_below"] == pytest.approx(
         np.logical_or.accumulate(below, axis=1).mean(axis=0))
     assert 0 < below[:, -1].mean() < 1
     assert summary["colonisation"]["east"]["probability"] == pytest.approx(col[:, :, east]
@@ -317,10 +317,10 @@ def test_parameters_plan_and_cautions(stochastic_run):
 
 
 def test_target_census_sums_cells():
-    """TargetCensus.record sums the census inside each target's cells (flat index i * nx + j),
+    """FocusCensus.record sums the census inside each target's cells (flat index i * nx + j),
     checked against a hand sum on a 3 x 4 array."""
     n = np.arange(12.0).reshape(3, 4)
-    census = TargetCensus(("a", "b"), (np.array([0, 1, 4]), np.array([11])))
+    census = FocusCensus(("a", "b"), (np.array([0, 1, 4]), np.array([11])))
     row = np.zeros(2)
     census.record(row, n)
     assert row.tolist() == [0 + 1 + 4, 11]
@@ -329,13 +329,13 @@ def test_target_census_sums_cells():
 @pytest.mark.parametrize(
     "edit, names, field, expect",
     [
-        ('target_name_field = "label"', ["east"], "name",
-         "[risk] target_name_field = 'label': targets.gpkg has no such attribute; it has name"),
+        ('focus_name_field = "label"', ["east"], "name",
+         "[risk] focus_name_field = 'label': focus_areas.gpkg has no such attribute; it has name"),
         ("", ["far"], "name", "covers no cell centre"),
     ],
 )
-def test_bad_targets_exit_2_nothing_written(tmp_path, capsys, edit, names, field, expect):
-    body = STOCHASTIC.replace('target_name_field = "label"', edit)
+def test_bad_focus_areas_exit_2_nothing_written(tmp_path, capsys, edit, names, field, expect):
+    body = STOCHASTIC.replace('focus_name_field = "label"', edit)
     geoms = [box(*EAST)] if names == ["east"] else [sg.box(0, 0, 10, 10)]
     scen = write_case(tmp_path, body, targets=(names, geoms, field))
     out = tmp_path / "res"

@@ -29,7 +29,7 @@ its CRS):
   side of the one-block reserve to the east block, 200 m wide strips: along the brook (4.1 km,
   83 ha, under the road at the bridge) and straight (2.6 km, 51 ha, cut by the road);
 - ``road.gpkg``: the road (two lines, broken at the bridge);
-- ``targets.gpkg``: the two blocks, for colonisation and risk per block.
+- ``focus_areas.gpkg``: the two blocks, for colonisation and risk per block.
 
 Run: ``python scenarios/demo/generate.py [FOLDER]`` (default scenarios/demo/data/).
 """
@@ -186,7 +186,7 @@ def layers() -> dict[str, np.ndarray | gpd.GeoDataFrame]:
         "corridor_brook.gpkg": gdf(["Sallow Brook corridor"], [strip(brook)]),
         "corridor_straight.gpkg": gdf(["Straight corridor"], [straight]),
         "road.gpkg": gdf(["Flats road north", "Flats road south"], road_lines()),
-        "targets.gpkg": gdf(["west_block", "east_block"], [west, east]),
+        "focus_areas.gpkg": gdf(["west_block", "east_block"], [west, east]),
     }
 
 
