@@ -3,7 +3,7 @@
 1. One replicate's yearly cycle (Beverton-Holt growth split into survivors and births, 20 %
    dispersal with a gaussian kernel of sigma 2 cells truncated at 4 sigma, census into the
    per-year accumulators and the per-patch ledger), deterministic and stochastic, on square
-   grids of 1 ha cells: gridpop (``engine.Replicate``, numba) against a straightforward
+   grids of 1 ha cells: gridpop (``Replicate``, numba) against a straightforward
    vectorised NumPy/SciPy implementation of the same cycle (``np.where`` growth,
    ``scipy.ndimage.gaussian_filter`` dispersal, ``numpy.random.Generator`` binomial and Poisson
    draws, each disperser drawing a rounded normal displacement, ``np.bincount`` census).
@@ -35,14 +35,19 @@ import numpy as np
 from _common import SIGMA_CELLS, best_time, write_result, write_scenario
 from scipy import ndimage
 
-from gridpop import engine
 from gridpop._jit import pjit, prange
-from gridpop.demography import MODELS, step_deterministic
+from gridpop.demography import MODEL_CODES, step_deterministic
 from gridpop.landscape import build_landscape
+from gridpop.movement import kernel
 from gridpop.scenario import load_scenario
+from gridpop.simulation import cycle
+from gridpop.simulation.cycle import BatchSink, Replicate, simulate_replicate
+from gridpop.simulation.model import build_model
 
-PHASES = ("_grow", "spread", "disperse_stochastic", "settle_fields", "_count")
-"""Functions the engine calls in the yearly cycle, timed one by one."""
+PHASES = {"grow": (cycle, "grow_pass"), "spread": (kernel, "spread"),
+          "disperse_stochastic": (kernel, "disperse_stochastic"),
+          "settle_fields": (kernel, "settle_fields"), "count": (cycle, "census_pass")}
+"""Functions the yearly cycle calls, timed one by one: label -> (module, name)."""
 
 
 def gridpop_cycle(model, folder: Path, years: int) -> tuple[float, dict]:
@@ -50,7 +55,7 @@ def gridpop_cycle(model, folder: Path, years: int) -> tuple[float, dict]:
     machine is shared, so the fastest year is the least disturbed one), and the seconds spent
     in that year in each of :data:`PHASES` (the engine's own calls, timed by wrapping them)."""
     spent = dict.fromkeys(PHASES, 0.0)
-    originals = {name: getattr(engine, name) for name in PHASES}
+    originals = {label: getattr(mod, name) for label, (mod, name) in PHASES.items()}
 
     def timed(name, fn):
         def call(*args, **kwargs):
@@ -61,13 +66,13 @@ def gridpop_cycle(model, folder: Path, years: int) -> tuple[float, dict]:
                 spent[name] += time.perf_counter() - t
         return call
 
-    sink = engine.BatchSink(folder, model, range(2))
-    engine.simulate_replicate(model, 0, sink, 0)
-    rep = engine.Replicate(model, 1, sink.ledger[1])
+    sink = BatchSink(folder, model, range(2))
+    simulate_replicate(model, 0, sink, 0)
+    rep = Replicate(model, 1, sink.ledger[1])
     rep.start(sink)
     best, best_phases = math.inf, {}
-    for name, fn in originals.items():
-        setattr(engine, name, timed(name, fn))
+    for label, fn in originals.items():
+        setattr(*PHASES[label], timed(label, fn))
     try:
         for t in range(1, years + 1):
             spent.update(dict.fromkeys(PHASES, 0.0))
@@ -76,11 +81,11 @@ def gridpop_cycle(model, folder: Path, years: int) -> tuple[float, dict]:
             total = time.perf_counter() - start
             if total < best:
                 best = total
-                best_phases = {name.lstrip("_"): v for name, v in spent.items() if v > 0}
+                best_phases = {label: v for label, v in spent.items() if v > 0}
                 best_phases["other"] = total - sum(best_phases.values())
     finally:
-        for name, fn in originals.items():
-            setattr(engine, name, fn)
+        for label, fn in originals.items():
+            setattr(*PHASES[label], fn)
         # deleting the accumulators drops their dirty pages: the next measurement does not
         # share the machine with their writeback
         shutil.rmtree(folder)
@@ -94,9 +99,10 @@ class Reference:
         self.k = model.capacity
         self.habitat = self.k > 0
         self.safe_k = np.where(self.habitat, self.k, 1.0)
-        self.labels = model.labels.ravel()
-        self.n_patches = model.n_patches
-        self.rate, self.s, self.f = model.rate, model.survival, model.fraction
+        self.labels = model.census.labels.ravel()
+        self.n_patches = model.census.n_patches
+        rates = model.growth.rates
+        self.rate, self.s, self.f = rates.r, rates.s, model.movement.emigration.fraction
         self.n = model.initial.copy()
         self.ever = np.zeros(self.k.shape, bool)
         self.stochastic = stochastic
@@ -188,7 +194,7 @@ def local_step(size: int, bw: dict) -> dict:
     n = k * 0.5
     env = np.zeros_like(n)
     out, births, deaths = np.empty_like(n), np.empty_like(n), np.empty_like(n)
-    code = MODELS["beverton-holt"]
+    code = MODEL_CODES["beverton-holt"]
     t = best_time(lambda: step_deterministic(n, k, env, out, births, deaths, code, 0.4, 0.6,
                                              1.0, 0.0), repeat=5)
     cells = size * size
@@ -218,7 +224,7 @@ def main():
                 path = write_scenario(folder, size, years=years, stochastic=stochastic,
                                       capacity=10.0)
                 s = load_scenario(path)
-                model = engine.build_model(s, build_landscape(s, stochastic=stochastic))
+                model = build_model(s, build_landscape(s, stochastic=stochastic))
                 t_r = reference_cycle(model, stochastic, years)
                 mode = "stochastic" if stochastic else "deterministic"
                 for nt in threads:
@@ -227,7 +233,8 @@ def main():
                     rows.append({"size": size, "stochastic": stochastic, "threads": nt,
                                  "years_timed": years, "timing": "fastest year",
                                  "habitat_cells": int((model.capacity > 0).sum()),
-                                 "patches": model.n_patches, "kernel_radius": model.kernel.radius,
+                                 "patches": model.census.n_patches,
+                                 "kernel_radius": model.kernel.radius,
                                  "gridpop_s_per_year": t_g, "reference_s_per_year": t_r,
                                  "gridpop_cell_years_per_s": cells / t_g,
                                  "reference_cell_years_per_s": cells / t_r,

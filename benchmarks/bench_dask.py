@@ -21,7 +21,7 @@ from pathlib import Path
 from _common import write_result, write_scenario
 
 import gridpop
-from gridpop.distributed import WORKER_ENV
+from gridpop.simulation.distributed import WORKER_ENV
 
 
 def timed_run(scenario, out, **kwargs) -> float:

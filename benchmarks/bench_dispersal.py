@@ -1,4 +1,4 @@
-"""Cost of the dispersal engines, to place the crossovers recorded in gridpop.dispersal.
+"""Cost of the dispersal engines, to place the crossovers recorded in gridpop.movement.placement.
 
 1. Deterministic: time per year-step of the separable stencil (gaussian), the full 2-D stencil
    (exponential) and the FFT on a 2048 x 2048 grid for kernel radii 1..100 cells
@@ -23,14 +23,22 @@ import numba
 import numpy as np
 from _common import best_time
 
-from gridpop import dispersal, rng
+from gridpop import rng
+from gridpop.movement import placement
+from gridpop.movement.convolution import (
+    STENCIL_MAX_RADIUS,
+    STENCIL_MAX_RADIUS_SEPARABLE,
+    disperse_deterministic,
+)
+from gridpop.movement.kernels import make_kernel
+from gridpop.movement.placement import disperse_stochastic
 
 RADII = (1, 2, 3, 4, 5, 6, 8, 10, 12, 16, 24, 32, 40, 48, 56, 64, 80, 100)
 FULL_STENCIL_MAX_SECONDS = 5.0  # stop timing the full 2-D stencil beyond this
 
 
 def kernel(kind, radius):
-    return dispersal.make_kernel(kind, mean_distance_m=max(0.1, radius / 4.0),
+    return make_kernel(kind, mean_distance_m=max(0.1, radius / 4.0),
                                  max_distance_m=float(radius), cell_w_m=1.0, cell_h_m=1.0)
 
 
@@ -41,13 +49,13 @@ def bench_deterministic(size, radii):
     for r in radii:
         g = kernel("gaussian", r)
         row = {"radius": r,
-               "separable_stencil_s": best_time(lambda g=g: dispersal.disperse_deterministic(
+               "separable_stencil_s": best_time(lambda g=g: disperse_deterministic(
                    d, g, "absorbing", method="stencil")),
-               "fft_s": best_time(lambda g=g: dispersal.disperse_deterministic(
+               "fft_s": best_time(lambda g=g: disperse_deterministic(
                    d, g, "absorbing", method="fft"))}
         if not full_done:
             e = kernel("exponential", r)
-            row["full_stencil_s"] = best_time(lambda e=e: dispersal.disperse_deterministic(
+            row["full_stencil_s"] = best_time(lambda e=e: disperse_deterministic(
                 d, e, "absorbing", method="stencil"), repeat=1)
             full_done = row["full_stencil_s"] > FULL_STENCIL_MAX_SECONDS
         rows.append(row)
@@ -61,7 +69,7 @@ def bench_stochastic(radii=(2, 5, 10), counts=(1, 4, 16, 64, 256, 1024, 4096), s
     key = rng.year_key(1, 0, 0, rng.STREAM_DISPERSAL)
     settle = np.ones((size, size), dtype=bool)
     labels = np.zeros((size, size), dtype=np.int32)
-    saved = dispersal.MULTINOMIAL_PER_CELL
+    saved = placement.MULTINOMIAL_PER_CELL
     try:
         for r in radii:
             k = kernel("exponential", r)
@@ -70,14 +78,14 @@ def bench_stochastic(radii=(2, 5, 10), counts=(1, 4, 16, 64, 256, 1024, 4096), s
                 d = np.full((size, size), float(n))
                 times = {}
                 for name, factor in (("individual_s", np.inf), ("multinomial_s", 0.0)):
-                    dispersal.MULTINOMIAL_PER_CELL = factor
-                    times[name] = best_time(lambda d=d, k=k: dispersal.disperse_stochastic(
+                    placement.MULTINOMIAL_PER_CELL = factor
+                    times[name] = best_time(lambda d=d, k=k: disperse_stochastic(
                         d, settle, labels, 0, k, "reflecting", key)) / d.size
                 rows.append({"radius": r, "stencil_cells": s, "n": n, **times})
                 print(f"{r:6d} {s:6d} {n:6d} {times['individual_s'] * 1e6:12.3f} "
                       f"{times['multinomial_s'] * 1e6:12.3f}", flush=True)
     finally:
-        dispersal.MULTINOMIAL_PER_CELL = saved
+        placement.MULTINOMIAL_PER_CELL = saved
     return rows
 
 
@@ -103,9 +111,9 @@ def main():
               "processor": platform.processor(), "cpus": os.cpu_count(),
               "load_average": os.getloadavg(), "deterministic": det, "stochastic": sto,
               "recorded": {"STENCIL_MAX_RADIUS_SEPARABLE":
-                           dispersal.STENCIL_MAX_RADIUS_SEPARABLE,
-                           "STENCIL_MAX_RADIUS": dispersal.STENCIL_MAX_RADIUS,
-                           "MULTINOMIAL_PER_CELL": dispersal.MULTINOMIAL_PER_CELL}}
+                           STENCIL_MAX_RADIUS_SEPARABLE,
+                           "STENCIL_MAX_RADIUS": STENCIL_MAX_RADIUS,
+                           "MULTINOMIAL_PER_CELL": placement.MULTINOMIAL_PER_CELL}}
     path = out / ("bench_dispersal_quick.json" if args.quick else "bench_dispersal.json")
     path.write_text(json.dumps(result, indent=1))
     print(f"wrote {path}")

@@ -5,7 +5,7 @@ square landscape (deterministic, one replicate). The parent samples the child's
 ``/proc/PID/status`` every 10 ms: anonymous memory (``RssAnon``: arrays, interpreter) and
 file-backed pages (``RssFile``: the memory-mapped accumulators and libraries; the kernel may drop
 them at any time, they are not a demand on memory), and reads the peak resident set (``VmHWM``,
-what ``ru_maxrss`` reports) at the end. Beside them: ``gridpop.engine.footprint``'s estimate.
+what ``ru_maxrss`` reports) at the end. Beside them: ``gridpop.footprint``'s estimate.
 
 Usage: python benchmarks/bench_memory.py [--size 1024] [--years 10,50,200] [--quick]
 Writes benchmarks/results/bench_memory.json (bench_memory_quick.json with --quick).
@@ -22,9 +22,10 @@ from pathlib import Path
 
 from _common import write_result, write_scenario
 
-from gridpop import engine
 from gridpop.landscape import build_landscape
 from gridpop.scenario import load_scenario
+from gridpop.simulation.model import build_model
+from gridpop.simulation.resources import footprint
 
 FIELDS = ("VmHWM", "VmRSS", "RssAnon", "RssFile")
 
@@ -46,7 +47,7 @@ def status(pid: int) -> dict | None:
 RUN = """
 import sys
 from pathlib import Path
-from gridpop.engine import run
+from gridpop.simulation.run import run
 from gridpop.scenario import load_scenario
 run(load_scenario(sys.argv[1]), sys.argv[2])
 print(Path("/proc/self/status").read_text())
@@ -91,7 +92,7 @@ def main():
             folder = Path(tmp) / f"y{years}"
             path = write_scenario(folder, size, years=years)
             s = load_scenario(path)
-            fp = engine.footprint(s, engine.build_model(s, build_landscape(s, stochastic=False)))
+            fp = footprint(s, build_model(s, build_landscape(s, stochastic=False)))
             row = {"years": years, **measure(path, folder / "out"),
                    "estimate_bytes": fp.memory(), "estimate_output_bytes": fp.output,
                    "estimate_work_bytes": fp.work}

@@ -29,8 +29,10 @@ import numpy as np
 from _common import best_time
 from scipy import ndimage
 
-from gridpop import dispersal, rng
-from gridpop.resistance import (
+from gridpop import rng
+from gridpop.movement.convolution import disperse_deterministic
+from gridpop.movement.kernels import make_kernel
+from gridpop.movement.walk import (
     WalkParams,
     disperse_walk_deterministic,
     disperse_walk_stochastic,
@@ -63,9 +65,9 @@ def bench_deterministic(size, steps, perm, quality, labels):
                 for kappa in (0.0, 1.0)}
         sigma = math.sqrt(n / math.sqrt(2.0))
         gauss = best_time(partial(ndimage.gaussian_filter, d, sigma, mode="constant"))
-        kern = dispersal.make_kernel("gaussian", mean_distance_m=sigma * math.sqrt(math.pi / 2),
+        kern = make_kernel("gaussian", mean_distance_m=sigma * math.sqrt(math.pi / 2),
                                      cell_w_m=1.0, cell_h_m=1.0)
-        engine = best_time(partial(dispersal.disperse_deterministic, d, kern, "absorbing"))
+        engine = best_time(partial(disperse_deterministic, d, kern, "absorbing"))
         row = {"steps": n, "sigma_cells": sigma, "walk_s": walk[0.0],
                "walk_persistence_s": walk[1.0],
                "walk_cell_steps_per_s": size * size * n / walk[0.0],

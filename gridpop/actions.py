@@ -26,108 +26,13 @@ The initial abundance stays that of the base landscape, so plans start from the 
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-import pyogrio
-import pyogrio.errors
-import rasterio
-import rasterio.errors
-import rasterio.warp
 
-from .errors import ScenarioError, where
-from .landscape import (
-    Grid,
-    Landscape,
-    Patches,
-    _crs_name,
-    _fmt_bounds,
-    align_raster,
-    capacity,
-    label_patches,
-    rasterize_vector,
-)
-
-
-def _is_raster(path: Path) -> bool:
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", rasterio.errors.NotGeoreferencedWarning)
-        try:
-            with rasterio.open(path):
-                return True
-        except rasterio.errors.RasterioIOError:
-            return False
-
-
-def _bounds(path: Path, raster: bool):
-    """Bounds and CRS of a layer as stored, or (None, None) when they cannot be read."""
-    if raster:
-        with rasterio.open(path) as src:
-            return tuple(src.bounds), src.crs
-    try:
-        info = pyogrio.read_info(path, force_total_bounds=True)
-    except pyogrio.errors.DataSourceError:
-        return None, None
-    return info["total_bounds"], info["crs"]
-
-
-def read_cells(path: Path, grid: Grid, *, file: Path, section: str, key: str,
-               buffer_m: float = 0.0, all_touched: bool = False) -> tuple[np.ndarray, str, bool]:
-    """Cells covered by a layer: a vector file (polygons, lines) or a raster (cells > 0).
-
-    Parameters
-    ----------
-    path : Path
-    grid : Grid
-    file, section, key
-        Scenario file and key the path came from, for messages.
-    buffer_m : float
-        Buffer vector features by this distance first (vector layers only).
-    all_touched : bool
-        Take every cell a vector feature touches, not only cells whose centre it covers.
-
-    Returns
-    -------
-    cells : (ny, nx) bool ndarray
-    note : str
-        How the layer was read (reprojection, resampling, buffer), or a warning with the bounds
-        of the layer (in the grid CRS) and of the grid when the layer misses the grid.
-    missed : bool
-        True when the layer does not intersect the grid (``cells`` is then all False).
-
-    Raises
-    ------
-    ScenarioError
-        ``buffer_m`` given with a raster.
-    InputDataError
-        Unreadable layer, no CRS (see :func:`gridpop.landscape.align_raster` and
-        :func:`gridpop.landscape.rasterize_vector`).
-    """
-    path = Path(path)
-    raster = _is_raster(path)
-    if raster and buffer_m > 0:
-        raise ScenarioError(f"{where(file, section, 'buffer_m')} = {buffer_m:g}: a buffer "
-                            f"applies to vector layers; {key} = {path.name} is a raster.")
-    bounds, crs = _bounds(path, raster)
-    if bounds is not None and crs is not None and np.all(np.isfinite(bounds)):
-        b = rasterio.warp.transform_bounds(crs, grid.crs, *bounds)
-        pad = buffer_m / grid.crs.linear_units_factor[1]
-        b = (b[0] - pad, b[1] - pad, b[2] + pad, b[3] + pad)
-        g = grid.bounds
-        if not (b[0] < g[2] and b[2] > g[0] and b[1] < g[3] and b[3] > g[1]):
-            return (np.zeros(grid.shape, bool),
-                    f"warning: {path.name} does not intersect the grid and has no effect. Its "
-                    f"bounds in the grid CRS {_fmt_bounds(b)}, grid bounds {_fmt_bounds(g)} "
-                    f"({_crs_name(grid.crs)})", True)
-    if raster:
-        layer = align_raster(path, grid, kind="categorical", file=file, section=section,
-                             key=key)
-        return np.isfinite(layer.data) & (layer.data > 0), layer.note, False
-    values, note = rasterize_vector(path, grid, file=file, section=section, key=key,
-                                    all_touched=all_touched, buffer_m=buffer_m or None)
-    return values > 0, note, False
+from .io.vectors import read_cells
+from .landscape import Landscape, Patches, capacity, label_patches
 
 
 @dataclass(frozen=True, eq=False)

@@ -9,7 +9,7 @@ import traceback
 import warnings
 from pathlib import Path
 
-from . import __version__
+from ._version import __version__
 from .errors import GridpopError, OutputExistsError
 
 
@@ -29,8 +29,10 @@ def _out_dir(args, scenario) -> Path:
 
 
 def cmd_check(args) -> int:
-    from .engine import build_model, describe, footprint_lines
     from .landscape import build_landscape
+    from .simulation.check import describe
+    from .simulation.model import build_model
+    from .simulation.resources import footprint_lines
 
     scenario = _scenario_with_overrides(args)
     model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
@@ -40,7 +42,7 @@ def cmd_check(args) -> int:
 
 
 def cmd_run(args) -> int:
-    from .engine import run
+    from .simulation.run import run
 
     scenario = _scenario_with_overrides(args)
     out = _out_dir(args, scenario)
@@ -48,7 +50,7 @@ def cmd_run(args) -> int:
     run(scenario, out, overwrite=args.overwrite, progress=show, workers=args.workers,
         scheduler=args.scheduler, resume=args.resume, force=args.force)
     if not args.no_plots:
-        from .plots import plot_run
+        from .report.plots import plot_run
 
         plot_run(out)
     if not args.quiet:
@@ -59,7 +61,7 @@ def cmd_run(args) -> int:
 def cmd_compare(args) -> int:
     import json
 
-    from .compare import compare, table
+    from .analysis.compare import compare, table
 
     scenarios = [_scenario_with_overrides(args, path) for path in args.scenarios]
     show = not args.quiet and sys.stderr.isatty()
@@ -73,7 +75,7 @@ def cmd_compare(args) -> int:
 
 
 def cmd_report(args) -> int:
-    from .report import write_report
+    from .report.html import write_report
 
     print(f"report written to {write_report(args.dir, args.out)}")
     return 0

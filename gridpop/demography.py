@@ -1,7 +1,7 @@
 """Local growth: density-dependent multipliers, explicit births and deaths, environmental noise.
 
 A cell holding N individuals with capacity K expects the multiplier ``L = lambda(N, K) exp(e)`` this
-year, where ``lambda`` comes from the growth model (:data:`MODELS`, see :func:`multiplier`) and
+year, where ``lambda`` comes from the growth model (:data:`MODEL_CODES`, see :func:`multiplier`) and
 ``e`` is the cell's environmental deviation of the log multiplier (:class:`EnvironmentalNoise`).
 With adult annual survival ``s`` the multiplier splits into survival and births::
 
@@ -26,9 +26,9 @@ import scipy.fft
 
 from . import rng
 from ._jit import njit, pjit, prange
-from .errors import ScenarioError
+from .scenario import GROWTH_MODELS
 
-MODELS = {"exponential": 0, "beverton-holt": 1, "ricker": 2, "theta-logistic": 3, "ceiling": 4}
+MODEL_CODES = {name: code for code, name in enumerate(GROWTH_MODELS)}
 """Growth model names and the integer codes the kernels take."""
 
 _EXPONENTIAL, _BEVERTON_HOLT, _RICKER, _THETA_LOGISTIC, _CEILING = range(5)
@@ -102,7 +102,7 @@ def multiplier(model, r, theta, n, k):
     Parameters
     ----------
     model : int
-        Code from :data:`MODELS`.
+        Code from :data:`MODEL_CODES`.
     r : float
         Intrinsic (low-density) growth rate.
     theta : float
@@ -159,7 +159,7 @@ def step_deterministic(n, k, env, out, births, deaths, model, r, s, theta, allee
         Written: abundance after growth (``n - deaths + births``), births and deaths. ``out`` may
         be ``n`` (update in place).
     model : int
-        Code from :data:`MODELS`.
+        Code from :data:`MODEL_CODES`.
     r, s, theta, allee_a : float
         Growth rate, adult survival, theta-logistic shape and Allee density A per cell
         (0 = no Allee effect).
@@ -342,15 +342,15 @@ class EnvironmentalNoise:
     def __init__(self, shape, cell_w_m, cell_h_m, sd, correlation_m, autocorrelation):
         ny, nx = (int(v) for v in shape)
         if ny < 1 or nx < 1:
-            raise ScenarioError(f"grid shape must be positive, got {tuple(shape)}")
+            raise ValueError(f"grid shape must be positive, got {tuple(shape)}")
         if not (cell_w_m > 0 and cell_h_m > 0):
-            raise ScenarioError(f"cell size must be positive, got {cell_w_m} x {cell_h_m} m")
+            raise ValueError(f"cell size must be positive, got {cell_w_m} x {cell_h_m} m")
         if not sd >= 0:
-            raise ScenarioError(f"[growth] env_sd must be >= 0, got {sd}")
+            raise ValueError(f"env_sd must be >= 0, got {sd}")
         if not correlation_m >= 0:
-            raise ScenarioError(f"[growth] env_correlation_m must be >= 0, got {correlation_m}")
+            raise ValueError(f"env_correlation_m must be >= 0, got {correlation_m}")
         if not -1 < autocorrelation < 1:
-            raise ScenarioError("[growth] env_autocorrelation must be in (-1, 1), got "
+            raise ValueError("env_autocorrelation must be in (-1, 1), got "
                                 f"{autocorrelation}")
         self.shape = (ny, nx)
         self.sd = float(sd)

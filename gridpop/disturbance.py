@@ -66,12 +66,14 @@ import numpy as np
 
 from . import rng
 from ._jit import njit
-from .actions import read_cells
 from .errors import InputDataError, where
-from .landscape import Landscape, align_raster
+from .io.rasters import align_raster
+from .io.vectors import read_cells
+from .landscape import Landscape
+from .scenario import FIRE_SIZES, RECOVERY
 
-SIZES = {"fraction": 0, "exponential": 1, "power_law": 2}
-RECOVERIES = {"linear": 0, "exponential": 1}
+SIZES = {name: code for code, name in enumerate(FIRE_SIZES)}
+RECOVERIES = {name: code for code, name in enumerate(RECOVERY)}
 
 
 def _integral(lo, hi, q):

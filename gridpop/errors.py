@@ -37,3 +37,7 @@ def where(file, section: str | None = None, key: str | None = None) -> str:
         if key:
             loc += f" {key}"
     return loc
+
+
+def where_layer(file, section, key, path) -> str:
+    return f"{where(file, section, key)} ({path})"

@@ -20,6 +20,7 @@ passes BigCrush when used this way (Salmon et al. 2011, "Parallel random numbers
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numpy as np
 
@@ -69,6 +70,17 @@ def year_key(seed, replicate, year, stream):
     k = _combine(k, replicate)
     k = _combine(k, year)
     return _combine(k, stream)
+
+
+class YearStreams(NamedTuple):
+    """The random streams of one replicate-year: :meth:`key` of a stream is its year key."""
+
+    seed: int
+    replicate: int
+    year: int
+
+    def key(self, stream: int) -> np.uint64:
+        return np.uint64(year_key(self.seed, self.replicate, self.year, stream))
 
 
 @njit

@@ -22,9 +22,9 @@ from test_summary import (
     write_focus_areas,
 )
 
+from gridpop.analysis.metrics import unpaired_difference
 from gridpop.cli import main
-from gridpop.metrics import unpaired_difference
-from gridpop.outputs import NODATA
+from gridpop.io.results import NODATA
 
 BASE = """
 [run]

@@ -15,13 +15,13 @@ import rasterio
 import shapely
 
 import gridpop
-from gridpop.actions import read_cells
+from gridpop.analysis.compare import compare
+from gridpop.analysis.summary import parameters
 from gridpop.cli import main as cli_main
-from gridpop.compare import compare
-from gridpop.engine import build_model
+from gridpop.io.vectors import read_cells
 from gridpop.landscape import build_landscape
-from gridpop.resistance import disperse_walk_deterministic
-from gridpop.summary import parameters
+from gridpop.movement.walk import disperse_walk_deterministic
+from gridpop.simulation.model import build_model
 
 DEMO = Path(__file__).resolve().parents[1] / "scenarios" / "demo"
 PLANS = ("reserve_one_block", "reserve_small_sites", "corridor_brook", "corridor_straight")

@@ -12,10 +12,9 @@ from scipy import optimize, stats
 from gridpop import demography as dm
 from gridpop import rng
 from gridpop._jit import njit
-from gridpop.errors import ScenarioError
 from gridpop.scenario import GROWTH_MODELS
 
-EXP, BH, RICKER, THETA, CEILING = (dm.MODELS[m] for m in GROWTH_MODELS)
+EXP, BH, RICKER, THETA, CEILING = (dm.MODEL_CODES[m] for m in GROWTH_MODELS)
 
 
 def _grid(*arrays):
@@ -47,8 +46,8 @@ def _stochastic(n, k, model, r, s, year, theta=1.0, allee_a=0.0, env=None, seed=
 
 def test_model_codes_match_scenario_schema():
     """The kernel's model table and the scenario schema list the same models, in order."""
-    assert tuple(dm.MODELS) == GROWTH_MODELS
-    assert sorted(dm.MODELS.values()) == list(range(len(GROWTH_MODELS)))
+    assert tuple(dm.MODEL_CODES) == GROWTH_MODELS
+    assert sorted(dm.MODEL_CODES.values()) == list(range(len(GROWTH_MODELS)))
 
 
 @njit
@@ -95,7 +94,7 @@ def test_multiplier_formulas(r):
         for model, value in expected.items():
             got = dm.multiplier(model, r, 2.5, n, k)
             assert got == pytest.approx(value, rel=1e-14, abs=1e-300)
-    for model in dm.MODELS.values():
+    for model in dm.MODEL_CODES.values():
         assert dm.multiplier(model, r, 2.5, 10.0, 0.0) == 0.0
         assert dm.multiplier(model, r, 2.5, 10.0, -5.0) == 0.0
 
@@ -358,10 +357,10 @@ def test_noise_ar1_in_time():
     (dict(cell_w_m=0.0), "cell size"),
 ])
 def test_noise_rejects_bad_values(kwargs, key):
-    """Out-of-range noise settings raise ScenarioError naming the key."""
+    """Out-of-range noise settings raise ValueError naming the key."""
     args = dict(shape=(5, 6), cell_w_m=30.0, cell_h_m=30.0, sd=0.1, correlation_m=10.0,
                 autocorrelation=0.0) | kwargs
-    with pytest.raises(ScenarioError, match=key):
+    with pytest.raises(ValueError, match=key):
         dm.EnvironmentalNoise(**args)
 
 
@@ -402,7 +401,7 @@ def test_thread_count_invariance():
         assert np.array_equal(a, b)
 
 
-@pytest.mark.parametrize("model", sorted(dm.MODELS))
+@pytest.mark.parametrize("model", sorted(dm.MODEL_CODES))
 def test_uniform_deviation_row_equals_the_same_deviation_per_cell(model):
     """A row's single environmental deviation (size-1 ``env``) gives exactly what that
     deviation repeated in every cell gives (the engine's shortcut without noise)."""
@@ -413,8 +412,8 @@ def test_uniform_deviation_row_equals_the_same_deviation_per_cell(model):
     results = []
     for env in (np.full(1, 0.3), np.full(nx, 0.3)):
         out, births, deaths = np.empty(nx), np.empty(nx), np.empty(nx)
-        dm.grow_row(n, k, env, out, births, deaths, dm.MODELS[model], 0.6, 0.5, 1.5, 0.0, False,
-                 np.uint64(0), np.uint64(0), 0)
+        dm.grow_row(n, k, env, out, births, deaths, dm.MODEL_CODES[model], 0.6, 0.5, 1.5, 0.0,
+                    False, np.uint64(0), np.uint64(0), 0)
         results.append(np.concatenate([out, births, deaths]))
     np.testing.assert_array_equal(results[0], results[1])
     assert results[0].sum() > 0

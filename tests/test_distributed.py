@@ -17,6 +17,7 @@ from conftest import scenario_text as shared_scenario
 
 import gridpop
 from gridpop.cli import main
+from gridpop.simulation import distributed as simulation_distributed
 
 
 def scenario_text(years=6, replicates=5, batch=2):
@@ -104,9 +105,8 @@ def test_unreachable_scheduler_clear_error_in_bounded_time(make_scenario, tmp_pa
                                                            monkeypatch):
     """Nothing listens on port 1 of loopback: the connection is refused and retried until the
     timeout; the command fails with exit 2 and a message within that bound."""
-    from gridpop import distributed
 
-    monkeypatch.setattr(distributed, "CONNECT_TIMEOUT_S", 2.0)
+    monkeypatch.setattr(simulation_distributed, "CONNECT_TIMEOUT_S", 2.0)
     scen = make_scenario(scenario_text())
     out = tmp_path / "r"
     started = time.monotonic()

@@ -10,7 +10,14 @@ import pytest
 from conftest import FIRE, read_rows, scenario_text
 
 import gridpop
-from gridpop.outputs import LEDGER_FIELDS
+from gridpop import demography, rng
+from gridpop.io.results import LEDGER_FIELDS
+from gridpop.landscape import build_landscape
+from gridpop.movement import NO_RETENTION
+from gridpop.movement.emigration import leaving_deterministic, leaving_stochastic
+from gridpop.simulation.check import describe
+from gridpop.simulation.cycle import census_pass, grow_pass, patch_totals
+from gridpop.simulation.model import Emigration, GrowthRates, build_model
 
 
 def read_ledger(path, patches=False):
@@ -186,8 +193,6 @@ def test_walk_method_ledger_flow_and_connectivity(make_scenario, tmp_path, stoch
     """Walk dispersal in the yearly cycle: the BIDE ledger stays exact (common practice), the
     flow stack and the patch connectivity table are written, rows of probabilities <= 1."""
     text = scenario_text(stochastic=stochastic).split("[dispersal]")[0] + WALK
-    from gridpop.engine import build_model, describe
-    from gridpop.landscape import build_landscape
 
     scen = gridpop.load_scenario(make_scenario(text, "walk.toml"))
     lines = describe(scen, build_model(scen, build_landscape(scen, stochastic=stochastic)))
@@ -273,7 +278,6 @@ def test_settle_and_census_sums_match_numpy():
     """The census kernel's per-patch sums (runs of a patch along a row summed in registers)
     against ``np.bincount`` over the cells (NumPy as the reference library), and its per-cell
     accumulators against whole-array arithmetic."""
-    from gridpop import engine
 
     rng = np.random.default_rng(3)
     ny, nx, n_patches = 37, 53, 5
@@ -288,7 +292,7 @@ def test_settle_and_census_sums_match_numpy():
     after = n + settled
     ever_after = ever | (after >= 1.0)
     got = n.copy()
-    s = engine._patch_totals(engine._count(labels, n_patches, k, got, arrivals, stayed, dist, 1.0,
+    s = patch_totals(census_pass(labels, n_patches, k, got, arrivals, stayed, dist, 1.0,
                                            ever, *acc))
     np.testing.assert_array_equal(got, after)
     np.testing.assert_array_equal(ever, ever_after)
@@ -308,7 +312,6 @@ def test_growth_pass_matches_the_stage_functions(stochastic):
     """The engine's fused growth-and-emigration pass gives what the growth step and the
     emigration step give one after the other (demography.step_*, dispersal.leaving_*), and its
     per-patch sums match ``np.bincount`` (NumPy as the reference library)."""
-    from gridpop import demography, dispersal, engine, rng
 
     r = np.random.default_rng(4)
     ny, nx, n_patches = 29, 41, 4
@@ -319,21 +322,20 @@ def test_growth_pass_matches_the_stage_functions(stochastic):
     env = np.zeros((ny, nx))
     keys = np.array([rng.year_key(7, 0, 3, s) for s in
                      (rng.STREAM_SURVIVAL, rng.STREAM_BIRTHS, rng.STREAM_EMIGRATION)], np.uint64)
-    model, rate, surv, theta = demography.MODELS["ricker"], 0.5, 0.7, 1.0
+    model, rate, surv, theta = demography.MODEL_CODES["ricker"], 0.5, 0.7, 1.0
     grown, births, deaths = (np.empty((ny, nx)) for _ in range(3))
     if stochastic:
         demography.step_stochastic(n, k, env, grown, births, deaths, model, rate, surv, theta,
                                    0.0, keys[0], keys[1])
-        leaving = dispersal.leaving_stochastic(grown, k, 0.25, 1.0, keys[2])
+        leaving = leaving_stochastic(grown, k, 0.25, 1.0, keys[2])
     else:
         demography.step_deterministic(n, k, env, grown, births, deaths, model, rate, surv,
                                       theta, 0.0)
-        leaving = dispersal.leaving_deterministic(grown, k, 0.25, 1.0)
+        leaving = leaving_deterministic(grown, k, 0.25, 1.0)
     out, lv = np.empty((ny, nx)), np.empty((ny, nx))
-    no = engine._NO_FIELD
-    s = engine._patch_totals(engine._grow(labels, n_patches, n, k, np.zeros((1, nx)), out, lv,
-                                          model, rate, surv, theta, 0.0, stochastic, 0.25, 1.0,
-                                          keys, no, no, no))
+    rates = GrowthRates(model, rate, surv, theta, 0.0, stochastic)
+    s = patch_totals(grow_pass(labels, n_patches, n, k, np.zeros((1, nx)), out, lv, rates,
+                               Emigration(0.25, 1.0), keys, NO_RETENTION))
     np.testing.assert_array_equal(lv, leaving)
     np.testing.assert_array_equal(out, grown - leaving)
     assert leaving.sum() > 0

@@ -19,15 +19,9 @@ from scipy import ndimage
 from shapely.geometry import LineString, Point, Polygon, box
 
 from gridpop.errors import InputDataError, ScenarioError
-from gridpop.landscape import (
-    align_raster,
-    build_landscape,
-    capacity,
-    label_patches,
-    load_grid,
-    rasterize_vector,
-    read_points,
-)
+from gridpop.io.rasters import align_raster, load_grid
+from gridpop.io.vectors import rasterize_vector, read_points
+from gridpop.landscape import build_landscape, capacity, label_patches
 from gridpop.scenario import load_scenario
 
 # conftest's default transform comes from rasterio's from_origin, which composes affines with `*`;

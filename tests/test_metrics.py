@@ -9,8 +9,7 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 
-from gridpop.errors import ScenarioError
-from gridpop.metrics import (
+from gridpop.analysis.metrics import (
     binomial_interval,
     colonisation_probability,
     expected_minimum,
@@ -84,9 +83,9 @@ def test_binomial_interval_arrays(method):
 
 def test_binomial_interval_rejects_bad_input():
     """Unknown method names, confidence outside (0, 1) and k > n are refused (common practice)."""
-    with pytest.raises(ScenarioError, match="wilson"):
+    with pytest.raises(ValueError, match="wilson"):
         binomial_interval(1, 10, method="agresti")
-    with pytest.raises(ScenarioError, match="confidence"):
+    with pytest.raises(ValueError, match="confidence"):
         binomial_interval(1, 10, confidence=1.0)
     with pytest.raises(ValueError):
         binomial_interval(11, 10)
@@ -314,7 +313,7 @@ def test_metapopulation_capacity_large_network_uses_arpack():
 
 def test_metapopulation_capacity_rejects_bad_areas():
     """Areas must be positive (common practice)."""
-    with pytest.raises(ScenarioError, match="area"):
+    with pytest.raises(ValueError, match="area"):
         metapopulation_capacity(XY, [1.0, 0.0, 3.0], 1.0)
 
 

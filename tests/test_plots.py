@@ -19,9 +19,11 @@ from conftest import UTM, write_raster
 from shapely.geometry import LineString, Polygon, box
 
 from gridpop.errors import InputDataError
-from gridpop.outputs import LEDGER_FIELDS
-from gridpop.plots import (
+from gridpop.io.results import LEDGER_FIELDS
+from gridpop.report.plots import (
+    _maps,
     abundance_figure,
+    add_scale_bar,
     ledger_figure,
     ledger_means,
     map_figure,
@@ -305,7 +307,6 @@ def test_colonisation_map_marks_unreached_cells(run_dir):
     legend; cells outside the study area are not (common practice)."""
     plots = plot_run(run_dir)
     assert (run_dir / "plots" / "colonisation.png") in plots
-    from gridpop.plots import _maps
 
     fig = dict(_maps([read_run(run_dir)]))["colonisation"]
     texts = [t.get_text() for leg in fig.legends for t in leg.get_texts()]
@@ -339,7 +340,6 @@ def test_scale_bar_in_feet():
     NIST Handbook 44, Appendix C)."""
     from matplotlib.figure import Figure
 
-    from gridpop.plots import add_scale_bar
 
     ax = Figure().subplots()
     ax.set_xlim(0, 6000)

@@ -16,7 +16,7 @@ from test_plots import CAUTIONS as RUN_CAUTIONS
 from test_plots import make_compare, make_run
 
 from gridpop.cli import main
-from gridpop.report import ASSUMPTIONS, CAUTIONS, fmt, write_report
+from gridpop.report.html import ASSUMPTIONS, CAUTIONS, fmt, write_report
 
 VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source",
         "track", "wbr"}

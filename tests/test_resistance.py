@@ -11,13 +11,13 @@ from scipy import sparse, stats
 from scipy.signal import fftconvolve
 from scipy.sparse.linalg import spsolve
 
-from gridpop import resistance, rng
-from gridpop.errors import InputDataError, ScenarioError
-from gridpop.resistance import (
+from gridpop import rng
+from gridpop.movement import walk
+from gridpop.movement.connectivity import corridor_share, patch_connectivity
+from gridpop.movement.walk import (
     WalkParams,
     disperse_walk_deterministic,
     disperse_walk_stochastic,
-    patch_connectivity,
     permeability_from_resistance,
     resistance_from_suitability,
 )
@@ -424,7 +424,7 @@ def test_results_do_not_depend_on_the_number_of_threads(monkeypatch):
     per-thread buffers of whole numbers; common practice for reproducible parallel Monte Carlo)."""
     if numba.config.NUMBA_NUM_THREADS < 2:
         pytest.skip("needs 2 numba threads")
-    monkeypatch.setattr(resistance, "SERIAL_CELLS", 0)  # small grid, parallel all the same
+    monkeypatch.setattr(walk, "SERIAL_CELLS", 0)  # small grid, parallel all the same
     perm, q, labels = landscape(size=40, seed=9)
     d = np.random.default_rng(2).integers(0, 15, perm.shape).astype(float)
     before = numba.get_num_threads()
@@ -470,19 +470,19 @@ def test_surfaces_from_resistance_and_suitability():
 
 
 def test_user_errors_name_the_value():
-    with pytest.raises(InputDataError, match="resistance.*-1"):
+    with pytest.raises(ValueError, match="resistance.*-1"):
         permeability_from_resistance(np.array([[1.0, -1.0]]))
-    with pytest.raises(InputDataError, match="suitability.*1.5"):
+    with pytest.raises(ValueError, match="suitability.*1.5"):
         resistance_from_suitability(np.array([[1.5]]), 10.0, 1.0)
-    with pytest.raises(ScenarioError, match="r_max.*0.5"):
+    with pytest.raises(ValueError, match="resistance_max.*0.5"):
         resistance_from_suitability(np.array([[0.5]]), 0.5, 1.0)
-    with pytest.raises(ScenarioError, match="walk_length.*0"):
+    with pytest.raises(ValueError, match="walk_length.*0"):
         WalkParams(walk_length=0)
-    with pytest.raises(ScenarioError, match="heading_bias.*-1"):
+    with pytest.raises(ValueError, match="heading_bias.*-1"):
         WalkParams(walk_length=3, heading_bias=-1.0)
-    with pytest.raises(InputDataError, match="quality.*2"):
+    with pytest.raises(ValueError, match="quality.*2"):
         det(np.ones((2, 2)), np.ones((2, 2)), np.full((2, 2), 2.0), WalkParams(walk_length=1))
-    with pytest.raises(InputDataError, match="permeability.*inf"):
+    with pytest.raises(ValueError, match="permeability.*inf"):
         det(np.ones((1, 2)), np.array([[1.0, np.inf]]), np.zeros((1, 2)), WalkParams(walk_length=1))
 
 
@@ -560,7 +560,6 @@ def test_corridor_share_of_the_flow_between_two_blocks():
     closed everything flows through the corridor (share 1, exact), when the corridor is not on
     any route the share is 0, and with both open the share lies strictly between (the walk's
     linearity in its walkers, common practice)."""
-    from gridpop.resistance import corridor_share
 
     ny, nx = 11, 21
     labels = np.zeros((ny, nx), np.int32)

@@ -15,8 +15,14 @@ import rasterio
 from conftest import scenario_text as shared_scenario
 
 import gridpop
-from gridpop import engine
 from gridpop.cli import main
+from gridpop.landscape import build_landscape
+from gridpop.simulation import resources as simulation_resources
+from gridpop.simulation import results as simulation_results
+from gridpop.simulation.batches import batch_folder, run_checkpointed_batch
+from gridpop.simulation.cycle import BatchSink
+from gridpop.simulation.model import build_model
+from gridpop.simulation.resources import footprint
 
 
 def scenario_text(years=5, replicates=4):
@@ -94,7 +100,7 @@ def test_disk_full_during_batches_nothing_complete_then_resume(make_scenario, tm
     gridpop.run(scen, tmp_path / "whole")
     out, work = tmp_path / "r", tmp_path / ".r.partial"
     with monkeypatch.context() as m:
-        fail_on_call(m, engine.BatchSink, "close", 2)
+        fail_on_call(m, BatchSink, "close", 2)
         assert run_cli("run", scen, "--out", out) == 2
     err = capsys.readouterr().err
     assert "no space left" in err.lower() and "--resume" in err and "Traceback" not in err
@@ -115,7 +121,7 @@ def test_disk_full_while_writing_results_then_resume(make_scenario, tmp_path, mo
     gridpop.run(scen, tmp_path / "whole")
     out, work = tmp_path / "r", tmp_path / ".r.partial"
     with monkeypatch.context() as m:
-        fail_on_call(m, engine, "write_stack", 2)
+        fail_on_call(m, simulation_results, "write_stack", 2)
         assert run_cli("run", scen, "--out", out) == 2
     assert "no space left" in capsys.readouterr().err.lower()
     assert not out.exists() and not (work / "run.json").exists()
@@ -130,7 +136,7 @@ def test_resume_refuses_changed_scenario_or_settings(make_scenario, tmp_path, mo
     scen = make_scenario(scenario_text())
     out, work = tmp_path / "r", tmp_path / ".r.partial"
     with monkeypatch.context() as m:
-        fail_on_call(m, engine.BatchSink, "close", 3)
+        fail_on_call(m, BatchSink, "close", 3)
         assert run_cli("run", scen, "--out", out) == 2
     capsys.readouterr()
     assert run_cli("run", scen, "--out", out, "--resume", "--years", "6") == 2
@@ -154,17 +160,16 @@ def test_resume_without_interrupted_run_starts_fresh(make_scenario, tmp_path):
 def test_batch_placed_once(make_scenario, tmp_path):
     """Two attempts at the same batch (a task retried after its worker was lost): the first
     rename places it, the second copy is discarded, nothing temporary is left."""
-    from gridpop.landscape import build_landscape
 
     s = gridpop.load_scenario(make_scenario(scenario_text()))
-    model = engine.build_model(s, build_landscape(s, stochastic=True))
+    model = build_model(s, build_landscape(s, stochastic=True))
     work = tmp_path / "w"
     (work / "batches").mkdir(parents=True)
-    assert engine.run_checkpointed_batch(model, 1, range(1, 2), work) == 1
-    first = {p.name: p.read_bytes() for p in engine.batch_folder(work, 1).iterdir()}
-    assert engine.run_checkpointed_batch(model, 1, range(1, 2), work) == 1
+    assert run_checkpointed_batch(model, 1, range(1, 2), work) == 1
+    first = {p.name: p.read_bytes() for p in batch_folder(work, 1).iterdir()}
+    assert run_checkpointed_batch(model, 1, range(1, 2), work) == 1
     assert [p.name for p in (work / "batches").iterdir()] == ["00001"]
-    again = {p.name: p.read_bytes() for p in engine.batch_folder(work, 1).iterdir()}
+    again = {p.name: p.read_bytes() for p in batch_folder(work, 1).iterdir()}
     assert again == first and "done" in first
 
 
@@ -172,7 +177,7 @@ def test_room_check_refuses_with_numbers_unless_forced(make_scenario, tmp_path, 
                                                        capsys):
     scen = make_scenario(scenario_text())
     out = tmp_path / "r"
-    monkeypatch.setattr(engine, "free_room", lambda path: (10_000, 20_000))
+    monkeypatch.setattr(simulation_resources, "free_room", lambda path: (10_000, 20_000))
     assert run_cli("run", scen, "--out", out) == 2
     err = capsys.readouterr().err
     assert "10.0 kB is available" in err and "20.0 kB is free" in err and "--force" in err
@@ -185,13 +190,12 @@ def test_estimated_output_bounds_what_is_written(make_scenario, tmp_path, capsys
     the files written (DEFLATE only shrinks them: Deutsch 1996, RFC 1951, stored blocks). Stacks
     are band-interleaved (GDAL GTiff INTERLEAVE=BAND, common practice for stacks written band by
     band)."""
-    from gridpop.landscape import build_landscape
 
     path = make_scenario(scenario_text())
     out = tmp_path / "r"
     gridpop.run(path, out)
     s = gridpop.load_scenario(path)
-    fp = engine.footprint(s, engine.build_model(s, build_landscape(s, stochastic=True)))
+    fp = footprint(s, build_model(s, build_landscape(s, stochastic=True)))
     files = json.loads((out / "run.json").read_text())["files"]
     written = sum((out / f).stat().st_size for f in files if f.endswith((".tif", ".csv")))
     assert written <= fp.output

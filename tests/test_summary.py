@@ -15,9 +15,9 @@ from conftest import UTM, write_raster
 from rasterio.transform import from_origin
 from scipy import stats
 
+from gridpop.analysis.summary import FocusCensus
 from gridpop.cli import main
-from gridpop.outputs import NODATA
-from gridpop.summary import FocusCensus
+from gridpop.io.results import NODATA
 
 NY, NX, CELL = 10, 16, 30.0
 X0, Y0 = 500_000.0, 4_000_000.0
@@ -349,7 +349,7 @@ def test_capacity_skipped_above_the_patch_limit(tmp_path, monkeypatch):
     """Above CAPACITY_MAX_PATCHES patches the capacity (one eigenproblem per patch for the
     removal drops, cost ~ P^3) is not computed, and the summary says so (common practice:
     report what was skipped)."""
-    monkeypatch.setattr("gridpop.summary.CAPACITY_MAX_PATCHES", 1)
+    monkeypatch.setattr("gridpop.analysis.summary.CAPACITY_MAX_PATCHES", 1)
     scen = write_case(tmp_path, STOCHASTIC.replace("replicates = 24", "replicates = 2"),
                       targets=(["east"], [box(*EAST)], "label"))
     out = tmp_path / "res"

@@ -8,7 +8,7 @@ import math
 import numpy as np
 
 import gridpop
-from gridpop.metrics import quasi_extinction_diffusion
+from gridpop.analysis.metrics import quasi_extinction_diffusion
 
 DENNIS = """
 [run]

@@ -34,11 +34,11 @@ from pathlib import Path
 import numpy as np
 import rasterio
 
-from . import __version__
-from .errors import ScenarioError
-from .landscape import load_grid
+from .._version import __version__
+from ..errors import ScenarioError
+from ..io.rasters import load_grid
+from ..io.results import prepare_output, publish, write_json, write_stack
 from .metrics import paired_difference
-from .outputs import prepare_output, publish, write_json, write_stack
 from .summary import N_BOOT, focus_census
 
 PAIRING = ("Replicates are paired by common random numbers: replicate i of every plan uses the "
@@ -251,7 +251,7 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
     Law, A. M. and Kelton, W. D. (2000). Simulation Modeling and Analysis, 3rd ed. McGraw-Hill
     (common random numbers).
     """
-    from .engine import run
+    from ..simulation.run import run
 
     out_dir = Path(out_dir)
     plans, notes = prepare_plans(list(scenarios))
@@ -310,7 +310,7 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
         "files": sorted(files), "complete": True})
     publish(work, out_dir)
     if plots:
-        from .plots import plot_compare, plot_run
+        from ..report.plots import plot_compare, plot_run
 
         for s in plans:
             plot_run(out_dir / s.path.stem)

@@ -17,8 +17,6 @@ import numpy as np
 import scipy.sparse.linalg
 from scipy import stats
 
-from .errors import ScenarioError
-
 BINOMIAL_METHODS = {"wilson": 0, "exact": 1, "clopper-pearson": 1}
 """Interval methods for :func:`binomial_interval`; ``"clopper-pearson"`` is ``"exact"``."""
 
@@ -34,7 +32,7 @@ _BOOT_CHUNK = 1 << 22
 
 def _check_confidence(confidence):
     if not 0.0 < confidence < 1.0:
-        raise ScenarioError(f"confidence must be strictly between 0 and 1, got {confidence!r}")
+        raise ValueError(f"confidence must be strictly between 0 and 1, got {confidence!r}")
     return 1.0 - confidence
 
 
@@ -82,7 +80,7 @@ def binomial_interval(successes, trials, confidence=0.95, method="wilson"):
     in the case of the binomial. Biometrika 26, 404-413.
     """
     if method not in BINOMIAL_METHODS:
-        raise ScenarioError(f"binomial interval method {method!r} is unknown; "
+        raise ValueError(f"binomial interval method {method!r} is unknown; "
                             f"allowed: {', '.join(BINOMIAL_METHODS)}")
     alpha = _check_confidence(confidence)
     k, n = np.broadcast_arrays(np.asarray(successes, dtype=float), np.asarray(trials, dtype=float))
@@ -162,7 +160,7 @@ def _bootstrap_means(values, n_boot, rng):
 
 def _check_boot(n_boot):
     if int(n_boot) != n_boot or n_boot < 1:
-        raise ScenarioError(f"n_boot must be a positive whole number, got {n_boot!r}")
+        raise ValueError(f"n_boot must be a positive whole number, got {n_boot!r}")
     return int(n_boot)
 
 
@@ -355,18 +353,18 @@ def metapopulation_capacity(xy, area, alpha, *, dispersal=None):
         raise ValueError(f"xy must be a (patches, 2) array, got shape {xy.shape}")
     p = xy.shape[0]
     if area.shape != (p,) or np.any(~(area > 0)):
-        raise ScenarioError(f"patch areas must be {p} positive values, got shape {area.shape} "
+        raise ValueError(f"patch areas must be {p} positive values, got shape {area.shape} "
                             f"with minimum {np.min(area) if area.size else None!r}")
     if dispersal is None:
         if alpha is None or not alpha > 0:
-            raise ScenarioError(f"alpha (1 / mean dispersal distance) must be positive, "
+            raise ValueError(f"alpha (1 / mean dispersal distance) must be positive, "
                                 f"got {alpha!r}")
         f = np.exp(-alpha * np.hypot(xy[:, None, 0] - xy[None, :, 0],
                                      xy[:, None, 1] - xy[None, :, 1]))
     else:
         f = np.array(dispersal, dtype=float)
         if f.shape != (p, p) or np.any(~(f >= 0)):
-            raise ScenarioError(f"dispersal must be a ({p}, {p}) array of nonnegative "
+            raise ValueError(f"dispersal must be a ({p}, {p}) array of nonnegative "
                                 f"probabilities, got shape {f.shape}")
     m = f * area[:, None] * area[None, :]
     np.fill_diagonal(m, 0.0)
@@ -398,7 +396,7 @@ def levins_equilibrium(c, e):
 
 def _check_levins(c, e):
     if not (c > 0 and e >= 0):
-        raise ScenarioError(f"Levins rates need c > 0 and e >= 0, got c={c!r}, e={e!r}")
+        raise ValueError(f"Levins rates need c > 0 and e >= 0, got c={c!r}, e={e!r}")
 
 
 def levins_occupancy(c, e, p0, t):
@@ -427,7 +425,7 @@ def levins_occupancy(c, e, p0, t):
     """
     _check_levins(c, e)
     if not 0 < p0 <= 1:
-        raise ScenarioError(f"initial occupancy p0 must be in (0, 1], got {p0!r}")
+        raise ValueError(f"initial occupancy p0 must be in (0, 1], got {p0!r}")
     t = np.asarray(t, dtype=float)
     r = c - e
     if r == 0:
@@ -572,11 +570,11 @@ def quasi_extinction_diffusion(mu, sigma, n0, nq, t):
     parameters for endangered species. Ecological Monographs 61, 115-143.
     """
     if not (sigma > 0 and n0 > 0 and nq > 0):
-        raise ScenarioError(f"need sigma > 0, n0 > 0 and nq > 0, got sigma={sigma!r}, "
+        raise ValueError(f"need sigma > 0, n0 > 0 and nq > 0, got sigma={sigma!r}, "
                             f"n0={n0!r}, nq={nq!r}")
     t = np.asarray(t, dtype=float)
     if np.any(~(t >= 0)):
-        raise ScenarioError("horizon t must be >= 0")
+        raise ValueError("horizon t must be >= 0")
     d = np.log(n0 / nq)
     if d <= 0:
         g = np.ones_like(t)

@@ -38,8 +38,11 @@ from pathlib import Path
 import numpy as np
 import rasterio.features
 
-from .errors import InputDataError, ScenarioError, where
-from .landscape import _fmt_bounds, _read_vector
+from ..errors import InputDataError, ScenarioError, where
+from ..io.rasters import fmt_bounds
+from ..io.results import LEDGER_FIELDS, write_json, write_stack
+from ..io.vectors import read_vector
+from ..scenario import ARRAY_SECTIONS, SECTIONS
 from .metrics import (
     colonisation_probability,
     expected_minimum,
@@ -49,8 +52,6 @@ from .metrics import (
     occupancy_over_time,
     risk_curve,
 )
-from .outputs import LEDGER_FIELDS, write_json, write_stack
-from .scenario import ARRAY_SECTIONS, SECTIONS
 
 ABUNDANCE = LEDGER_FIELDS.index("abundance")
 
@@ -116,7 +117,7 @@ def focus_census(scenario, grid) -> FocusCensus | None:
     if risk.focus_areas is None:
         return None
     loc = f"{where(scenario.path, 'risk', 'focus_areas')} ({risk.focus_areas})"
-    gdf, _ = _read_vector(risk.focus_areas, grid, loc)
+    gdf, _ = read_vector(risk.focus_areas, grid, loc)
     field = risk.focus_name_field
     columns = [str(c) for c in gdf.columns if c != gdf.geometry.name]
     if field not in columns:
@@ -134,8 +135,8 @@ def focus_census(scenario, grid) -> FocusCensus | None:
                                            transform=grid.transform, fill=0, dtype=np.uint8)
         if not mask.any():
             raise InputDataError(f"{loc}: focus area {name!r} covers no cell centre of the grid "
-                                 f"(its bounds {_fmt_bounds(geoms.total_bounds)}, grid bounds "
-                                 f"{_fmt_bounds(grid.bounds)}).")
+                                 f"(its bounds {fmt_bounds(geoms.total_bounds)}, grid bounds "
+                                 f"{fmt_bounds(grid.bounds)}).")
         cells.append(np.flatnonzero(mask))
     return FocusCensus(tuple(names), tuple(cells))
 
@@ -212,7 +213,7 @@ def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray |
     total = ledger[:, :, 0, ABUNDANCE]
     reps, steps = total.shape
     est, lo, hi = expected_minimum(total, n_boot=N_BOOT, confidence=risk.confidence,
-                                   seed=model.seed)
+                                   seed=model.plan.seed)
     out = {"quasi_extinction": risk.quasi_extinction, "replicates": reps, "years": steps - 1,
            "confidence": risk.confidence, "occupancy_threshold": occ_threshold,
            "risk": _risk(total, risk.quasi_extinction, risk.confidence),
@@ -220,11 +221,11 @@ def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray |
            "final_abundance": final_abundance(total),
            "occupied_patches": {"year": list(range(steps)), "mean": np.zeros(steps)},
            "colonisation": {}, "notes": []}
-    if model.n_patches:
+    if model.census.n_patches:
         occ = occupancy_over_time(ledger[:, :, 1:, ABUNDANCE], occ_threshold)
         out["occupied_patches"]["mean"] = occ["mean_n_occupied"]
     if focus_abundance is not None:
-        names = model.focus.names
+        names = model.census.focus.names
         col = colonisation_probability(focus_abundance, occ_threshold)
         for q, name in enumerate(names):
             out["focus_risk"][name] = _risk(focus_abundance[:, :, q], risk.quasi_extinction,
@@ -284,7 +285,7 @@ def write_summary(work: Path, scenario, model, ledger: np.ndarray, totals: dict,
         The names of the files written.
     """
     focus = None
-    if model.focus is not None:
+    if model.census.focus is not None:
         focus = np.concatenate([np.load(p / "focus.npy") for p in parts], axis=0)
     summary = summarise(scenario, model, ledger, focus)
     write_json(work / "summary.json", summary)
@@ -294,7 +295,7 @@ def write_summary(work: Path, scenario, model, ledger: np.ndarray, totals: dict,
     _write_csv(work / "risk.csv", ("year",) + keys,
                ([t] + [_fmt(r[k][t]) for k in keys] for t in r["year"]))
     rows = []
-    if model.n_patches:
+    if model.census.n_patches:
         patch_n = ledger[:, :, 1:, ABUNDANCE]
         threshold = scenario.output.occupancy_threshold
         occ = occupancy_over_time(patch_n, threshold)["fraction_occupied"]
@@ -303,6 +304,6 @@ def write_summary(work: Path, scenario, model, ledger: np.ndarray, totals: dict,
                 for t in range(occ.shape[0]) for p in range(occ.shape[1]))
     _write_csv(work / "patch_occupancy.csv",
                ("year", "patch", "fraction_occupied", "fraction_colonised"), rows)
-    write_colonisation_year(work / "colonisation_year.tif", totals["ever"], model.replicates,
+    write_colonisation_year(work / "colonisation_year.tif", totals["ever"], model.plan.replicates,
                             model.landscape.grid, model.landscape.mask)
     return list(FILES)

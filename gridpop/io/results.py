@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 import rasterio
 
-from .errors import OutputExistsError
+from ..errors import OutputExistsError
 
 NODATA = -9999.0
 

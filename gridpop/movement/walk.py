@@ -92,9 +92,10 @@ import numba
 import numpy as np
 from scipy import ndimage
 
-from ._jit import njit, pjit, prange
-from .errors import InputDataError, ScenarioError
-from .rng import cell_key, uniform
+from .. import rng
+from .._jit import njit, pjit, prange
+from ..rng import YearStreams, cell_key, uniform
+from . import NO_RETENTION, Moved, Retention
 
 # The 8 neighbour directions (row step, column step) and their lengths in cells.
 _DY = np.array([-1, -1, -1, 0, 0, 1, 1, 1], dtype=np.int64)
@@ -142,8 +143,7 @@ class WalkParams:
         )
         for name, ok, allowed in checks:
             if not ok:
-                raise ScenarioError(f"[dispersal] walk {name} must be {allowed}, got "
-                                    f"{getattr(self, name)!r}")
+                raise ValueError(f"{name} must be {allowed}, got {getattr(self, name)!r}")
 
 
 def _finite(x) -> bool:
@@ -166,7 +166,7 @@ def permeability_from_resistance(r: np.ndarray) -> np.ndarray:
     r = np.asarray(r, dtype=np.float64)
     bad = ~(np.isnan(r) | (r > 0))
     if bad.any():
-        raise InputDataError(f"resistance: values must be > 0 (inf or NaN = impassable), got "
+        raise ValueError(f"resistance: values must be > 0 (inf or NaN = impassable), got "
                              f"{r[bad].min():g} in {int(bad.sum())} cell(s)")
     with np.errstate(divide="ignore"):
         p = 1.0 / r
@@ -192,20 +192,20 @@ def resistance_from_suitability(s: np.ndarray, r_max: float, shape: float) -> np
         Resistance, 1 where ``s = 1``.
     """
     if not (_finite(r_max) and r_max >= 1):
-        raise ScenarioError(f"[dispersal] resistance r_max must be a finite number >= 1, got "
+        raise ValueError(f"resistance_max must be a finite number >= 1, got "
                             f"{r_max!r}")
     if not (_finite(shape) and shape > 0):
-        raise ScenarioError(f"[dispersal] resistance shape must be a finite number > 0, got "
+        raise ValueError(f"resistance_shape must be a finite number > 0, got "
                             f"{shape!r}")
     s = np.asarray(s, dtype=np.float64)
     bad = ~(np.isnan(s) | ((s >= 0) & (s <= 1)))
     if bad.any():
-        raise InputDataError(f"suitability: values must be in [0, 1] or NaN, got "
+        raise ValueError(f"suitability: values must be in [0, 1] or NaN, got "
                              f"{s[bad][0]:g} in {int(bad.sum())} cell(s)")
     return 1.0 + (r_max - 1.0) * (1.0 - s) ** shape
 
 
-class _Surfaces(NamedTuple):
+class WalkSurfaces(NamedTuple):
     """Per-cell arrays the kernels read, derived once from the inputs."""
 
     perm: np.ndarray  # permeability, 0 = impassable
@@ -213,25 +213,25 @@ class _Surfaces(NamedTuple):
     surv1: np.ndarray  # survival of an orthogonal step into the cell
     surv2: np.ndarray  # survival of a diagonal step into the cell
 
-    def crop(self, ys: slice, xs: slice) -> _Surfaces:
-        return _Surfaces(*(np.ascontiguousarray(a[ys, xs]) for a in self))
+    def crop(self, ys: slice, xs: slice) -> WalkSurfaces:
+        return WalkSurfaces(*(np.ascontiguousarray(a[ys, xs]) for a in self))
 
 
-def _surfaces(permeability, quality, params: WalkParams, entry_survival=None) -> _Surfaces:
+def walk_surfaces(permeability, quality, params: WalkParams, entry_survival=None) -> WalkSurfaces:
     perm = np.array(permeability, dtype=np.float64)
     if perm.ndim != 2:
         raise ValueError(f"permeability must be 2-D, got shape {perm.shape}")
     perm[np.isnan(perm)] = 0.0
     bad = ~(np.isfinite(perm) & (perm >= 0))
     if bad.any():
-        raise InputDataError(f"permeability: values must be finite and >= 0 (0 or NaN = "
+        raise ValueError(f"permeability: values must be finite and >= 0 (0 or NaN = "
                              f"impassable), got {perm[bad][0]:g} in {int(bad.sum())} cell(s)")
     q = np.array(quality, dtype=np.float64)
-    _check_shape("quality", q, perm.shape)
+    check_shape("quality", q, perm.shape)
     q[np.isnan(q)] = 0.0
     bad = ~((q >= 0) & (q <= 1))
     if bad.any():
-        raise InputDataError(f"habitat quality: values must be in [0, 1] or NaN, got "
+        raise ValueError(f"habitat quality: values must be in [0, 1] or NaN, got "
                              f"{q[bad][0]:g} in {int(bad.sum())} cell(s)")
     settle = np.where(q > 0, q, 0.0) ** params.settle_exponent
     resist = np.divide(1.0, perm, out=np.zeros_like(perm), where=perm > 0)
@@ -240,10 +240,10 @@ def _surfaces(permeability, quality, params: WalkParams, entry_survival=None) ->
     if entry_survival is not None:
         surv1 *= entry_survival
         surv2 *= entry_survival
-    return _Surfaces(perm, settle, surv1, surv2)
+    return WalkSurfaces(perm, settle, surv1, surv2)
 
 
-def _turn_table(heading_bias: float) -> np.ndarray:
+def turn_table(heading_bias: float) -> np.ndarray:
     """Turning weights ``(rows, 8)``: row 0 = no previous step (all 1); with heading_bias, row
     ``d + 1`` = previous step in direction ``d``, weight ``exp(kappa (cos(turn) - 1))``."""
     if heading_bias == 0.0:
@@ -252,14 +252,14 @@ def _turn_table(heading_bias: float) -> np.ndarray:
     return np.vstack([np.ones((1, 8)), np.exp(heading_bias * (cos - 1.0))])
 
 
-def _check_shape(name: str, a: np.ndarray, shape: tuple[int, ...]) -> None:
+def check_shape(name: str, a: np.ndarray, shape: tuple[int, ...]) -> None:
     if a.shape != shape:
         raise ValueError(f"{name} has shape {a.shape}, expected {shape}")
 
 
 def _check_dispersers(dispersers, shape, whole: bool) -> np.ndarray:
     d = np.ascontiguousarray(dispersers, dtype=np.float64)
-    _check_shape("dispersers", d, shape)
+    check_shape("dispersers", d, shape)
     if not (np.isfinite(d).all() and (d >= 0).all()):
         raise ValueError("dispersers must be finite and >= 0")
     if whole and not (d == np.floor(d)).all():
@@ -267,9 +267,9 @@ def _check_dispersers(dispersers, shape, whole: bool) -> np.ndarray:
     return d
 
 
-def _check_labels(labels, n_patches: int, shape) -> np.ndarray:
+def check_labels(labels, n_patches: int, shape) -> np.ndarray:
     lab = np.ascontiguousarray(labels, dtype=np.int32)
-    _check_shape("labels", lab, shape)
+    check_shape("labels", lab, shape)
     if lab.size and (lab.min() < 0 or lab.max() > n_patches):
         raise ValueError(f"labels must be in 0..{n_patches}, got {lab.min()}..{lab.max()}")
     return lab
@@ -461,7 +461,7 @@ def _det_step(g, perm, settle, surv1, surv2, turn, invz, last, g_next, arrivals,
 # --------------------------------------------------------------------------- wrappers
 
 
-def _propagate(dispersers: np.ndarray, surf: _Surfaces, turn: np.ndarray, walk_length: int):
+def propagate(dispersers: np.ndarray, surf: WalkSurfaces, turn: np.ndarray, walk_length: int):
     """Expected walk of ``dispersers``: (arrivals, visits, lost) maps."""
     threads = numba.get_num_threads()
     if dispersers.size < SERIAL_CELLS:
@@ -486,26 +486,9 @@ def _propagate(dispersers: np.ndarray, surf: _Surfaces, turn: np.ndarray, walk_l
     return arrivals, visits, lost
 
 
-class WalkResult(NamedTuple):
-    """What one year's walk did (float64 arrays; whole numbers in stochastic mode).
-
-    arrivals : (ny, nx) number settling in each cell.
-    stayed : (ny, nx) dispersers of each cell that settled back in that cell (in ``arrivals``).
-    retained : (n_patches + 1,) dispersers from patch p that settled in patch p.
-    settled_from : (n_patches + 1,) dispersers from patch p that settled anywhere.
-    visits : (ny, nx) number of walker entries into each cell (the flow map).
-    """
-
-    arrivals: np.ndarray
-    stayed: np.ndarray
-    retained: np.ndarray
-    settled_from: np.ndarray
-    visits: np.ndarray
-
-
 def disperse_walk_deterministic(dispersers, permeability, quality, labels, n_patches: int,
                                 params: WalkParams, lost: np.ndarray | None = None, *,
-                                entry_survival=None) -> WalkResult:
+                                entry_survival=None) -> Moved:
     """Expected redistribution of dispersers by the walk (Markov-chain propagation).
 
     Parameters
@@ -529,29 +512,29 @@ def disperse_walk_deterministic(dispersers, permeability, quality, labels, n_pat
 
     Returns
     -------
-    WalkResult
+    Moved
         ``stayed`` is zero: cell origins are not tracked in this mode (see the module
         docstring). ``retained`` and ``settled_from`` are exact: each patch's dispersers are also
         propagated on their own, on the patch's bounding box widened by ``walk_length + 1``.
     """
-    surf = _surfaces(permeability, quality, params, entry_survival)
+    surf = walk_surfaces(permeability, quality, params, entry_survival)
     d = _check_dispersers(dispersers, surf.perm.shape, whole=False)
-    lab = _check_labels(labels, n_patches, surf.perm.shape)
-    turn = _turn_table(params.heading_bias)
-    arrivals, visits, lost_map = _propagate(d, surf, turn, params.walk_length)
+    lab = check_labels(labels, n_patches, surf.perm.shape)
+    turn = turn_table(params.heading_bias)
+    arrivals, visits, lost_map = propagate(d, surf, turn, params.walk_length)
     if lost is not None:
         lost += lost_map
     retained, settled_from = np.zeros(n_patches + 1), np.zeros(n_patches + 1)
-    for p, ys, xs in _patch_windows(lab, n_patches, params.walk_length + 1):
+    for p, ys, xs in patch_windows(lab, n_patches, params.walk_length + 1):
         start = np.where(lab[ys, xs] == p, d[ys, xs], 0.0)
         if start.any():
-            arr, _, _ = _propagate(start, surf.crop(ys, xs), turn, params.walk_length)
+            arr, _, _ = propagate(start, surf.crop(ys, xs), turn, params.walk_length)
             settled_from[p] = arr.sum()
             retained[p] = arr[lab[ys, xs] == p].sum()
-    return WalkResult(arrivals, np.zeros_like(arrivals), retained, settled_from, visits)
+    return Moved(arrivals, np.zeros_like(arrivals), retained, settled_from, visits)
 
 
-def _patch_windows(lab: np.ndarray, n_patches: int, margin: int):
+def patch_windows(lab: np.ndarray, n_patches: int, margin: int):
     """(patch, row slice, column slice): each patch's bounding box widened by ``margin``."""
     ny, nx = lab.shape
     for p, box in enumerate(ndimage.find_objects(lab, max_label=n_patches), start=1):
@@ -562,7 +545,7 @@ def _patch_windows(lab: np.ndarray, n_patches: int, margin: int):
 
 def disperse_walk_stochastic(dispersers, permeability, quality, labels, n_patches: int,
                              params: WalkParams, key, lost: np.ndarray | None = None, *,
-                             entry_survival=None) -> WalkResult:
+                             entry_survival=None) -> Moved:
     """Move whole dispersers, each on its own walk.
 
     Parameters
@@ -578,80 +561,30 @@ def disperse_walk_stochastic(dispersers, permeability, quality, labels, n_patche
 
     Returns
     -------
-    WalkResult
+    Moved
         All fields exact whole numbers.
     """
-    surf = _surfaces(permeability, quality, params, entry_survival)
+    surf = walk_surfaces(permeability, quality, params, entry_survival)
     shape = surf.perm.shape
     d = _check_dispersers(dispersers, shape, whole=True)
-    lab = _check_labels(labels, n_patches, shape)
+    lab = check_labels(labels, n_patches, shape)
     nt = numba.get_num_threads()
     arrivals, visits, lost_t = (np.zeros((nt,) + shape) for _ in range(3))
     retained, settled_from = np.zeros((nt, n_patches + 1)), np.zeros((nt, n_patches + 1))
     stayed = np.zeros(shape)
     mortal = params.death_per_resistance > 0 or entry_survival is not None
     _walk_stochastic(d, surf.perm, surf.settle, surf.surv1, surf.surv2, lab,
-                     _turn_table(params.heading_bias), int(params.walk_length), mortal,
+                     turn_table(params.heading_bias), int(params.walk_length), mortal,
                      np.uint64(key), arrivals, visits, lost_t, retained, settled_from, stayed)
     if lost is not None:
         lost += lost_t.sum(axis=0)
-    return WalkResult(arrivals.sum(axis=0), stayed, retained.sum(axis=0),
+    return Moved(arrivals.sum(axis=0), stayed, retained.sum(axis=0),
                       settled_from.sum(axis=0), visits.sum(axis=0))
-
-
-def patch_connectivity(labels, n_patches: int, permeability, quality, params: WalkParams,
-                       weights=None, *, entry_survival=None) -> np.ndarray:
-    """Probability that a disperser leaving patch i settles in patch j, by the expected walk.
-
-    Parameters
-    ----------
-    labels : (ny, nx) int32 ndarray
-        Patch labels, 0 = no patch.
-    n_patches : int
-    permeability, quality, params
-        As in :func:`disperse_walk_deterministic`.
-    weights : (ny, nx) ndarray, optional
-        Where in its patch a disperser starts: proportional to ``weights`` (e.g. capacity K);
-        default uniform over the patch's cells.
-    entry_survival : (ny, nx) ndarray, optional
-        As in :func:`disperse_walk_deterministic` (barriers crossed with a mortality).
-
-    Returns
-    -------
-    (n_patches, n_patches) float64 ndarray
-        Row i (patch i + 1): settlement probabilities in each patch, the diagonal included (return
-        to the home patch). A row sums to less than 1 by the share lost or settling outside
-        patches; a patch whose weights are all 0 has a row of zeros.
-
-    Notes
-    -----
-    Each patch's walk is computed on its bounding box widened by ``walk_length + 1`` cells, the
-    farthest a walker can reach, so the result is the same as on the full grid.
-    """
-    surf = _surfaces(permeability, quality, params, entry_survival)
-    shape = surf.perm.shape
-    lab = _check_labels(labels, n_patches, shape)
-    w = np.ones(shape) if weights is None else np.asarray(weights, dtype=np.float64)
-    _check_shape("weights", w, shape)
-    if not (np.isfinite(w).all() and (w >= 0).all()):
-        raise ValueError("weights must be finite and >= 0")
-    turn = _turn_table(params.heading_bias)
-    out = np.zeros((n_patches, n_patches))
-    for p, ys, xs in _patch_windows(lab, n_patches, params.walk_length + 1):
-        lab_w = lab[ys, xs]
-        start = np.where(lab_w == p, w[ys, xs], 0.0)
-        total = start.sum()
-        if total == 0.0:
-            continue
-        arrivals, _, _ = _propagate(start / total, surf.crop(ys, xs), turn, params.walk_length)
-        out[p - 1] = np.bincount(lab_w.ravel(), weights=arrivals.ravel(),
-                                 minlength=n_patches + 1)[1:]
-    return out
 
 
 @dataclass(frozen=True, eq=False)
 class Walk:
-    """The walk engine as the yearly cycle uses it.
+    """The walk engine as a mover (:class:`gridpop.movement.Mover`).
 
     Attributes
     ----------
@@ -663,58 +596,35 @@ class Walk:
         Capacity of a cell at suitability 1: habitat quality is ``K / full_capacity``
         (clipped to 0..1), so walkers never settle where the capacity of the year is 0.
     params : WalkParams
+    labels : (ny, nx) int32 ndarray
+        Patch labels, 0 = no patch; ``n_patches`` patches.
+    stochastic : bool
+        Whole walkers (each on its own walk) or expected numbers.
     """
 
     permeability: np.ndarray
     entry_survival: np.ndarray | None
     full_capacity: float
     params: WalkParams
+    labels: np.ndarray
+    n_patches: int
+    stochastic: bool
 
     def quality(self, k: np.ndarray) -> np.ndarray:
         return np.clip(k / self.full_capacity, 0.0, 1.0) if self.full_capacity > 0 \
             else np.zeros_like(k)
 
-    def disperse(self, leaving, k, labels, n_patches, stochastic, key) -> WalkResult:
+    def retention(self, k: np.ndarray) -> Retention:
+        return NO_RETENTION
+
+    def move(self, leaving: np.ndarray, k: np.ndarray, streams: YearStreams,
+             work: dict[str, np.ndarray]) -> Moved:
         q = self.quality(k)
-        if stochastic:
-            return disperse_walk_stochastic(leaving, self.permeability, q, labels, n_patches,
-                                            self.params, key,
+        if self.stochastic:
+            return disperse_walk_stochastic(leaving, self.permeability, q, self.labels,
+                                            self.n_patches, self.params,
+                                            streams.key(rng.STREAM_WALK),
                                             entry_survival=self.entry_survival)
-        return disperse_walk_deterministic(leaving, self.permeability, q, labels, n_patches,
-                                           self.params, entry_survival=self.entry_survival)
-
-
-def corridor_share(source, target, cells, permeability, quality, params: WalkParams,
-                   weights=None, *, entry_survival=None):
-    """Share of the one-year flow from area ``source`` to area ``target`` (bool masks, e.g. two
-    habitat blocks) that passes through ``cells`` (a corridor), by the expected walk.
-
-    The flow is the expected number of walkers settling in ``target`` per walker leaving
-    ``source`` (start cells weighted by ``weights``, default uniform). Walkers that never enter
-    the corridor are those of the same walk with corridor cells made deadly on entry (killing a
-    walker on entry does not change where the others go), so the share is
-    ``1 - flow_without / flow``. Corridor cells inside the two areas are left out.
-
-    Returns
-    -------
-    flow : float
-    share : float or None
-        None when nothing flows from ``source`` to ``target``.
-    """
-    source = np.asarray(source, bool)
-    target = np.asarray(target, bool)
-    w = np.ones(source.shape) if weights is None else np.asarray(weights, dtype=np.float64)
-    start = np.where(source, w, 0.0)
-    if start.sum() <= 0:
-        return 0.0, None
-    start = start / start.sum()
-    base = np.ones(source.shape) if entry_survival is None else np.asarray(entry_survival, float)
-    corridor = np.asarray(cells, bool) & ~source & ~target
-    no_patches = np.zeros(source.shape, np.int32)
-    flows = []
-    for surv in (base, np.where(corridor, 0.0, base)):
-        res = disperse_walk_deterministic(start, permeability, quality, no_patches, 0, params,
-                                          entry_survival=surv)
-        flows.append(float(res.arrivals[target].sum()))
-    flow, without = flows
-    return flow, (1.0 - without / flow if flow > 0 else None)
+        return disperse_walk_deterministic(leaving, self.permeability, q, self.labels,
+                                           self.n_patches, self.params,
+                                           entry_survival=self.entry_survival)

@@ -16,8 +16,8 @@ import html
 import json
 from pathlib import Path
 
-from . import __version__
-from .errors import InputDataError
+from .._version import __version__
+from ..errors import InputDataError
 from .plots import Plan, plot_compare, plot_run, read_plans
 
 CAUTIONS = (

@@ -43,9 +43,9 @@ from matplotlib.patches import Patch
 from matplotlib.ticker import MaxNLocator
 from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
-from .actions import _is_raster
-from .errors import InputDataError, RunStateError
-from .outputs import LEDGER_FIELDS
+from ..errors import InputDataError, RunStateError
+from ..io.results import LEDGER_FIELDS
+from ..io.vectors import is_raster
 
 OKABE_ITO = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000",
              "#F0E442")
@@ -281,7 +281,7 @@ def _axis_label(crs: pyproj.CRS, direction: str, fallback: str) -> str:
     return fallback
 
 
-def crs_name(crs: pyproj.CRS) -> str:
+def _crs_label(crs: pyproj.CRS) -> str:
     """The CRS name, with its EPSG code when it has one."""
     code = crs.to_epsg()
     return f"{crs.name} (EPSG:{code})" if code else crs.name
@@ -321,7 +321,7 @@ def outlines(plan: Plan, crs: pyproj.CRS) -> list[tuple[str, gpd.GeoDataFrame]]:
             warnings.warn(f"{path}: the {kind} area of plan {plan.name} is missing; it is not "
                           "drawn on the maps.", stacklevel=2)
             continue
-        if _is_raster(path):
+        if is_raster(path):
             continue
         gdf = gpd.read_file(path)
         if gdf.crs is not None:
@@ -400,7 +400,7 @@ def map_figure(panels: list[tuple[str, MapLayer, list]], *, cmap: str, vmin: flo
     if handles:
         fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), 6),
                    fontsize="small", facecolor="#BFBFBF", framealpha=1.0)
-    fig.suptitle(f"{title}\ngrid CRS: {crs_name(crs)}", fontsize=11)
+    fig.suptitle(f"{title}\ngrid CRS: {_crs_label(crs)}", fontsize=11)
     return fig
 
 

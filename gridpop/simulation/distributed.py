@@ -20,7 +20,7 @@ import uuid
 from contextlib import contextmanager
 from pathlib import Path
 
-from .errors import RunStateError
+from ..errors import RunStateError
 
 CONNECT_TIMEOUT_S = 10.0
 """How long to try reaching a scheduler before giving up, seconds."""
@@ -105,7 +105,7 @@ def run_batches(client, model, todo: list[tuple[int, range]], work: Path, progre
     """
     from distributed import KilledWorker, as_completed
 
-    from .engine import run_checkpointed_batch
+    from .batches import run_checkpointed_batch
 
     shared = client.scatter(model, broadcast=True)
     token = uuid.uuid4().hex[:8]

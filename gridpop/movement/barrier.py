@@ -1,0 +1,174 @@
+"""Kernel dispersal across barrier actions.
+
+Barrier cells split the grid into *regions*: 4-neighbour connected groups of the other cells.
+The barrier cells themselves form *pieces*: 8-neighbour connected groups of cells with the same
+crossing mortality (so two barrier actions of different mortality are different pieces, and so
+is the overlap of two barriers, which kills as the two together). Regions and pieces are the
+nodes of a small graph, joined where their cells are 4-neighbours. A disperser that jumps from
+its region to a cell of another node crossed the barriers on the path between the two, and
+survives with the product of their survivals ``1 - crossing_mortality``; the path taken is the
+one of highest survival (fewest, least deadly barriers), found by Dijkstra's algorithm on the
+costs ``-log(survival)`` (:func:`scipy.sparse.csgraph.dijkstra`). Impassable pieces (mortality
+1) are never entered. One barrier between two regions charges exactly its own mortality.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import scipy.sparse
+from scipy import ndimage
+from scipy.sparse.csgraph import dijkstra
+
+from .. import rng
+from .._jit import pjit, prange
+from ..rng import YearStreams
+from . import NO_RETENTION, Moved, Retention
+from .convolution import as_field, disperse_deterministic
+from .kernels import Kernel
+from .placement import disperse_stochastic
+
+
+def crossing_survival(barrier: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Regions, nodes and the survival of a crossing from each region to each node.
+
+    Parameters
+    ----------
+    barrier : (ny, nx) ndarray of float
+        Probability of dying on entering each cell (0 off barriers, 1 = impassable).
+
+    Returns
+    -------
+    regions : (ny, nx) ndarray of int32
+        Region of each cell, 1..R; 0 on barrier cells.
+    node : (ny, nx) ndarray of int64
+        Node of each cell: its region (1..R), or R + its barrier piece (R+1..R+B).
+    survival : (R + 1, R + B + 1) ndarray of float64
+        ``survival[r, v]``: probability that a disperser from region r survives the barriers
+        on its way to a cell of node v (1 for v = r, 0 where every way is impassable); row and
+        column 0 unused.
+    """
+    regions, n_regions = ndimage.label(barrier == 0)
+    pieces = np.zeros(barrier.shape, np.int64)
+    piece_survival: list[float] = []
+    for value in np.unique(barrier[barrier > 0]):
+        lab, n = ndimage.label(barrier == value, structure=np.ones((3, 3)))
+        pieces[lab > 0] = lab[lab > 0] + len(piece_survival)
+        piece_survival += [1.0 - float(value)] * n
+    node = np.where(regions > 0, regions, pieces + n_regions).astype(np.int64)
+    n_nodes = n_regions + len(piece_survival)
+    node_survival = np.concatenate([np.ones(n_regions + 1), piece_survival])
+    with np.errstate(divide="ignore"):
+        cost = -np.log(node_survival)  # 0 for regions, inf for impassable pieces
+    pairs = np.concatenate([np.stack([node[:, :-1].ravel(), node[:, 1:].ravel()], axis=1),
+                            np.stack([node[:-1, :].ravel(), node[1:, :].ravel()], axis=1)])
+    pairs = np.unique(pairs[pairs[:, 0] != pairs[:, 1]], axis=0)
+    pairs = np.concatenate([pairs, pairs[:, ::-1]])
+    passable = np.isfinite(cost[pairs[:, 0]]) & np.isfinite(cost[pairs[:, 1]])
+    a, b = pairs[passable, 0], pairs[passable, 1]
+    # half of each node's cost on each edge that touches it: a path between two regions costs
+    # the sum of the costs of the pieces it crosses; every edge has a positive weight
+    weight = 0.5 * (cost[a] + cost[b])
+    graph = scipy.sparse.csr_matrix((weight, (a - 1, b - 1)), shape=(n_nodes, n_nodes))
+    survival = np.zeros((n_regions + 1, n_nodes + 1))
+    if n_regions:
+        _, before = dijkstra(graph, indices=np.arange(n_regions), return_predecessors=True)
+        for r in range(1, n_regions + 1):
+            for v in range(1, n_nodes + 1):
+                s, w = 1.0, v - 1
+                while w != r - 1 and w >= 0:
+                    s *= node_survival[w + 1]
+                    w = before[r - 1, w]
+                survival[r, v] = s if w == r - 1 else 0.0
+    return regions.astype(np.int32), node, survival
+
+
+class BarrierKernelMover:
+    """Moves emigrants with ``kernel`` across the barriers of ``barrier`` (per-cell crossing
+    mortality, :attr:`gridpop.actions.Actions.barrier`).
+
+    Sources are processed by (region, patch) group, so the per-patch bookkeeping stays exact: a
+    disperser that crosses a barrier and lands in its own patch is retained by the patch. In
+    stochastic mode the crossers are thinned binomially, as whole individuals.
+    """
+
+    def __init__(self, kernel: Kernel, edge: str, labels: np.ndarray, n_patches: int,
+                 stochastic: bool, barrier: np.ndarray):
+        self.kernel, self.edge, self.stochastic = kernel, edge, stochastic
+        self.labels, self.n_patches = labels, n_patches
+        self.regions, self.node, self.survival = crossing_survival(barrier)
+
+    def retention(self, k: np.ndarray) -> Retention:
+        return NO_RETENTION
+
+    def _spread(self, leaving, settle, streams: YearStreams):
+        """Kernel dispersal of ``leaving``: (arrivals, stayed), fresh arrays."""
+        if self.stochastic:
+            return disperse_stochastic(leaving, settle, self.labels, self.n_patches,
+                                       self.kernel, self.edge,
+                                       streams.key(rng.STREAM_DISPERSAL))[:2]
+        return disperse_deterministic(leaving, self.kernel, self.edge)
+
+    def move(self, leaving: np.ndarray, k: np.ndarray, streams: YearStreams,
+             work: dict[str, np.ndarray]) -> Moved:
+        settle = k > 0
+        n_p = self.n_patches
+        arrivals = np.zeros_like(leaving)
+        stayed = np.zeros_like(leaving)
+        retained = np.zeros(n_p + 1)
+        settled_from = np.zeros(n_p + 1)
+        group = self.regions.astype(np.int64) * (n_p + 1) + self.labels
+        key = streams.key(rng.STREAM_BARRIER)
+        for g in np.unique(group[leaving > 0]):
+            r, p = divmod(int(g), n_p + 1)
+            if r == 0:
+                continue  # no one disperses from a barrier cell: see build_model
+            inside = self.regions == r
+            src = np.where(group == g, leaving, 0.0)
+            arr, st = self._spread(src, settle & inside, streams)
+            crossed = np.where(inside, 0.0, arr)
+            surv = self.survival[r]
+            kept = (thin(crossed, surv, key, int(g), node=self.node) if self.stochastic
+                    else crossed * surv[self.node])
+            arr = np.where(inside, arr, kept)
+            arrivals += arr
+            stayed += st
+            if p > 0:
+                landed = np.where(settle, arr, 0.0)
+                settled_from[p] += landed.sum()
+                retained[p] += landed[self.labels == p].sum()
+        return Moved(arrivals, stayed, retained, settled_from)
+
+
+@pjit
+def _thin_kernel(counts, node, p_node, tables, key, group, out):
+    ny, nx = counts.shape
+    for i in prange(ny):
+        for j in range(nx):
+            c = np.int64(counts[i, j])
+            v = node[i, j]
+            out[i, j] = 0.0 if c <= 0 else rng.binomial_with_table(
+                c, p_node[v], p_node[v], tables[v], rng.cell_key(key, (group * ny + i) * nx + j))
+
+
+def thin(counts, p, key, group: int, *, node=None) -> np.ndarray:
+    """Binomial thinning of whole counts: each individual survives with probability ``p``.
+
+    ``p`` is one probability, or with ``node`` ((ny, nx) ints) one per node: cell (i, j) then
+    survives with ``p[node[i, j]]``. Cell (i, j) of group ``g`` uses
+    ``rng.cell_key(key, (g * ny + i) * nx + j)``, so different groups (e.g. the dispersers of
+    different regions) draw independent numbers.
+    """
+    d = as_field(counts, "counts")
+    if node is None:
+        node = np.zeros(d.shape, np.int64)
+        p = [p]
+    p_node = np.asarray(p, np.float64)
+    if not np.all((p_node >= 0) & (p_node <= 1)) or not all(map(math.isfinite, p_node)):
+        raise ValueError(f"thinning probabilities must be in [0, 1], got {p_node}")
+    tables = np.stack([rng.binomial_table(q) for q in p_node])
+    out = np.empty_like(d)
+    _thin_kernel(d, np.ascontiguousarray(node, np.int64), p_node, tables, np.uint64(key),
+                 np.int64(group), out)
+    return out

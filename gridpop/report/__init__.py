@@ -1,0 +1,1 @@
+"""Figures (:mod:`.plots`) and the self-contained HTML report (:mod:`.html`)."""
