@@ -47,7 +47,8 @@ def headlines(quick: bool, names) -> list[str]:
                                      for s in steps) + " of that bound")
     if "dispersal" in names:
         d = load("dispersal", quick)
-        lines.append(f"- dispersal: crossovers recorded in gridpop.movement.placement {d['recorded']} "
+        lines.append(f"- dispersal: crossovers recorded in gridpop.movement.placement "
+                     f"{d['recorded']} "
                      "(benchmarks/results/bench_dispersal.json)")
     if "memory" in names:
         m = load("memory", quick)
