@@ -4,7 +4,7 @@ Public API::
 
     scenario = gridpop.load_scenario("scenario.toml")
     gridpop.run(scenario, "results/base")
-    gridpop.compare(["base.toml", "reserve.toml"], "results/plans")
+    gridpop.analysis.compare(["base.toml", "reserve.toml"], "results/plans")
 """
 
 from ._version import __version__

@@ -6,7 +6,7 @@ template written by ``gridpop init`` (:func:`template_toml`).
 
 A scenario is parsed once into frozen dataclasses; paths are resolved relative to the scenario
 file. Values stay in the units a user thinks in (metres, hectares, years); the conversion to cells
-happens in one place, :func:`gridpop.engine.build_model`.
+happens in one place, :func:`gridpop.simulation.model.build_model`.
 """
 
 from __future__ import annotations

@@ -342,7 +342,8 @@ def patch_layout(rng_, ny=14, nx=17):
 
 def retention(d, labels, settle, k, edge, method="auto"):
     """Per patch (index 0: none), the dispersers ``d`` that settle in their own patch and that
-    settle anywhere, from :func:`gridpop.dispersal.settle_fields` (as the engine counts them)."""
+    settle anywhere, from :func:`gridpop.movement.convolution.settle_fields` (as the engine counts
+    them)."""
     f = settle_fields(labels, settle, k, edge, method=method)
     n = int(labels.max()) + 1
     own = np.bincount(labels.ravel(), weights=(d * f.own).ravel(), minlength=n)

@@ -1,4 +1,4 @@
-"""Tests for gridpop.metrics: risk, occupancy, connectivity and comparison statistics.
+"""Tests for gridpop.analysis.metrics: risk, occupancy, connectivity and comparison statistics.
 
 Worked values come from /work/shared/reference-checks.md (section numbers given below).
 """

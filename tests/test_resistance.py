@@ -1,4 +1,4 @@
-"""Tests of the walk over a permeability surface (gridpop.resistance)."""
+"""Tests of the walk over a permeability surface (gridpop.movement.walk)."""
 
 from __future__ import annotations
 

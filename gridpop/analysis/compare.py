@@ -14,8 +14,8 @@ Replicate i of every plan uses the same random numbers (common random numbers: t
 hash of seed, replicate, year, stream and cell, :mod:`gridpop.rng`), so the first plan's seed is
 used for all and differences are taken replicate by replicate: per-replicate outcomes are
 quasi-extinction by the horizon (yes/no), minimum abundance over the horizon and final abundance,
-and :func:`gridpop.metrics.paired_difference` gives a paired bootstrap interval for each, with an
-exact McNemar test for the quasi-extinction risk.
+and :func:`gridpop.analysis.metrics.paired_difference` gives a paired bootstrap interval for each,
+with an exact McNemar test for the quasi-extinction risk.
 
 Ranking: plans are ordered by risk at the horizon (lower first), then by expected minimum
 abundance (higher first). Walking down that order, a plan starts a new rank only when it is
@@ -233,10 +233,11 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
     progress : bool
         Show a progress bar per plan.
     plots : bool
-        Write the plots of each run and of the comparison (:mod:`gridpop.plots`) once the folder
-        is complete.
+        Write the plots of each run and of the comparison (:mod:`gridpop.report.plots`) once the
+        folder is complete.
     workers, scheduler, force
-        How each plan's run is carried out (:func:`gridpop.engine.run`): on a local Dask cluster
+        How each plan's run is carried out (:func:`gridpop.simulation.run.run`): on a local Dask
+        cluster
         of ``workers`` processes, on the cluster at ``scheduler``, or despite the room check.
 
     Returns

@@ -1,7 +1,7 @@
 """The summary of one run: risk, occupancy, colonisation and connectivity, from its ledger.
 
-:func:`write_summary` is called by :func:`gridpop.engine.write_results` and writes into the run
-folder:
+:func:`write_summary` is called by :func:`gridpop.simulation.results.write_results` and writes into
+the run folder:
 
 - ``summary.json``: the numbers below, the parameters as read, the plan and the cautions;
 - ``risk.csv``: the quasi-extinction risk curve of the total abundance with its intervals;
@@ -10,9 +10,9 @@ folder:
 - ``colonisation_year.tif``: per cell, the median first year occupied (nodata where fewer than
   half of the replicates ever occupy it).
 
-Definitions (the functions of :mod:`gridpop.metrics` do the arithmetic):
+Definitions (the functions of :mod:`gridpop.analysis.metrics` do the arithmetic):
 
-- Abundance is the census of the ledger (after dispersal, see :mod:`gridpop.engine`), year 0 the
+- Abundance is the census of the ledger (after dispersal, see :mod:`gridpop.simulation`), year 0 the
   initial population. A replicate is *below* the quasi-extinction threshold ``[risk]
   quasi_extinction`` in a year when its abundance is smaller than it; a patch or a focus area is
   *occupied* when its abundance is at least ``[output] occupancy_threshold``.
@@ -202,10 +202,10 @@ def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray |
     Parameters
     ----------
     scenario : gridpop.scenario.Scenario
-    model : gridpop.engine.Model
+    model : gridpop.simulation.model.Model
     ledger : (R, T + 1, P + 1, F) ndarray
         The combined ledger (index 0 the landscape, 1..P the patches; fields
-        :data:`gridpop.outputs.LEDGER_FIELDS`).
+        :data:`gridpop.io.results.LEDGER_FIELDS`).
     focus_abundance : (R, T + 1, Q) ndarray or None
         Abundance inside each focus area (:class:`FocusCensus`).
     """
@@ -250,7 +250,7 @@ def _fmt(v) -> str:
 
 
 def write_colonisation_year(path: Path, ever, replicates: int, grid, mask) -> None:
-    """Median first year occupied per cell (:func:`gridpop.metrics.median_first_year`) as a
+    """Median first year occupied per cell (:func:`gridpop.analysis.metrics.median_first_year`) as a
     single-band float32 GeoTIFF, nodata where it is not reached; read in row blocks so memory
     does not grow with the number of years."""
     steps, ny, nx = ever.shape
@@ -270,7 +270,7 @@ def write_summary(work: Path, scenario, model, ledger: np.ndarray, totals: dict,
     work : Path
         The run's working folder.
     scenario, model
-        The run's scenario and :class:`gridpop.engine.Model`.
+        The run's scenario and :class:`gridpop.simulation.model.Model`.
     ledger : (R, T + 1, P + 1, F) ndarray
         The combined ledger.
     totals : dict

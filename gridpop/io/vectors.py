@@ -222,8 +222,8 @@ def read_cells(path: Path, grid: Grid, *, file: Path, section: str, key: str,
     ScenarioError
         ``buffer_m`` given with a raster.
     InputDataError
-        Unreadable layer, no CRS (see :func:`gridpop.landscape.align_raster` and
-        :func:`gridpop.landscape.rasterize_vector`).
+        Unreadable layer, no CRS (see :func:`gridpop.io.rasters.align_raster` and
+        :func:`gridpop.io.vectors.rasterize_vector`).
     """
     path = Path(path)
     raster = is_raster(path)

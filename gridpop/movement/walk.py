@@ -1,7 +1,7 @@
 """Dispersal by a walk over a permeability surface: the resistance engine.
 
 A disperser does not jump: it walks from cell to cell, so roads, rivers and open farmland stop or
-kill it and hedgerows lead it. The engine mirrors the kernel engine of :mod:`gridpop.dispersal`
+kill it and hedgerows lead it. The engine mirrors the kernel engine of :mod:`gridpop.movement`
 (``dispersers -> arrivals, stayed, retained``) and adds a fourth output, the flow map ``visits``.
 
 Surfaces

@@ -1,7 +1,8 @@
 """A self-contained HTML report of a RUN or COMPARE folder, for a planner to share.
 
 :func:`write_report` writes one HTML file: the question, the plans, the results table, the
-figures (drawn by :mod:`gridpop.plots`, embedded as base64 PNG data), the parameters as read, the
+figures (drawn by :mod:`gridpop.report.plots`, embedded as base64 PNG data), the parameters as
+read, the
 model's assumptions and limitations and the cautions. Styles are inline and nothing is fetched
 from elsewhere, so the file reads the same offline and as an e-mail attachment. Every piece of
 text taken from the results is HTML-escaped.

@@ -1,6 +1,7 @@
 """Running batches of replicates on a Dask cluster (``dask.distributed``).
 
-The unit of work is one batch of replicates (:func:`gridpop.engine.batches`). A task receives the
+The unit of work is one batch of replicates (:func:`gridpop.simulation.batches`). A task receives
+the
 model (broadcast to every worker once), a batch index and the run's working folder; it writes the
 batch folder there and returns only the index. Large per-year accumulators never travel through
 the scheduler, so the working folder must be on a filesystem that every worker and the client see
@@ -10,7 +11,8 @@ of workers or on the order in which batches finish.
 
 A worker that dies mid-batch leaves only a temporary folder behind; Dask reruns the task on a live
 worker, which writes a fresh temporary folder and renames it into place. A batch index is placed
-at most once (:func:`gridpop.engine.run_checkpointed_batch`), so no batch is counted twice.
+at most once (:func:`gridpop.simulation.batches.run_checkpointed_batch`), so no batch is counted
+twice.
 """
 
 from __future__ import annotations
@@ -89,7 +91,7 @@ def run_batches(client, model, todo: list[tuple[int, range]], work: Path, progre
     Parameters
     ----------
     client : distributed.Client
-    model : gridpop.engine.Model
+    model : gridpop.simulation.model.Model
         Sent to every worker once.
     todo : list of (batch index, replicates)
     work : Path

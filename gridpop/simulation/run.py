@@ -1,25 +1,10 @@
-"""The yearly cycle over replicates, its accumulators, and a whole run.
+"""A whole run: the model built, its batches of replicates run (in-process or on Dask) and
+checkpointed, combined and written, and the output folder published when complete.
 
-Order of the steps from census year t to census year t+1 (one replicate):
-
-1. **Environment**: this year's deviation of the log growth multiplier, a spatially correlated
-   field, AR(1) in time (:class:`gridpop.demography.EnvironmentalNoise`).
-2. **Habitat and disturbance**: the capacity of the year (restoration, habitat loss); fires and
-   floods drawn for this replicate-year kill individuals (density-independent) and reduce
-   capacity, which then recovers (:mod:`gridpop.disturbance`).
-3. **Growth**: survival and births with density dependence against the cell's capacity of the
-   year (:mod:`gridpop.demography`).
-4. **Dispersal**: a fraction of the individuals leaves its cell and settles by kernel; those that
-   land outside habitat or off the grid are lost (:mod:`gridpop.dispersal`).
-5. **Census** at year t+1: abundance and the ledger
-   ``N(t+1) = N(t) + births - deaths - disturbance_deaths + immigrants - emigrants``.
-
-So abundance is counted after dispersal, before the next year's disturbance: a post-dispersal,
-pre-breeding census.
-
-The unit of work is a *batch* of replicates. A batch writes its per-year per-cell sums and its
-ledger into its own folder of the run's working folder; the run combines batches in index order,
-so results do not depend on how batches were scheduled.
+The yearly cycle itself is :mod:`gridpop.simulation.cycle`. The unit of work is a *batch* of
+replicates (:mod:`gridpop.simulation.batches`). A batch writes its per-year per-cell sums and
+its ledger into its own folder of the run's working folder; the run combines batches in index
+order, so results do not depend on how batches were scheduled.
 """
 
 from __future__ import annotations
@@ -55,7 +40,7 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
     """Run a scenario and write its results to ``out_dir``; return the output folder.
 
     Batches of replicates are checkpointed in the working folder beside ``out_dir``
-    (:func:`gridpop.outputs.working_folder`) and combined in batch order when all are done, so
+    (:func:`gridpop.io.results.working_folder`) and combined in batch order when all are done, so
     results are the same in-process, on any number of Dask workers and after a resume.
 
     Parameters
@@ -70,7 +55,7 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
         Run the batches on a new local Dask cluster of this many worker processes.
     scheduler : str, optional
         Run the batches on the Dask cluster at this address; the output folder must then be on
-        a filesystem its workers share (:mod:`gridpop.distributed`).
+        a filesystem its workers share (:mod:`gridpop.simulation.distributed`).
     resume : bool
         Continue the interrupted run of ``out_dir``, keeping the batches it finished. Refused
         when the scenario file, its parameters or the gridpop version differ.
