@@ -386,7 +386,7 @@ class Regime:
     """
 
     notes: tuple[str, ...]
-    tables: tuple[_Table, ...]
+    tables: tuple[_Fire | _Flood, ...]
     labels: np.ndarray  # flat int32 patch labels
     n_patches: int
     shape: tuple[int, int]
@@ -433,7 +433,7 @@ class Regime:
             if st.since is not None:
                 st.since[st.since >= 0] += 1
             event_of, count = table.footprint(seed, replicate, year, index)
-            if count:
+            if count and event_of is not None:
                 hit = np.flatnonzero(event_of)
                 d = np.empty(hit.size)
                 key = _table_key(seed, replicate, year, rng.STREAM_DISTURBANCE_MORTALITY, index)
@@ -468,7 +468,7 @@ class Regime:
         dead = np.bincount(ids, weights=deaths, minlength=count + 1)
         labels = self.labels[hit].astype(np.int64)
         pairs = np.unique(ids.astype(np.int64) * (self.n_patches + 1) + labels)
-        patches = {e: [] for e in range(1, count + 1)}
+        patches: dict[int, list[str]] = {e: [] for e in range(1, count + 1)}
         for pair in pairs:
             e, p = divmod(int(pair), self.n_patches + 1)
             if p:
@@ -555,7 +555,8 @@ def _flood(c, landscape: Landscape, file) -> tuple[_Flood, list[str]]:
              f"patch"]
     zones = terrain = stages = None
     if c.zone is not None:
-        zones, union = [], np.zeros(grid.shape, bool)
+        zone_cells: list[np.ndarray] = []
+        union = np.zeros(grid.shape, bool)
         for t, path in zip(periods, c.zone, strict=True):
             cells, how, _ = read_cells(path, grid, file=file, section=c.label, key="zone")
             cells &= mask
@@ -564,10 +565,10 @@ def _flood(c, landscape: Landscape, file) -> tuple[_Flood, list[str]]:
                 extra = (f"; does not contain {int((union & ~cells).sum())} cells of the "
                          f"smaller zones, which flood too")
             union = union | cells
-            zones.append(union.ravel())
+            zone_cells.append(union.ravel())
             notes.append(f"[{c.label}] zone {t:g} years: {int(union.sum())} cells "
                          f"({union.sum() * ha:.6g} ha) in the study area{extra}; {how}")
-        zones = tuple(zones)
+        zones = tuple(zone_cells)
     else:
         layer = align_raster(c.terrain, grid, kind="continuous", file=file, section=c.label,
                              key="terrain")
@@ -604,8 +605,10 @@ def build_regime(scenario, landscape: Landscape, actions=None) -> Regime | None:
     configs = scenario.extra.get("disturbance", ())
     if not configs:
         return None
-    tables, notes = [], []
+    tables: list[_Fire | _Flood] = []
+    notes: list[str] = []
     for c in configs:
+        table: _Fire | _Flood
         if c.kind == "fire":
             table, lines = _fire(c, landscape, actions, scenario.path)
         else:

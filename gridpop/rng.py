@@ -185,6 +185,8 @@ def poisson(lam, ckey):
     log_invalpha = math.log(1.1239 + 1.1328 / (b - 3.4))
     vr = 0.9277 - 3.6224 / (b - 2.0)
     m = 0
+    # same loop shape as the binomial sampler below: two transformed-rejection algorithms
+    # (PTRS, BTRS) with different constants and acceptance tests, kept apart for clarity
     while True:
         u = uniform(ckey, 2 * m) - 0.5
         v = uniform(ckey, 2 * m + 1)
@@ -331,6 +333,7 @@ def _binomial_low(n, p, ckey):
     mode = math.floor((n + 1) * p)
     h_mode = math.lgamma(mode + 1.0) + math.lgamma(n - mode + 1.0)
     m = 0
+    # same loop shape as the Poisson sampler above (see there): a different algorithm
     while True:
         u = uniform(ckey, 2 * m) - 0.5
         v = uniform(ckey, 2 * m + 1)

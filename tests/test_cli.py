@@ -42,6 +42,7 @@ def run_cli(*args):
     return main([str(a) for a in args])
 
 
+@pytest.mark.slow
 def test_run_writes_aligned_stacks_and_complete_manifest(make_scenario, tmp_path, capsys):
     """GeoTIFF round trip through rasterio (GDAL): CRS and transform of every stack equal the
     template's, one band per year (Gillies et al., rasterio, reading back what GDAL wrote)."""

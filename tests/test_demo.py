@@ -175,6 +175,7 @@ def corridors(gen):
     return {name: Corridor(name, gen) for name in CORRIDORS}
 
 
+@pytest.mark.slow
 def test_brook_corridor_carries_more_flow_across_the_road(corridors):
     """Issue 7, demo check (deterministic): with the reserve and the corridor west of the road at
     capacity, the expected walk of one year's dispersers (fraction x K) sends far more
@@ -193,6 +194,7 @@ def test_brook_corridor_carries_more_flow_across_the_road(corridors):
     assert brook[1] > 10 * straight[1]
 
 
+@pytest.mark.slow
 def test_brook_corridor_links_the_blocks_over_generations(corridors):
     """Issue 7, demo check (deterministic): the corridor as stepping stones. Connectivity between
     the reserve, stretches of the corridor and the east block is the probability that a
@@ -223,6 +225,7 @@ def test_brook_corridor_links_the_blocks_over_generations(corridors):
     assert weakest["corridor_straight"] < 0.1 * weakest["corridor_brook"]
 
 
+@pytest.mark.slow
 def test_short_run_brook_corridor_colonises_the_east_block_more_often(tmp_path):
     """Issue 7, demo check (stochastic, short): 12 paired replicates of 30 years of the two
     corridor plans. The full comparison (100 replicates, 40 years) has the east block colonised

@@ -45,6 +45,7 @@ def cluster():
             yield lc, client
 
 
+@pytest.mark.slow
 def test_in_process_one_and_two_workers_identical(make_scenario, tmp_path, cluster):
     """Counter-based random numbers (Salmon et al. 2011, Proc. SC'11) make a replicate's numbers
     depend on (seed, replicate) only, and batches are combined in index order, so the split of
@@ -62,6 +63,7 @@ def test_in_process_one_and_two_workers_identical(make_scenario, tmp_path, clust
     assert two["mode"] == "scheduler"
 
 
+@pytest.mark.slow
 def test_worker_killed_mid_batch_is_retried_and_counted_once(make_scenario, tmp_path, cluster):
     """A worker process killed (SIGKILL) while it writes a batch: Dask reruns the task on a live
     worker (the scheduler's task retry on worker loss; Rocklin 2015, Proc. SciPy, "Dask"), the
@@ -101,6 +103,7 @@ def test_worker_killed_mid_batch_is_retried_and_counted_once(make_scenario, tmp_
     assert_same_outputs(tmp_path / "local", out)
 
 
+@pytest.mark.slow
 def test_unreachable_scheduler_clear_error_in_bounded_time(make_scenario, tmp_path, capsys,
                                                            monkeypatch):
     """Nothing listens on port 1 of loopback: the connection is refused and retried until the
@@ -133,6 +136,7 @@ def test_bad_execution_options_refused(make_scenario, tmp_path, capsys):
     assert not (tmp_path / "r").exists() and not (tmp_path / ".r.partial").exists()
 
 
+@pytest.mark.slow
 def test_compare_on_cluster_same_as_in_process(make_scenario, tmp_path, cluster):
     """``gridpop compare --scheduler``: each plan's run goes to the cluster; the comparison files
     are the same as in-process (same reasoning as above: Salmon et al. 2011, Proc. SC'11)."""

@@ -81,6 +81,7 @@ mortality = 0.5
 
 
 @pytest.mark.parametrize("t, years, expected", [(100, 30, 0.2602996266), (50, 25, 0.3965352702)])
+@pytest.mark.slow
 def test_flood_at_least_one_t_year_event_in_n_years(tmp_path, t, years, expected):
     """P(at least one T-year flood in n years) = 1 - (1 - 1/T)^n.
 

@@ -66,6 +66,7 @@ def test_ledger_identity_landscape_and_patches(make_scenario, tmp_path, stochast
 
 
 @pytest.mark.parametrize("stochastic, kernel", [(True, "exponential"), (False, "gaussian")])
+@pytest.mark.slow
 def test_same_seed_bit_identical_whatever_threads_and_batches(make_scenario, tmp_path, stochastic,
                                                               kernel):
     """Counter-based random numbers (Salmon et al. 2011, SC'11): any split of the work gives the

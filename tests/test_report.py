@@ -139,6 +139,7 @@ def test_fmt(value, text):
     assert fmt(value) == text
 
 
+@pytest.mark.slow
 def test_cli_report(compare_dir, tmp_path, capsys):
     """`gridpop report DIR [--out FILE]`: exit 0 and the file; exit 2 with the folder named
     when DIR is not a result folder (common practice for command lines)."""
@@ -161,6 +162,7 @@ PROBE = """<img src="data:image/png;base64,AAAA" alt="broken on purpose">
 </body>"""
 
 
+@pytest.mark.slow
 def test_report_opens_in_headless_browser(compare_dir, tmp_path):
     """The report opens in a real browser (Debian's chromium, headless) and all its images
     load: a probe counts the images with naturalWidth > 0 after the load event. One broken

@@ -11,6 +11,7 @@ import subprocess
 import sys
 import time
 
+import pytest
 import rasterio
 from conftest import scenario_text as shared_scenario
 
@@ -64,6 +65,7 @@ def fail_on_call(monkeypatch, owner, name, call):
     monkeypatch.setattr(owner, name, failing)
 
 
+@pytest.mark.slow
 def test_sigkill_part_way_then_resume_identical(make_scenario, tmp_path):
     """A ``gridpop run`` process killed with SIGKILL after some batches: ``--resume`` keeps the
     finished batches, runs the rest and gives the same files as an uninterrupted run with the

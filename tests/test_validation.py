@@ -6,6 +6,7 @@ import json
 import math
 
 import numpy as np
+import pytest
 
 import gridpop
 from gridpop.analysis.metrics import quasi_extinction_diffusion
@@ -41,6 +42,7 @@ patches_csv = false
 """
 
 
+@pytest.mark.slow
 def test_quasi_extinction_matches_diffusion_approximation(make_raster, tmp_path):
     """Density-independent growth with environmental noise and no dispersal: ln N is a random
     walk with drift mu = r = 0.02 and sd sigma = 0.2 per year, N0 = 500, Nq = 50. The simulated

@@ -71,7 +71,7 @@ def prepare_plans(scenarios: list) -> tuple[list, list[str]]:
         raise ScenarioError("compare needs at least two scenario files (the first is the "
                             f"baseline); got {len(scenarios)}.")
     first = scenarios[0]
-    names = {}
+    names: dict[str, str] = {}
     for s in scenarios:
         if s.path.stem in names:
             raise ScenarioError(f"{names[s.path.stem]} and {s.path}: plans are named after "

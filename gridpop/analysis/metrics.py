@@ -451,6 +451,7 @@ def _difference_summary(diff, boot, alpha):
             "distinguishable": bool(lo > 0 or hi < 0)}
 
 
+# n_boot, confidence and seed are documented in each public function (numpydoc), as above
 def paired_difference(a, b, n_boot=2000, confidence=0.95, seed=0):
     """Difference ``b - a`` between two scenarios run on the same replicate seeds.
 

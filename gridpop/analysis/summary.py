@@ -32,8 +32,10 @@ from __future__ import annotations
 import csv
 import dataclasses
 import json
+from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import rasterio.features
@@ -183,7 +185,8 @@ def _capacity(scenario, model, notes: list[str]) -> dict | None:
 def parameters(scenario) -> dict:
     """The scenario as read: every section, then the ``[[disturbance]]`` and ``[[action]]``
     tables as lists; paths as absolute path strings."""
-    out = {name: dataclasses.asdict(getattr(scenario, name)) for name in SECTIONS}
+    out: dict[str, Any] = {name: dataclasses.asdict(getattr(scenario, name))
+                           for name in SECTIONS}
     for name in ARRAY_SECTIONS:
         out[name] = [dataclasses.asdict(c) for c in scenario.extra.get(name, ())]
     return json.loads(json.dumps(out, default=str))
@@ -294,7 +297,7 @@ def write_summary(work: Path, scenario, model, ledger: np.ndarray, totals: dict,
             "below_now_hi")
     _write_csv(work / "risk.csv", ("year",) + keys,
                ([t] + [_fmt(r[k][t]) for k in keys] for t in r["year"]))
-    rows = []
+    rows: Iterable[list] = []
     if model.census.n_patches:
         patch_n = ledger[:, :, 1:, ABUNDANCE]
         threshold = scenario.output.occupancy_threshold

@@ -6,7 +6,9 @@ vector file.
 from __future__ import annotations
 
 import warnings
+from collections.abc import Iterable
 from pathlib import Path
+from typing import Any
 
 import geopandas as gpd
 import numpy as np
@@ -92,6 +94,9 @@ def rasterize_vector(path: Path, grid: Grid, *, file: Path, section: str, key: s
     if buffer_m is not None:
         geoms = geoms.buffer(buffer_m / metres_per_unit(grid.crs))
         how += f", buffered by {buffer_m:g} m"
+    shapes: Iterable[tuple[Any, float]]
+    fill: float
+    dtype: type[np.generic]
     if attribute is None:
         shapes, fill, dtype = ((g, 1) for g in geoms), 0, np.uint8
     else:

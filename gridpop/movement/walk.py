@@ -472,13 +472,13 @@ def propagate(dispersers: np.ndarray, surf: WalkSurfaces, turn: np.ndarray, walk
         invz = np.empty(shape + (turn.shape[0],))
         _inv_norm(surf.perm, turn, invz)
         arrivals, visits, lost = np.zeros(shape), np.zeros(shape), np.zeros(shape)
-        g = np.empty(shape + (1,))  # no direction before the first step
+        g: np.ndarray = np.empty(shape + (1,))  # no direction before the first step
         _det_start(dispersers, invz, g, lost)
         g_next = np.empty(shape + (layers,))
         for t in range(walk_length):
             _det_step(g, surf.perm, surf.settle, surf.surv1, surf.surv2, turn, invz,
                       t == walk_length - 1, g_next, arrivals, visits, lost)
-            if g.shape[2] != layers:
+            if g.shape[-1] != layers:
                 g = np.empty_like(g_next)
             g, g_next = g_next, g
     finally:

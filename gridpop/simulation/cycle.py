@@ -32,6 +32,7 @@ import numpy as np
 
 from .._jit import njit, pjit, prange
 from ..demography import grow_row
+from ..disturbance import YearEffects
 from ..io.results import LEDGER_FIELDS
 from ..movement import NO_RETENTION
 from ..movement.emigration import leaving_row_deterministic, leaving_row_stochastic
@@ -224,7 +225,7 @@ class Replicate:
         self._work: dict[str, np.ndarray] = {}  # the mover's scratch arrays, reused
         self._env_state = None
         self._dist_state = model.regime.start() if model.regime is not None else None
-        self.effects = None  # the last year's disturbance effects
+        self.effects: YearEffects | None = None  # the last year's disturbance effects
         self.visits = np.zeros(shape) if model.walk is not None else None  # the year's flow
 
     def start(self, sink: BatchSink) -> None:
@@ -241,11 +242,11 @@ class Replicate:
                                                      self._env_state)
         k = m.actions.capacity_for_year(year)
         if m.regime is not None:
-            self.effects = m.regime.apply(self._dist_state, self.n, k, seed=seed,
-                                          replicate=self.replicate, year=year,
-                                          stochastic=m.growth.stochastic)
-            dist_deaths = self.effects.deaths
-            k = self.effects.capacity
+            effects = self.effects = m.regime.apply(self._dist_state, self.n, k, seed=seed,
+                                                    replicate=self.replicate, year=year,
+                                                    stochastic=m.growth.stochastic)
+            dist_deaths = effects.deaths
+            k = effects.capacity
         movement = m.movement
         retention = movement.mover.retention(k) if movement is not None else NO_RETENTION
         counted = retention.own.shape[0] > 0  # the growth pass counts the retention
@@ -273,6 +274,7 @@ class Replicate:
             stay, retained, settled_from = g.stayed[0], g.retained.copy(), g.settled_from.copy()
             retained[0] = settled_from[0] = 0.0
         else:
+            assert moved.retained is not None and moved.settled_from is not None
             stay, retained, settled_from = s.stayed[0], moved.retained, moved.settled_from
         out_p, in_p = g.emigrants, s.settled
         row[:, F_EMIG] = out_p - retained
@@ -295,7 +297,7 @@ class Replicate:
         row[:, F_OCC] = s.occupied
         if self.visits is not None and t > 0:
             sink.acc["visits"][t] += self.visits
-        if c.focus is not None:
+        if c.focus is not None and sink.focus is not None:
             c.focus.record(sink.focus[self.replicate - sink.replicates.start, t], self.n)
         eff = self.effects
         if t > 0 and eff is not None:

@@ -7,6 +7,7 @@ from __future__ import annotations
 import csv
 import json
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -20,7 +21,7 @@ from .model import Model
 def combine(work: Path, model: Model, parts: list[Path]) -> dict[str, np.ndarray]:
     """Add the batches' accumulators in batch order into memory-mapped totals."""
     shape = (model.plan.years + 1, *model.capacity.shape)
-    totals = {}
+    totals: dict[str, np.ndarray] = {}
     for name, dt in model.accumulators.items():
         total = np.lib.format.open_memmap(work / f"total_{name}.npy", mode="w+", dtype=dt,
                                           shape=shape)
@@ -54,9 +55,9 @@ def stacks_written(scenario, model: Model) -> dict[str, str]:
 def _blocks(model: Model) -> list[tuple[str, np.ndarray]]:
     """The two areas a corridor joins: the first two [risk] focus_areas, else patches 1 and 2."""
     shape = model.capacity.shape
-    if model.census.focus is not None and len(model.census.focus.names) >= 2:
+    focus = model.census.focus
+    if focus is not None and len(focus.names) >= 2:
         out = []
-        focus = model.census.focus
         for name, idx in list(zip(focus.names, focus.cells, strict=True))[:2]:
             mask = np.zeros(shape, bool)
             mask.ravel()[idx] = True
@@ -72,7 +73,8 @@ def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
     walk on the year-0 landscape, start cells weighted by capacity) and connectivity.json (the
     same matrix and, per corridor action, its share of the walkers' visits over the run and of
     the one-year flow between patches 1 and 2, see :func:`resistance.corridor_share`)."""
-    conn = model.connectivity
+    conn, w = model.connectivity, model.walk
+    assert w is not None and conn is not None  # the walk method writes connectivity
     with open(work / "connectivity.csv", "w", newline="") as fh:
         out = csv.writer(fh)
         out.writerow(["from_patch", "to_patch", "probability"])
@@ -83,13 +85,12 @@ def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
     for t in range(1, model.plan.years + 1):
         total += visits[t]
     everywhere = float(total.sum())
-    w = model.walk
     corridors = {}
     for cfg, cells in zip(scenario.extra.get("action", ()), model.actions.areas, strict=True):
         if cfg.kind != "corridor":
             continue
-        entry = {"share_of_visits": float(total[cells].sum()) / everywhere if everywhere
-                 else None}
+        of_visits = float(total[cells].sum()) / everywhere if everywhere else None
+        entry: dict[str, Any] = {"share_of_visits": of_visits}
         blocks = _blocks(model)
         for (name_a, a), (name_b, b) in ((blocks[0], blocks[1]), (blocks[1], blocks[0])) \
                 if len(blocks) == 2 else ():

@@ -92,6 +92,7 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
     if not force:
         check_room(fp, work, workers=workers, scheduler=scheduler,
                    finished=len(finished) / len(plan))
+    cluster: contextlib.AbstractContextManager
     if local:
         cluster = contextlib.nullcontext()
     else:
