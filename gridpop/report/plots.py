@@ -29,6 +29,7 @@ import math
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import geopandas as gpd
 import matplotlib.patheffects as pe
@@ -36,6 +37,7 @@ import numpy as np
 import pyproj
 import rasterio
 import rasterio.plot
+from matplotlib.artist import Artist
 from matplotlib.colors import ListedColormap
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
@@ -53,9 +55,10 @@ OKABE_ITO = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "
 
 _DASHES = ("-", "--", "-.", ":")
 
-ACTION_STYLE = {"reserve": ("#CC79A7", "-"), "corridor": ("#D55E00", "--"),
-                "barrier": ("#000000", ":"), "restoration": ("#009E73", "-."),
-                "habitat_loss": ("#E69F00", (0, (5, 1, 1, 1))), "focus": ("#FFFFFF", "-")}
+ACTION_STYLE: dict[str, tuple[str, Any]] = {
+    "reserve": ("#CC79A7", "-"), "corridor": ("#D55E00", "--"), "barrier": ("#000000", ":"),
+    "restoration": ("#009E73", "-."), "habitat_loss": ("#E69F00", (0, (5, 1, 1, 1))),
+    "focus": ("#FFFFFF", "-")}
 """Outline colour and line style per action kind (and the focus areas) on the maps."""
 
 DPI = 110
@@ -391,10 +394,12 @@ def map_figure(panels: list[tuple[str, MapLayer, list]], *, cmap: str, vmin: flo
         add_scale_bar(ax, crs, layer.extent[1] - layer.extent[0])
     for ax in axes[len(panels):]:
         ax.set_visible(False)
+    assert image is not None  # at least one panel
     fig.colorbar(image, ax=axes[:len(panels)].tolist(), label=label, shrink=0.85)
-    handles = [Line2D([], [], color=c, linestyle=dash, linewidth=1.6, path_effects=_stroke(k),
-                      label="focus area" if k == "focus" else k.replace("_", " "))
-               for k, (c, dash) in ACTION_STYLE.items() if k in kinds]
+    handles: list[Artist] = [
+        Line2D([], [], color=c, linestyle=dash, linewidth=1.6, path_effects=_stroke(k),
+               label="focus area" if k == "focus" else k.replace("_", " "))
+        for k, (c, dash) in ACTION_STYLE.items() if k in kinds]
     if grey:
         handles.append(Patch(color=NOT_REACHED, label=no_value))
     if handles:
