@@ -9,26 +9,38 @@ from __future__ import annotations
 
 import csv
 import json
+from pathlib import Path
 
 import geopandas as gpd
 import matplotlib.image
 import numpy as np
 import pyproj
 import pytest
-from conftest import UTM, write_raster
-from shapely.geometry import LineString, Polygon, box
+from conftest import UTM, suitability_array, write_raster
+from matplotlib.colors import to_hex
+from shapely.geometry import LineString, Point, Polygon, box
 
+from gridpop import load_scenario
+from gridpop.analysis.summary import CAUTIONS as RUN_CAUTIONS
+from gridpop.analysis.summary import parameters
+from gridpop.analysis.summary import plan as plan_of
 from gridpop.errors import InputDataError
 from gridpop.io.results import LEDGER_FIELDS
 from gridpop.report.plots import (
+    ACTION_STYLE,
+    HABITAT,
+    MATRIX,
+    NOT_REACHED,
     _maps,
     abundance_figure,
+    action_outlines,
     add_scale_bar,
+    focus_outlines,
     ledger_figure,
     ledger_means,
     map_figure,
     nice_length,
-    outlines,
+    plan_cells,
     plot_compare,
     plot_run,
     read_band,
@@ -40,8 +52,18 @@ from gridpop.report.plots import (
 NY, NX, CELL = 40, 60, 30.0
 X0, Y0 = 500_000.0, 4_000_000.0  # upper-left corner of the conftest grid
 RESERVE = (X0 + 300.0, Y0 - 600.0, X0 + 900.0, Y0 - 150.0)  # a reserve rectangle in UTM 33N
-CAUTIONS = ("Fake cautions: results support decisions and do not replace field data, the "
-            "responsible agency, local regulations or licensed professional judgement.")
+CORRIDOR = ((X0 + 750, Y0 - 600), (X0 + 1200, Y0 - 900))  # a corridor centre line
+CORRIDOR_BUFFER_M = 45.0
+OUTSIDE = (slice(None, 4), slice(-6, None))  # the nodata corner of conftest.suitability_array
+ACTIONS = {
+    "barrier": 'kind = "barrier"\narea = "road.gpkg"\ncrossing_mortality = 0.9',
+    "reserve": 'kind = "reserve"\narea = "reserve.gpkg"\ncapacity_multiplier = 1.5',
+    "corridor": (f'kind = "corridor"\narea = "corridor.geojson"\nbuffer_m = {CORRIDOR_BUFFER_M}'
+                 '\ntarget_suitability = 0.8\nresistance_multiplier = 0.5'),
+    "restoration": 'kind = "restoration"\narea = "restoration.tif"\ntarget_suitability = 0.8\n'
+                   'start_year = 2\nramp_years = 4',
+}
+"""The fake plans' actions; the restoration raster covers the whole study area."""
 
 
 def _curve(n: np.ndarray, threshold: float) -> dict:
@@ -56,25 +78,73 @@ def _curve(n: np.ndarray, threshold: float) -> dict:
 
 
 def _areas(folder):
-    """A reserve polygon stored in WGS 84 longitude/latitude, a corridor line in UTM, a raster
-    area and a focus area."""
+    """A reserve polygon stored in WGS 84 longitude/latitude, a corridor line and a road line in
+    UTM, a raster area covering the grid and two focus areas."""
     to_ll = pyproj.Transformer.from_crs(UTM, "EPSG:4326", always_xy=True)
     x0, y0, x1, y1 = RESERVE
     corners = [to_ll.transform(x, y) for x, y in ((x0, y0), (x1, y0), (x1, y1), (x0, y1))]
-    reserve = folder / "reserve.gpkg"
-    gpd.GeoDataFrame(geometry=[Polygon(corners)], crs="EPSG:4326").to_file(reserve)
-    corridor = folder / "corridor.geojson"
-    gpd.GeoDataFrame(geometry=[LineString([(X0 + 750, Y0 - 600), (X0 + 1200, Y0 - 900)])],
-                     crs=UTM).to_file(corridor)
-    restoration = write_raster(folder / "restoration.tif", np.ones((NY, NX)))
+    gpd.GeoDataFrame(geometry=[Polygon(corners)], crs="EPSG:4326").to_file(folder / "reserve.gpkg")
+    gpd.GeoDataFrame(geometry=[LineString(CORRIDOR)], crs=UTM).to_file(folder / "corridor.geojson")
+    gpd.GeoDataFrame(geometry=[LineString([(X0 + 1005, Y0), (X0 + 1005, Y0 - NY * CELL)])],
+                     crs=UTM).to_file(folder / "road.gpkg")
+    write_raster(folder / "restoration.tif", np.ones((NY, NX)))
     targets = folder / "focus_areas.gpkg"
-    gpd.GeoDataFrame({"name": ["east"]}, geometry=[box(X0 + 1200, Y0 - 1100, X0 + 1600,
-                                                       Y0 - 700)], crs=UTM).to_file(targets)
-    return reserve, corridor, restoration, targets
+    gpd.GeoDataFrame({"name": ["east", "west"]},
+                     geometry=[box(X0 + 1200, Y0 - 1100, X0 + 1600, Y0 - 700),
+                               box(X0 + 150, Y0 - 1050, X0 + 600, Y0 - 750)],
+                     crs=UTM).to_file(targets)
+    return targets
 
 
-def make_run(folder, name, *, years=12, replicates=8, seed=0, growth=0.0, actions=True):
-    """Write a fake RUN folder (the files of the contract) and return it."""
+def write_scenario(folder, name, *, rate=0.35, actions=(), method="kernel", stochastic=True,
+                   fire=True, env_sd=0.0) -> Path:
+    """A scenario on the conftest suitability raster with the given ``actions`` (keys of
+    :data:`ACTIONS`), written into ``folder`` as ``<name>.toml``."""
+    write_raster(folder / "suitability.tif", suitability_array())
+    dispersal = ('method = "walk"\nwalk_length = 20\ndeath_per_resistance = 0.01\n'
+                 'heading_bias = 1.0' if method == "walk" else
+                 'kernel = "exponential"\nmean_distance_m = 300.0')
+    text = f"""[run]
+years = 12
+replicates = 8
+seed = 7
+
+[habitat]
+suitability = "suitability.tif"
+capacity_per_ha = 30.0
+response = "threshold"
+threshold = 0.3
+
+[growth]
+model = "beverton-holt"
+rate = {rate}
+stochastic = {"true" if stochastic else "false"}
+env_sd = {env_sd}
+
+[dispersal]
+fraction = 0.3
+{dispersal}
+
+[risk]
+quasi_extinction = 50.0
+focus_areas = "focus_areas.gpkg"
+
+[plan]
+description = "question <of> plan {name} & more"
+"""
+    if fire:
+        text += ('\n[[disturbance]]\nkind = "fire"\nreturn_interval_years = 25.0\n'
+                 'mortality = 0.5\n')
+    text += "".join(f"\n[[action]]\n{ACTIONS[a]}\n" for a in actions)
+    path = folder / f"{name}.toml"
+    path.write_text(text)
+    return path
+
+
+def make_run(folder, name, *, years=12, replicates=8, seed=0, growth=0.0,
+             actions=("barrier", "reserve", "corridor", "restoration"), **scenario):
+    """Write a fake RUN folder (the files of the contract, with a real scenario file whose
+    parameters summary.json holds) and return it."""
     folder.mkdir(parents=True)
     rng = np.random.default_rng(seed)
     r, t = replicates, years + 1
@@ -95,48 +165,52 @@ def make_run(folder, name, *, years=12, replicates=8, seed=0, growth=0.0, action
                             int(dist[i, k]), int(emig[i, k]), int(imm[i, k]),
                             int(emig[i, k] - imm[i, k]), 10])
     occ = rng.random((t, NY, NX)) * np.linspace(0, 1, NX)
-    occ[:, :3, -5:] = -9999.0  # outside the study area
+    occ[:, :, :NX // 6] = 0.0  # occupied in no replicate: habitat and matrix
+    occ[(slice(None), *OUTSIDE)] = -9999.0  # outside the study area
     write_raster(folder / "occupancy.tif", occ)
     first = np.where(occ[-1] > 0.3, np.floor(occ[-1] * years), -9999.0)
-    first[:3, -5:] = -9999.0
     write_raster(folder / "colonisation_year.tif", first)
-    reserve, corridor, restoration, targets = _areas(folder)
-    plan_actions = [{"kind": "reserve", "area": str(reserve)},
-                    {"kind": "corridor", "area": str(corridor)},
-                    {"kind": "restoration", "area": str(restoration)}] if actions else []
+    targets = _areas(folder)
+    path = write_scenario(folder, name, rate=0.35 + growth / 100, actions=actions, **scenario)
+    loaded = load_scenario(path)
+    west = np.zeros((r, t))  # the west focus area starts empty and is colonised
     summary = {
         "quasi_extinction": 50.0, "replicates": r, "years": years, "confidence": 0.95,
-        "risk": _curve(n, 50.0), "focus_risk": {"east": _curve(n / 4, 10.0)},
+        "occupancy_threshold": 1.0,
+        "risk": _curve(n, 50.0), "focus_risk": {"east": _curve(n / 4, 10.0),
+                                                "west": _curve(west, 10.0)},
         "expected_minimum": {"estimate": 41.5, "lo": 30.25, "hi": 52.75},
         "final_abundance": {"mean": 70.5, "p5": 10.0, "p25": 40.0, "p50": 66.0, "p75": 90.0,
                             "p95": 130.0},
         "occupied_patches": {"year": list(range(t)), "mean": [3.0] * (t - 1) + [2.5]},
         "colonisation": {"east": {"year": list(range(t)),
-                                  "probability": np.linspace(0, 0.625, t).tolist()}},
+                                  "probability": np.linspace(0, 0.625, t).tolist()},
+                         "west": {"year": list(range(t)),
+                                  "probability": (np.arange(t) * 2 // 3 / r).clip(0, 1).tolist()}},
         "metapopulation_capacity": {"lambda_M": 12.75, "contribution": [0.5, 0.25, 0.25],
                                     "removal_drop": [6.0, 2.0, 2.0]},
-        "parameters": {"run": {"years": years, "replicates": r, "seed": 7},
-                       "growth": {"model": "beverton-holt", "rate": 0.35 + growth / 100},
-                       "dispersal": {"kernel": "exponential", "mean_distance_m": 300.0},
-                       "disturbance": [{"kind": "fire", "return_interval": 25.0}],
-                       "action": plan_actions},
-        "plan": {"name": name, "description": f"question <of> plan {name} & more",
-                 "actions": plan_actions},
-        "focus_areas": {"file": str(targets), "name_field": "name", "names": ["east"]},
-        "cautions": CAUTIONS, "notes": ["fake note <b>"],
+        "parameters": parameters(loaded), "plan": plan_of(loaded),
+        "focus_areas": {"file": str(targets), "name_field": "name", "names": ["east", "west"]},
+        "cautions": RUN_CAUTIONS, "notes": ["fake note <b>"],
     }
     (folder / "summary.json").write_text(json.dumps(summary))
     (folder / "run.json").write_text(json.dumps({
-        "gridpop_version": "0.1.0", "scenario": f"/plans/{name}.toml", "seed": 7,
-        "years": years, "replicates": r, "stochastic": True, "complete": True}))
+        "gridpop_version": "0.1.0", "scenario": str(path), "scenario_sha256": loaded.sha256,
+        "seed": 7, "years": years, "replicates": r, "stochastic": True, "complete": True}))
     return folder
+
+
+PLAN_ACTIONS = {"base": ("barrier",), "corridor": ("barrier", "reserve", "corridor",
+                                                   "restoration"),
+                "reserve": ("barrier", "reserve")}
+"""The fake comparison's plans: the barrier is in every plan, the rest tells them apart."""
 
 
 def make_compare(folder, names=("base", "corridor", "reserve")):
     """Write a fake COMPARE folder: one fake run per plan, the table, difference maps."""
     folder.mkdir()
     for i, name in enumerate(names):
-        make_run(folder / name, name, seed=i, growth=2.0 * i, actions=i > 0)
+        make_run(folder / name, name, seed=i, growth=2.0 * i, actions=PLAN_ACTIONS[name])
     base = read_band(folder / names[0] / "occupancy.tif").values
     rows = []
     for i, name in enumerate(names):
@@ -157,8 +231,8 @@ def make_compare(folder, names=("base", "corridor", "reserve")):
         "paired": "Replicates are paired by common random numbers (seed 7).",
         "ranking": "Ordered by risk at the horizon.", "notes": [], "plans": rows}))
     (folder / "compare.json").write_text(json.dumps({
-        "plans": [{"name": n, "folder": n, "scenario": f"/plans/{n}.toml"} for n in names],
-        "complete": True}))
+        "plans": [{"name": n, "folder": n, "scenario": str(folder / n / f"{n}.toml")}
+                  for n in names], "complete": True}))
     return folder
 
 
@@ -197,8 +271,8 @@ def test_plot_compare_one_risk_curve_per_plan(compare_dir):
     _, plans = read_plans(compare_dir)
     fig = risk_figure(plans)
     visible = [ax for ax in fig.axes if ax.get_visible()]
-    assert [ax.get_title() for ax in visible] == ["whole landscape", "focus area east"]
-    for ax, key in zip(visible, ("risk", "east"), strict=True):
+    assert [ax.get_title() for ax in visible][:2] == ["whole landscape", "focus area east"]
+    for ax, key in zip(visible, ("risk", "east"), strict=False):
         lines = [ln for ln in ax.get_lines() if not ln.get_label().startswith("_")]
         assert [ln.get_label() for ln in lines] == ["base", "corridor", "reserve"]
         assert len(ax.collections) == 3  # one interval band per plan
@@ -279,51 +353,163 @@ def test_maps_outline_in_grid_crs_and_scale_bar(run_dir):
     """Action areas stored in another CRS are drawn in grid coordinates: the reserve polygon
     saved in WGS 84 lies back on its UTM 33N rectangle (pyproj as reference, Snyder 1987, Map
     Projections: A Working Manual, USGS Professional Paper 1395, for the transverse Mercator);
-    the raster area is skipped; axes, title and scale bar are in metres of the grid CRS."""
+    axes, title and scale bar are in metres of the grid CRS."""
     plan = read_run(run_dir)
     layer = read_band(run_dir / "occupancy.tif")
-    areas = outlines(plan, layer.crs)
-    assert [k for k, _ in areas] == ["reserve", "corridor", "focus"]
-    x, y = areas[0][1].geometry.iloc[0].exterior.xy
-    np.testing.assert_allclose([min(x), min(y), max(x), max(y)], RESERVE, atol=1e-3)
+    lines, _ = action_outlines([plan], [plan_cells(plan)], layer)
+    areas = dict(lines[0])
+    assert list(areas) == ["barrier", "reserve", "corridor"]  # restoration: whole study area
+    np.testing.assert_allclose(areas["reserve"].total_bounds, RESERVE, atol=1e-3)
     assert layer.extent == (X0, X0 + NX * CELL, Y0 - NY * CELL, Y0)
-    fig = map_figure([("corridor", layer, areas)], cmap="viridis", vmin=0, vmax=1,
+    fig = map_figure([("corridor", layer, lines[0])], cmap="viridis", vmin=0, vmax=1,
                      label="fraction occupied", title="Occupancy")
     ax = fig.axes[0]
     assert "WGS 84 / UTM zone 33N (EPSG:32633)" in fig.get_suptitle()
     assert ax.get_xlabel() == "Easting (m)" and ax.get_ylabel() == "Northing (m)"
     assert (ax.get_xlim(), ax.get_ylim()) == ((X0, X0 + NX * CELL), (Y0 - NY * CELL, Y0))
-    drawn = np.concatenate([seg for c in ax.collections for seg in c.get_segments()])
-    assert drawn[:, 0].min() == pytest.approx(RESERVE[0], abs=1e-3)
-    assert drawn[:, 1].max() == pytest.approx(RESERVE[3], abs=1e-3)
+    pink = [c for c in ax.collections
+            if to_hex(c.get_colors()[0]) == ACTION_STYLE["reserve"][0].lower()]
+    drawn = np.concatenate([seg for c in pink for seg in c.get_segments()])
+    np.testing.assert_allclose([drawn[:, 0].min(), drawn[:, 1].min(), drawn[:, 0].max(),
+                                drawn[:, 1].max()], RESERVE, atol=1e-3)
     bars = [a for a in ax.artists if hasattr(a, "size_bar")]
     assert len(bars) == 1
     label = bars[0].txt_label.get_children()[0].get_text()
     assert label == "200 m"  # 1800 m wide map
 
 
+def test_corridor_drawn_as_its_buffered_footprint(run_dir):
+    """A corridor line with buffer_m is drawn as the cells the model gave it, not as its centre
+    line: the outline holds exactly the cells whose centre lies within buffer_m of the line
+    (the rasterising rule of the README: a cell belongs to a polygon when its centre is inside
+    it), computed here with shapely distances; that is a band several cells wide."""
+    plan = read_run(run_dir)
+    layer = read_band(run_dir / "occupancy.tif")
+    lines, _ = action_outlines([plan], [plan_cells(plan)], layer)
+    corridor = dict(lines[0])["corridor"].union_all()
+    line = LineString(CORRIDOR)
+    centres = [Point(X0 + (j + 0.5) * CELL, Y0 - (i + 0.5) * CELL)
+               for i in range(NY) for j in range(NX)]
+    expected = np.array([line.distance(c) <= CORRIDOR_BUFFER_M for c in centres])
+    inside = np.array([corridor.contains(c) for c in centres])
+    np.testing.assert_array_equal(inside, expected)
+    assert corridor.area == pytest.approx(expected.sum() * CELL * CELL)
+    assert max(line.distance(c) for c, e in zip(centres, expected, strict=True) if e) > CELL
+
+
+def _kinds(ax) -> set[str]:
+    """The outline kinds drawn on a map axis, by their colours."""
+    colours = {to_hex(c.get_colors()[0]) for c in ax.collections if len(c.get_colors())}
+    return {k for k, (colour, _) in ACTION_STYLE.items()
+            if k != "focus" and colour.lower() in colours}
+
+
+def test_maps_draw_only_actions_that_tell_plans_apart(compare_dir):
+    """In a comparison, an action with the same cells in every plan (the barrier) and one
+    covering the whole study area (the restoration raster) are not drawn; the legend text names
+    them with their files relative to the scenario. A single run draws its barrier, not its
+    whole-area restoration."""
+
+    _, plans = read_plans(compare_dir)
+    fig = dict(_maps(plans))["occupancy"]
+    drawn = [_kinds(ax) for ax in fig.axes[:3]]
+    assert drawn == [set(), {"reserve", "corridor"}, {"reserve"}]
+    title = " ".join(fig.legends[0].get_title().get_text().split())
+    assert title == ("not drawn, the same in every plan: barrier (road.gpkg); not drawn, "
+                     "covering the whole study area: restoration (restoration.tif)")
+    entries = [t.get_text() for t in fig.legends[0].get_texts()]
+    assert "barrier" not in entries and "restoration" not in entries
+    assert {"reserve", "corridor", "focus area"} <= set(entries)
+    single = dict(_maps([plans[1]]))["occupancy"]
+    assert _kinds(single.axes[0]) == {"barrier", "reserve", "corridor"}
+    assert single.legends[0].get_title().get_text() == (
+        "not drawn, covering the whole study area: restoration (restoration.tif)")
+
+
+def test_maps_show_habitat_under_empty_cells(tmp_path):
+    """Cells occupied in no replicate show the habitat of the last year apart from the matrix:
+    with the threshold response, habitat is where suitability >= 0.3 (the conftest raster); cells
+    outside the study area show nothing (common practice)."""
+
+    run = make_run(tmp_path / "r", "base", actions=("barrier",))
+    fig = dict(_maps([read_run(run)]))["occupancy"]
+    under = fig.axes[0].images[0]
+    codes = under.get_array()
+    occ = read_band(run / "occupancy.tif").values
+    empty = ~np.ma.getmaskarray(occ) & (occ.filled(1) == 0)
+    np.testing.assert_array_equal(~np.ma.getmaskarray(codes), empty)
+    suit = suitability_array()
+    np.testing.assert_array_equal(codes[empty] == 1, suit[empty] >= 0.3)
+    assert (suit[empty] >= 0.3).any() and (suit[empty] < 0.3).any()
+    assert [to_hex(under.cmap(i)) for i in (0, 255)] == [MATRIX.lower(), HABITAT.lower()]
+    entries = [t.get_text() for t in fig.legends[0].get_texts()]
+    assert {"habitat, occupied in no replicate", "matrix (no habitat)"} <= set(entries)
+    assert np.ma.getmaskarray(fig.axes[0].images[1].get_array())[empty].all()
+
+
 def test_colonisation_map_marks_unreached_cells(run_dir):
-    """Study-area cells never colonised in half of the replicates are grey and listed in the
-    legend; cells outside the study area are not (common practice)."""
+    """Study-area cells never colonised in half of the replicates show habitat or matrix and
+    are listed in the legend; cells outside the study area do not (common practice)."""
     plots = plot_run(run_dir)
     assert (run_dir / "plots" / "colonisation.png") in plots
 
     fig = dict(_maps([read_run(run_dir)]))["colonisation"]
     texts = [t.get_text() for leg in fig.legends for t in leg.get_texts()]
-    assert "not occupied in half of the replicates" in texts
-    grey = fig.axes[0].images[0].get_array()
+    assert "habitat, not occupied in half of the replicates" in texts
+    under = fig.axes[0].images[0].get_array()
     col = read_band(run_dir / "colonisation_year.tif").values
     occ = read_band(run_dir / "occupancy.tif").values
     expected = np.ma.getmaskarray(col) & ~np.ma.getmaskarray(occ)
-    np.testing.assert_array_equal(~np.ma.getmaskarray(grey), expected)
+    np.testing.assert_array_equal(~np.ma.getmaskarray(under), expected)
 
 
-def test_missing_area_file_warns(run_dir):
-    """A plan area moved away since the run is left out of the maps with a warning."""
-    (run_dir / "reserve.gpkg").unlink()
-    with pytest.warns(UserWarning, match="reserve area of plan corridor is missing"):
-        areas = outlines(read_run(run_dir), read_band(run_dir / "occupancy.tif").crs)
-    assert [k for k, _ in areas] == ["corridor", "focus"]
+def test_changed_scenario_warns_and_maps_without_habitat(run_dir):
+    """A scenario file edited since the run is not used: a warning, and the maps show cells
+    without a value in grey, with no action areas."""
+
+    scenario = run_dir / "corridor.toml"
+    scenario.write_text(scenario.read_text().replace("rate = 0.35", "rate = 0.5"))
+    with pytest.warns(UserWarning, match="corridor.toml: the scenario of plan corridor has "
+                                         "changed since the run"):
+        fig = dict(_maps([read_run(run_dir)]))["occupancy"]
+    assert _kinds(fig.axes[0]) == set()
+    assert to_hex(fig.axes[0].images[0].cmap(0)) == NOT_REACHED.lower()
+
+
+def test_missing_focus_file_warns(run_dir):
+    """Focus areas moved away since the run are left out of the maps with a warning."""
+    (run_dir / "focus_areas.gpkg").unlink()
+    with pytest.warns(UserWarning, match="focus areas of plan corridor are missing"):
+        assert focus_outlines(read_run(run_dir), read_band(run_dir / "occupancy.tif").crs) == []
+
+
+def test_risk_panel_shows_colonisation_for_focus_area_starting_below(compare_dir):
+    """A focus area below the threshold in year 0 in every replicate (west) shows its
+    colonisation probability instead of a flat risk of 1, and its title says so; its band is the
+    Wilson score interval of k colonised replicates out of n (Wilson 1927, Journal of the American
+    Statistical Association 22:209), here worked by hand for k = 2, n = 8 at 95 %. A focus area
+    that starts above (east) keeps its risk curve."""
+    _, plans = read_plans(compare_dir)
+    fig = risk_figure(plans)
+    visible = [ax for ax in fig.axes if ax.get_visible()]
+    titles = [ax.get_title() for ax in visible]
+    assert titles[1] == "focus area east"
+    assert titles[2] == ("focus area west: below 50 individuals from year 0,\n"
+                         "so shown: probability colonised by year t")
+    assert "held at least\n1 individuals" in visible[2].get_ylabel()
+    lines = [ln for ln in visible[2].get_lines() if not ln.get_label().startswith("_")]
+    for ln, p in zip(lines, plans, strict=True):
+        west = p.summary["colonisation"]["west"]["probability"]
+        np.testing.assert_array_equal(ln.get_ydata(), west)
+        assert not np.array_equal(ln.get_ydata(), p.summary["focus_risk"]["west"]["ever_below"])
+    k, n, z = 2, 8, 1.959963984540054
+    centre = (k + z * z / 2) / (n + z * z)
+    half = z / (n + z * z) * np.sqrt(k * (n - k) / n + z * z / 4)
+    year = 3  # 3 * 2 // 3 = 2 colonised replicates
+    assert plans[0].summary["colonisation"]["west"]["probability"][year] == k / n
+    band = visible[2].collections[0].get_paths()[0].vertices
+    at = np.sort(band[np.isclose(band[:, 0], year), 1])
+    np.testing.assert_allclose([at.min(), at.max()], [centre - half, centre + half], rtol=1e-9)
 
 
 def test_not_a_result_folder(tmp_path):
@@ -339,7 +525,6 @@ def test_scale_bar_in_feet():
     feet: 6000 ft = 1828.8 m wide gives 200 m = 656.17 ft (1 US survey foot = 1200/3937 m,
     NIST Handbook 44, Appendix C)."""
     from matplotlib.figure import Figure
-
 
     ax = Figure().subplots()
     ax.set_xlim(0, 6000)

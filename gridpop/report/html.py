@@ -5,7 +5,12 @@ figures (drawn by :mod:`gridpop.report.plots`, embedded as base64 PNG data), the
 read, the
 model's assumptions and limitations and the cautions. Styles are inline and nothing is fetched
 from elsewhere, so the file reads the same offline and as an e-mail attachment. Every piece of
-text taken from the results is HTML-escaped.
+text taken from the results is HTML-escaped, and file paths are written relative to their
+scenario file (no local absolute path).
+
+The assumptions are generated from each plan's parameters as read (:func:`assumptions`), so they
+describe the run as it was made: its dispersal method, growth model, stochasticity, disturbance
+and actions.
 """
 
 from __future__ import annotations
@@ -19,91 +24,47 @@ from pathlib import Path
 
 from .._version import __version__
 from ..errors import InputDataError
-from .plots import Plan, plot_compare, plot_run, read_plans
+from ..scenario import ARRAY_SECTIONS, SECTIONS
+from .assumptions import CAPACITY, CONNECTION, WALK_CAPACITY, assumptions, fmt
+from .plots import Plan, plot_compare, plot_run, read_plans, relative
 
 CAUTIONS = (
     "These results support decisions; they do not replace field data, the advice of the "
-    "responsible agency, local regulations or licensed professional judgement. A simulation is "
-    "only as good as its inputs: habitat maps, capacities, growth rates and dispersal distances "
-    "are rarely known well. Compare plans under several plausible parameter sets, and give more "
-    "weight to differences between plans (which share their random numbers) than to absolute "
-    "risks."
+    "responsible wildlife agency, local regulations or licensed professional judgement. They "
+    "are projections of a simple model under the assumptions and parameters above, and a "
+    "simulation is only as good as its inputs: habitat maps, capacities, growth rates and "
+    "dispersal distances are rarely known well. Compare plans under several plausible parameter "
+    "sets, and give more weight to differences between plans (which share their random numbers) "
+    "than to absolute risks."
 )
-"""The report's cautions, always shown (the run's own caution text follows when it differs)."""
+"""The report's cautions, shown once. They say what the cautions of summary.json say (the
+intervals' reach is in the assumptions), so those are not repeated."""
 
-ASSUMPTIONS = (
-    ("Population",
-     "One count per grid cell and nothing else: no age, stage or sex structure, no genetics; "
-     "all individuals are alike. Each cell's carrying capacity comes from its habitat "
-     "suitability through the [habitat] response, and density dependence acts within the cell."),
-    ("Yearly cycle and census",
-     "From one census to the next: environmental variation; habitat changes and disturbance; "
-     "survival and births with density dependence; dispersal; census. Abundance is counted once "
-     "a year, after dispersal and before the next year's disturbance; year 0 is the initial "
-     "population."),
-    ("Growth",
-     "The growth model of [growth] sets the expected yearly multiplier of a cell from its "
-     "abundance and capacity. With stochastic = true survivors are binomial and births Poisson "
-     "(demographic stochasticity, whole individuals); otherwise the expectations are used. "
-     "Environmental variation is a yearly deviation of the log multiplier, correlated in space "
-     "and optionally from year to year; an optional mate-finding Allee factor lowers births at "
-     "low density."),
-    ("Dispersal",
-     "Each year a fraction of the individuals of a cell (optionally rising with crowding) leaves "
-     "it and settles according to a distance kernel (gaussian, negative exponential or 2Dt), "
-     "integrated over the destination cells. Dispersers that land outside habitat, or off the "
-     "grid with an absorbing edge, are lost. The kernel does not see the landscape in between: "
-     "dispersers do not search for habitat, follow corridors or avoid barriers; corridors act "
-     "through the habitat they add."),
-    ("Randomness and paired replicates",
-     "Every random number is a hash of the seed, the replicate, the year, a stream and the cell "
-     "(a counter-based generator), so results are bit-identical whatever the number of threads "
-     "or machines. Replicate i of every plan uses the same random numbers (common random "
-     "numbers), so plans are compared replicate by replicate and their differences need far "
-     "fewer replicates than independent runs would."),
-    ("Disturbance",
-     "Fires and floods are drawn from the seed, the replicate and the year, not from the "
-     "population, so a replicate has the same events in every plan unless a plan changes the "
-     "fire regime (reserves with ignition or spread multipliers). Fires start in a patch as "
-     "Poisson events scaled so that about the patch area burns once per return interval and "
-     "spread cell to cell by percolation; floods take one return period per year for the whole "
-     "landscape and cover nested zones or the terrain below a stage. Disturbance kills a share "
-     "of the individuals of each hit cell (independent of density) and lowers its capacity, "
-     "which then recovers. Year t is the step from census t to t + 1."),
-    ("Management actions",
-     "Actions change suitability (restoration, habitat loss, corridors, on their schedules), "
-     "capacity (reserves) and fire rates (reserves), in the order given. Every plan starts from "
-     "the initial population of the base landscape."),
-    ("Intervals",
-     "Risk intervals are Wilson binomial intervals over replicates; the expected minimum "
-     "abundance has a percentile bootstrap interval over replicates; differences between plans "
-     "have paired intervals. They cover the randomness simulated only, not errors in the maps "
-     "or the parameters, which usually matter more."),
-    ("Not modelled",
-     "Age, stage or sex structure; genetics (inbreeding, loss of diversity); behaviour "
-     "(habitat choice while dispersing, movement along corridors, barrier avoidance); other "
-     "species (predators, competitors, disease); harvest and translocation; climate or land-use "
-     "trends other than the habitat changes entered as actions; uncertainty in the parameters "
-     "themselves (each run uses one parameter set); anything outside the grid."),
-)
-"""(title, text) of the section on model assumptions and limitations."""
 
 CAPTIONS = {
     "risk": "Probability that total abundance (and abundance in each focus area) has fallen "
             "below the quasi-extinction threshold by year t, per plan; the band is the "
-            "confidence interval.",
+            "confidence interval. A focus area below the threshold from year 0 shows instead "
+            "the probability that it has been colonised (held at least the occupancy threshold) "
+            "by year t, as its title says.",
     "abundance": "Total abundance: median over replicates (thick line), 5-95 % of replicates "
                  "(band) and a few single replicates (thin lines); dotted: the quasi-extinction "
                  "threshold.",
-    "occupancy": "Fraction of replicates in which each cell is occupied in the final year, "
-                 "with the plan's action areas and the focus areas.",
-    "colonisation": "Median year in which each cell is first occupied; grey cells are not "
-                    "occupied in at least half of the replicates.",
+    "occupancy": "Fraction of replicates in which each cell is occupied in the final year. "
+                 "Cells occupied in no replicate show the habitat of the last year (light "
+                 "green) apart from the matrix (light grey); outlines: the cells of the plan's "
+                 "actions and the focus areas. Actions the same in every plan or covering the "
+                 "whole study area are named above the legend instead of drawn.",
+    "colonisation": "Median year in which each cell is first occupied; cells not occupied in "
+                    "at least half of the replicates show the habitat of the last year (light "
+                    "green) apart from the matrix (light grey).",
     "ledger": "Yearly ledger, mean over replicates: births, deaths and disturbance deaths, and "
               "net movement (immigrants minus emigrants; below 0 when dispersers are lost "
               "outside habitat or off the grid).",
     "occupancy_difference": "Final-year occupancy probability of each plan minus that of the "
-                            "first plan: purple where the plan does better, orange where worse.",
+                            "first plan: purple where the plan does better, orange where worse; "
+                            "cells without a difference show the plan's habitat of the last "
+                            "year (light green) apart from the matrix (light grey).",
 }
 
 LABELS = {
@@ -116,7 +77,7 @@ LABELS = {
     "final_median": "median final abundance",
     "final_difference": "final abundance difference from the first plan",
     "patches_occupied": "patches occupied at the horizon (mean)",
-    "metapopulation_capacity": "metapopulation capacity",
+    "metapopulation_capacity": "metapopulation capacity (hectares squared)",
     "rank": "rank (a shared rank: not distinguishable)",
     "distinguishable": "distinguishable from the first plan",
 }
@@ -146,27 +107,6 @@ dd { margin-left: 1.2em; }
 
 def _e(value) -> str:
     return html.escape(str(value), quote=True)
-
-
-def fmt(value) -> str:
-    """A value for the report: numbers to 4 significant digits (thousands separated from
-    10 000), booleans as yes/no, None and empty as a dash, lists comma-separated."""
-    if value is None or value == "":
-        return "\u2014"
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, int):
-        return f"{value:,}" if abs(value) >= 10_000 else str(value)
-    if isinstance(value, float):
-        if value != value:
-            return "\u2014"
-        value = value + 0.0  # no "-0"
-        return f"{value:,.0f}" if abs(value) >= 10_000 else f"{value:.4g}"
-    if isinstance(value, list | tuple):
-        return ", ".join(fmt(v) for v in value) if value else "none"
-    if isinstance(value, dict):
-        return json.dumps(value)
-    return str(value)
 
 
 def _csv_value(text: str):
@@ -241,16 +181,32 @@ def _run_results(plans: list[Plan]) -> str:
         add(f"focus area {name}: probability colonised by year {horizon}",
             [fmt(p.summary["colonisation"][name]["probability"][-1])
              if name in p.summary.get("colonisation", {}) else fmt(None) for p in plans])
-    add("metapopulation capacity",
+    add("metapopulation capacity (hectares squared)",
         [fmt((p.summary.get("metapopulation_capacity") or {}).get("lambda_M")) for p in plans])
     conf = s0.get("confidence", 0.95)
     note = (f"<p>Intervals in brackets: {_e(f'{conf:.0%}')} confidence. Replicates: "
             f"{_e(s0.get('replicates'))}; horizon: year {_e(horizon)}.</p>")
-    notes = "".join(f"<p>Note: {_e(n)}</p>" for p in plans for n in p.summary.get("notes", []))
-    return _table(["", *[p.name for p in plans]], rows) + note + notes
+    notes = "".join(f"<p>Note: {_e(n)}</p>" for n in dict.fromkeys(
+        n for p in plans for n in p.summary.get("notes", [])))
+    return _table(["", *[p.name for p in plans]], rows) + note + notes + _capacity_note(plans)
 
 
-def _comparison_results(folder: Path) -> str:
+def _capacity_note(plans: list[Plan]) -> str:
+    """What the metapopulation capacity measures, for the dispersal methods of the plans that
+    have one."""
+    methods = list(dict.fromkeys(
+        p.summary["parameters"]["dispersal"]["method"] for p in plans
+        if p.summary.get("metapopulation_capacity")))
+    if not methods:
+        return ""
+    connection = (CONNECTION[methods[0]] if len(methods) == 1 else
+                  "; ".join(f"with the {m} method, {CONNECTION[m]}" for m in methods))
+    text = CAPACITY.format(connection=connection,
+                           walk=WALK_CAPACITY if "walk" in methods else "")
+    return f"<p>{_e(text)}</p>"
+
+
+def _comparison_results(folder: Path, plans: list[Plan]) -> str:
     """comparison.csv turned on its side (a row per measure, a column per plan), intervals
     joined to their estimates, then the pairing and ranking notes of comparison.json."""
     path = folder / "comparison.csv"
@@ -283,6 +239,7 @@ def _comparison_results(folder: Path) -> str:
         notes = [info.get("paired"), info.get("ranking"), *info.get("notes", [])]
         out += [f"<p>{_e(n)}</p>" for n in notes if n]
     out.append("<p>Intervals in brackets; differences are paired, replicate by replicate.</p>")
+    out.append(_capacity_note(plans))
     return "\n".join(out)
 
 
@@ -302,9 +259,34 @@ def _flatten(value, prefix: str = ""):
         yield prefix, value
 
 
+PATH_TYPES = ("path", "pathlist")
+
+
+def _relative_paths(table: dict, keys, base: Path) -> None:
+    """Rewrite the path keys of one parameter table relative to ``base``, in place."""
+    for k in keys:
+        v = table.get(k.name)
+        if k.type in PATH_TYPES and v:
+            table[k.name] = ([relative(x, base) for x in v] if isinstance(v, list)
+                             else relative(v, base))
+
+
+def parameters_as_written(plan: Plan) -> dict:
+    """A plan's parameters as read (summary.json) with every file path relative to its scenario
+    file, as a scenario would write it, so that the report carries no local absolute path."""
+    params = json.loads(json.dumps(plan.summary.get("parameters", {})))
+    base = Path(plan.manifest.get("scenario", "")).parent
+    for name, (_, keys) in SECTIONS.items():
+        _relative_paths(params.get(name, {}), keys, base)
+    for name, (_, kinds) in ARRAY_SECTIONS.items():
+        for table in params.get(name, []):
+            _relative_paths(table, kinds[table["kind"]][1], base)
+    return params
+
+
 def _parameters(plans: list[Plan]) -> str:
     """The parameters as read, one column per plan; rows where plans differ are highlighted."""
-    tables = [dict(_flatten(p.summary.get("parameters", {}))) for p in plans]
+    tables = [dict(_flatten(parameters_as_written(p))) for p in plans]
     keys = list(dict.fromkeys(k for t in tables for k in t))
     rows, classes = [], []
     for k in keys:
@@ -320,7 +302,8 @@ def _plans(plans: list[Plan]) -> str:
     rows = []
     for p in plans:
         plan = p.summary.get("plan", {})
-        actions = [f"{a['kind']} ({Path(a['area']).name})" for a in plan.get("actions", [])]
+        base = Path(p.manifest.get("scenario", "")).parent
+        actions = [f"{a['kind']} ({relative(a['area'], base)})" for a in plan.get("actions", [])]
         rows.append((_e(p.name), [plan.get("description") or "\u2014",
                                   Path(p.manifest.get("scenario", "")).name or "\u2014",
                                   "; ".join(actions) or "none (base landscape)"]))
@@ -350,10 +333,24 @@ def _figures(paths: list[Path]) -> str:
     return "\n".join(out)
 
 
-def _cautions(plans: list[Plan]) -> str:
-    texts = [CAUTIONS] + list(dict.fromkeys(
-        p.summary["cautions"] for p in plans if p.summary.get("cautions")))
-    return "\n".join(f'<p class="caution">{_e(t)}</p>' for t in texts)
+def _assumptions(plans: list[Plan]) -> str:
+    """The assumptions of each plan (:func:`assumptions`): once where the plans share them, per
+    plan (plans with the same text together) where they differ."""
+    texts = [assumptions(parameters_as_written(p)) for p in plans]
+    out = ["<p>Where the plans differ, each plan's text is given.</p>"] if len(plans) > 1 else []
+    out.append("<dl>")
+    for i, (title, _) in enumerate(texts[0]):
+        by_text: dict[str, list[str]] = {}
+        for plan, t in zip(plans, texts, strict=True):
+            by_text.setdefault(t[i][1], []).append(plan.name)
+        if len(by_text) == 1:
+            body = _e(texts[0][i][1])
+        else:
+            body = "".join(f"<p><b>{_e(', '.join(names))}</b>: {_e(text)}</p>"
+                           for text, names in by_text.items())
+        out.append(f"<dt>{_e(title)}</dt><dd>{body}</dd>")
+    out.append("</dl>")
+    return "\n".join(out)
 
 
 def report_html(folder) -> str:
@@ -362,7 +359,8 @@ def report_html(folder) -> str:
     folder = Path(folder)
     kind, plans = read_plans(folder)
     figures = plot_compare(folder) if kind == "compare" else plot_run(folder)
-    results = _comparison_results(folder) if kind == "compare" else _run_results(plans)
+    results = (_comparison_results(folder, plans) if kind == "compare"
+               else _run_results(plans))
     m = plans[0].manifest
     title = f"gridpop report: {folder.resolve().name}"
     made = datetime.datetime.now().astimezone().strftime("%Y-%m-%d %H:%M %Z")
@@ -377,10 +375,8 @@ def report_html(folder) -> str:
         ("Results", results),
         ("Figures", _figures(figures)),
         ("Parameters as read", _parameters(plans)),
-        ("Model assumptions and limitations",
-         "<dl>" + "".join(f"<dt>{_e(t)}</dt><dd>{_e(x)}</dd>" for t, x in ASSUMPTIONS)
-         + "</dl>"),
-        ("Cautions", _cautions(plans)),
+        ("Model assumptions and limitations", _assumptions(plans)),
+        ("Cautions", f'<p class="caution">{_e(CAUTIONS)}</p>'),
     ]
     body = "\n".join(f"<h2>{_e(h)}</h2>\n{content}" for h, content in sections)
     return (f'<!DOCTYPE html>\n<html lang="en">\n<head>\n<meta charset="utf-8">\n'

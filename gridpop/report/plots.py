@@ -24,19 +24,25 @@ schemes for maps. The Cartographic Journal 40, 27-37.
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
+import os
+import textwrap
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import affine
 import geopandas as gpd
 import matplotlib.patheffects as pe
 import numpy as np
 import pyproj
 import rasterio
+import rasterio.features
 import rasterio.plot
+import shapely.geometry
 from matplotlib.artist import Artist
 from matplotlib.colors import ListedColormap
 from matplotlib.figure import Figure
@@ -45,9 +51,12 @@ from matplotlib.patches import Patch
 from matplotlib.ticker import MaxNLocator
 from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
-from ..errors import InputDataError, RunStateError
+from ..actions import apply_actions
+from ..analysis.metrics import binomial_interval
+from ..errors import GridpopError, InputDataError, RunStateError
 from ..io.results import LEDGER_FIELDS
-from ..io.vectors import is_raster
+from ..landscape import build_landscape
+from ..scenario import load_scenario
 
 OKABE_ITO = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000",
              "#F0E442")
@@ -139,26 +148,65 @@ def _colour(i: int) -> tuple[str, str]:
     return OKABE_ITO[i % len(OKABE_ITO)], _DASHES[(i // len(OKABE_ITO)) % len(_DASHES)]
 
 
+def starts_below(plans: list[Plan], name: str) -> bool:
+    """Whether focus area ``name`` is below the quasi-extinction threshold in year 0 in every
+    replicate of every plan that has it (its risk curve is then 1 throughout)."""
+    curves = [p.summary["focus_risk"][name] for p in plans
+              if name in p.summary.get("focus_risk", {})]
+    return bool(curves) and all(c["ever_below"][0] >= 1.0 for c in curves)
+
+
+def colonisation_curve(plan: Plan, name: str) -> dict | None:
+    """Probability that focus area ``name`` has been occupied by year t, with its Wilson
+    interval over the plan's replicates (the interval of the risk curves); None when the plan
+    does not have it."""
+    c = plan.summary.get("colonisation", {}).get(name)
+    if c is None:
+        return None
+    reps = int(plan.summary["replicates"])
+    p = np.asarray(c["probability"], dtype=float)
+    lo, hi = binomial_interval(np.rint(p * reps), reps, plan.summary.get("confidence", 0.95))
+    return {"year": c["year"], "value": p, "lo": lo, "hi": hi}
+
+
+def _risk_curve(plan: Plan, key: str | None) -> dict | None:
+    r = plan.summary["risk"] if key is None else plan.summary["focus_risk"].get(key)
+    if r is None:
+        return None
+    return {"year": r["year"], "value": r["ever_below"], "lo": r["ever_below_lo"],
+            "hi": r["ever_below_hi"]}
+
+
 def risk_figure(plans: list[Plan]) -> Figure:
     """Quasi-extinction risk curves: P(abundance fell below the threshold by year t), one line
-    per plan with its confidence band, one panel for the whole landscape and one per focus area."""
+    per plan with its confidence band, one panel for the whole landscape and one per focus area.
+
+    A focus area below the threshold in year 0 (in every replicate) would show a flat risk of 1;
+    its panel shows instead the probability that it has been colonised (held at least
+    ``occupancy_threshold`` individuals) by year t, and its title says so."""
     first = plans[0].summary
-    panels = [("whole landscape", "risk")] + [(f"focus area {t}", t) for t in first.get(
-        "focus_risk", {})]
+    q = f"{first['quasi_extinction']:g} individuals"
+    panels = [("whole landscape", None, False)] + [
+        (f"focus area {t}", t, starts_below(plans, t)) for t in first.get("focus_risk", {})]
     fig = Figure(figsize=(6.4 * min(len(panels), 2), 4.2 * math.ceil(len(panels) / 2)),
                  layout="constrained")
     axes = fig.subplots(math.ceil(len(panels) / 2), min(len(panels), 2), squeeze=False,
                         sharey=True).ravel()
-    for ax, (title, key) in zip(axes, panels, strict=False):
+    for ax, (title, key, colonise) in zip(axes, panels, strict=False):
         for i, plan in enumerate(plans):
-            r = plan.summary["risk"] if key == "risk" else plan.summary["focus_risk"].get(key)
-            if r is None:
+            c = colonisation_curve(plan, key) if colonise else _risk_curve(plan, key)
+            if c is None:
                 continue
             colour, dash = _colour(i)
-            ax.fill_between(r["year"], r["ever_below_lo"], r["ever_below_hi"], color=colour,
-                            alpha=0.18, linewidth=0)
-            ax.plot(r["year"], r["ever_below"], color=colour, linestyle=dash, linewidth=2,
+            ax.fill_between(c["year"], c["lo"], c["hi"], color=colour, alpha=0.18, linewidth=0)
+            ax.plot(c["year"], c["value"], color=colour, linestyle=dash, linewidth=2,
                     label=plan.name)
+        if colonise:
+            title += (f": below {q} from year 0,\nso shown: probability colonised by year t")
+            occupied = first.get("occupancy_threshold")
+            ax.set_ylabel("probability of having held at least\n"
+                          f"{occupied:g} individuals by year t" if occupied is not None
+                          else "probability colonised by year t")
         ax.set_ylim(-0.02, 1.02)
         ax.set_xlim(left=0)
         ax.set_title(title)
@@ -166,8 +214,7 @@ def risk_figure(plans: list[Plan]) -> Figure:
         ax.grid(alpha=0.3)
     for ax in axes[len(panels):]:
         ax.set_visible(False)
-    axes[0].set_ylabel("probability of having fallen below\n"
-                       f"{first['quasi_extinction']:g} individuals by year t")
+    axes[0].set_ylabel(f"probability of having fallen below\n{q} by year t")
     conf = first.get("confidence", 0.95)
     axes[0].legend(title=f"plan (band: {conf:.0%} interval)", fontsize="small")
     fig.suptitle("Quasi-extinction risk")
@@ -292,13 +339,21 @@ def _crs_label(crs: pyproj.CRS) -> str:
 
 @dataclass(frozen=True, eq=False)
 class MapLayer:
-    """A raster band on the grid: values (nodata masked), extent, CRS and optionally the study
-    area (True inside), for telling cells without a value inside it from cells outside."""
+    """A raster band on the grid: values (nodata masked), extent, CRS, and optionally the study
+    area (True inside) and the habitat (True where capacity > 0), for telling study-area cells
+    without a value (masked) in habitat from those in the matrix."""
 
     values: np.ma.MaskedArray
     extent: tuple[float, float, float, float]
     crs: pyproj.CRS
     study: np.ndarray | None = None
+    habitat: np.ndarray | None = None
+
+    @property
+    def transform(self) -> affine.Affine:
+        left, right, bottom, top = self.extent
+        ny, nx = self.values.shape
+        return affine.Affine((right - left) / nx, 0.0, left, 0.0, -(top - bottom) / ny, top)
 
 
 def read_band(path: Path, band: int | None = None) -> MapLayer:
@@ -311,26 +366,103 @@ def read_band(path: Path, band: int | None = None) -> MapLayer:
                         pyproj.CRS.from_wkt(src.crs.to_wkt()))
 
 
-def outlines(plan: Plan, crs: pyproj.CRS) -> list[tuple[str, gpd.GeoDataFrame]]:
-    """The plan's vector action areas and its focus areas, reprojected to ``crs``, as
-    ``(kind, features)``; raster areas are skipped, a missing file is skipped with a warning."""
-    areas = [(a["kind"], a["area"]) for a in plan.summary.get("plan", {}).get("actions", [])]
-    if plan.summary.get("focus_areas"):
-        areas.append(("focus", plan.summary["focus_areas"]["file"]))
+def relative(path, base: Path) -> str:
+    """``path`` as written relative to the folder ``base`` (with ``..`` where it lies outside),
+    or its file name when it cannot be (another drive)."""
+    path = Path(path)
+    if not path.is_absolute():
+        return path.as_posix()
+    try:
+        return Path(os.path.relpath(path, base)).as_posix()
+    except ValueError:
+        return path.name
+
+
+@dataclass(frozen=True, eq=False)
+class PlanCells:
+    """A plan's landscape rebuilt from its scenario on the run's grid: the habitat of the run's
+    last year (capacity > 0, without disturbance) and each action as ``(kind, area file relative
+    to the scenario, cells)``, in the scenario's order."""
+
+    habitat: np.ndarray
+    actions: tuple[tuple[str, str, np.ndarray], ...]
+
+
+def plan_cells(plan: Plan) -> PlanCells | None:
+    """The :class:`PlanCells` of a plan, from the scenario file named in run.json when it is still
+    the file that was run (same sha256); otherwise None, with a warning (the maps then show no
+    habitat and no action areas)."""
+    path = Path(plan.manifest.get("scenario", ""))
+    why = None
+    if not path.is_file():
+        why = "is missing"
+    elif hashlib.sha256(path.read_bytes()).hexdigest() != plan.manifest.get("scenario_sha256"):
+        why = "has changed since the run"
+    else:
+        try:
+            scenario = load_scenario(path)
+            actions = apply_actions(scenario, build_landscape(scenario, stochastic=False))
+        except GridpopError as exc:
+            why = f"cannot be rebuilt ({exc})"
+    if why is not None:
+        warnings.warn(f"{path}: the scenario of plan {plan.name} {why}; its maps show no "
+                      "habitat and no action areas.", stacklevel=2)
+        return None
+    habitat = actions.capacity_for_year(int(plan.summary["years"]) - 1) > 0
+    configs = scenario.extra.get("action", ())
+    return PlanCells(habitat, tuple((c.kind, relative(c.area, path.parent), cells)
+                                    for c, cells in zip(configs, actions.areas, strict=True)))
+
+
+def footprint(cells: np.ndarray, layer: MapLayer) -> gpd.GeoDataFrame:
+    """The cells as polygons in the layer's CRS (their outline is what the model used)."""
+    shapes = rasterio.features.shapes(cells.astype(np.uint8), mask=cells,
+                                      transform=layer.transform)
+    return gpd.GeoDataFrame(geometry=[shapely.geometry.shape(g) for g, _ in shapes],
+                            crs=layer.crs)
+
+
+def focus_outlines(plan: Plan, crs: pyproj.CRS) -> list[tuple[str, gpd.GeoDataFrame]]:
+    """The plan's focus areas reprojected to ``crs``, as ``[("focus", features)]``; none when it
+    has none, or with a warning when the file is missing."""
+    focus = plan.summary.get("focus_areas")
+    if not focus:
+        return []
+    path = Path(focus["file"])
+    if not path.exists():
+        warnings.warn(f"{path}: the focus areas of plan {plan.name} are missing; they are not "
+                      "drawn on the maps.", stacklevel=2)
+        return []
+    gdf = gpd.read_file(path)
+    return [("focus", gdf.to_crs(crs) if gdf.crs is not None else gdf)]
+
+
+def action_outlines(plans: list[Plan], cells: list[PlanCells | None], layer: MapLayer
+                    ) -> tuple[list[list[tuple[str, gpd.GeoDataFrame]]], str]:
+    """Per plan, the footprints ``(kind, polygons)`` of the actions that tell the plans apart,
+    and a note naming the others, which are not drawn: an action covering the whole study area
+    (it would frame every panel), and, with several plans, one of the same kind and cells in
+    every plan."""
+    study = ~np.ma.getmaskarray(layer.values)
+    shared: dict[str, None] = {}
+    whole: dict[str, None] = {}
     out = []
-    for kind, area in areas:
-        path = Path(area)
-        if not path.exists():
-            warnings.warn(f"{path}: the {kind} area of plan {plan.name} is missing; it is not "
-                          "drawn on the maps.", stacklevel=2)
-            continue
-        if is_raster(path):
-            continue
-        gdf = gpd.read_file(path)
-        if gdf.crs is not None:
-            gdf = gdf.to_crs(crs)
-        out.append((kind, gdf))
-    return out
+    for pc in cells:
+        lines = []
+        for kind, name, area in pc.actions if pc is not None else ():
+            label = f"{kind.replace('_', ' ')} ({name})"
+            if not (study & ~area).any():
+                whole[label] = None
+            elif len(plans) > 1 and all(
+                    other is not None and any(k == kind and np.array_equal(a, area)
+                                              for k, _, a in other.actions) for other in cells):
+                shared[label] = None
+            elif area.any():
+                lines.append((kind, footprint(area, layer)))
+        out.append(lines)
+    note = "; ".join(f"not drawn, {why}: {', '.join(labels)}" for why, labels in (
+        ("the same in every plan", shared), ("covering the whole study area", whole)) if labels)
+    return out, note
 
 
 def _stroke(kind: str) -> list:
@@ -350,34 +482,57 @@ def _draw_outlines(ax, layers) -> None:
 
 
 NOT_REACHED = "#D9D9D9"
-"""Colour of study-area cells without a value (e.g. never colonised)."""
+"""Colour of study-area cells without a value when the habitat is not known."""
+
+HABITAT, MATRIX = "#C8DDB4", "#F0F0F0"
+"""Colours of study-area cells without a value in habitat and in the matrix (light, under the
+colour scale)."""
+
+
+def _underlay(ax, layer: MapLayer) -> set[str]:
+    """Draw the study-area cells without a value (habitat and matrix apart when the habitat is
+    known) and return which of "habitat", "matrix", "grey" it drew."""
+    if layer.study is None:
+        return set()
+    blank = layer.study & np.ma.getmaskarray(layer.values)
+    if not blank.any():
+        return set()
+    if layer.habitat is None:
+        codes, colours, drawn = np.zeros(blank.shape), [NOT_REACHED], {"grey"}
+    else:
+        codes, colours = layer.habitat.astype(float), [MATRIX, HABITAT]
+        drawn = ({"habitat"} if (blank & layer.habitat).any() else set()) | (
+            {"matrix"} if (blank & ~layer.habitat).any() else set())
+    ax.imshow(np.ma.masked_array(codes, ~blank), extent=layer.extent,
+              cmap=ListedColormap(colours), vmin=0, vmax=max(len(colours) - 1, 1),
+              interpolation="nearest")
+    return drawn
 
 
 def map_figure(panels: list[tuple[str, MapLayer, list]], *, cmap: str, vmin: float,
-               vmax: float, label: str, title: str,
-               no_value: str = "no value") -> Figure:
+               vmax: float, label: str, title: str, no_value: str = "no value",
+               note: str = "") -> Figure:
     """Maps on the grid, one panel per ``(title, layer, outlines)`` on one colour scale, with
-    the outlines (:func:`outlines`) on top, a scale bar and axes in grid CRS coordinates.
+    the outlines (``(kind, features)``) on top, a scale bar and axes in grid CRS coordinates.
 
-    Study-area cells without a value (``layer.study`` given) are light grey, with the legend
-    entry ``no_value``; cells outside the study area stay white.
+    Study-area cells without a value (masked, ``layer.study`` given) are drawn light: habitat
+    and matrix in two colours when ``layer.habitat`` is given (legend entries "habitat,
+    ``no_value``" and "matrix"), else grey (legend entry ``no_value``); cells outside the study
+    area stay white. ``note`` (e.g. the actions not drawn) is the legend's title.
     """
     cols = min(len(panels), 3)
     rows = math.ceil(len(panels) / cols)
     left, right, bottom, top = panels[0][1].extent
     aspect = (top - bottom) / (right - left)
     width = min(4.8, 5.0 / aspect)  # of one map, inches
-    fig = Figure(figsize=(cols * (width + 0.9) + 1.2, rows * (width * aspect + 1.0) + 1.3),
+    fig_width = cols * (width + 0.9) + 1.2
+    fig = Figure(figsize=(fig_width, rows * (width * aspect + 1.0) + 1.3 + 0.3 * bool(note)),
                  layout="constrained")
     axes = fig.subplots(rows, cols, squeeze=False).ravel()
     crs = panels[0][1].crs
-    kinds, grey, image = set(), False, None
+    kinds, blank, image = set(), set(), None
     for ax, (name, layer, lines) in zip(axes, panels, strict=False):
-        if layer.study is not None:
-            empty = layer.study & np.ma.getmaskarray(layer.values)
-            grey |= bool(empty.any())
-            ax.imshow(np.ma.masked_array(np.ones(empty.shape), ~empty), extent=layer.extent,
-                      cmap=ListedColormap([NOT_REACHED]), interpolation="nearest")
+        blank |= _underlay(ax, layer)
         image = ax.imshow(layer.values, extent=layer.extent, cmap=cmap, vmin=vmin, vmax=vmax,
                           interpolation="nearest")
         _draw_outlines(ax, lines)
@@ -400,11 +555,17 @@ def map_figure(panels: list[tuple[str, MapLayer, list]], *, cmap: str, vmin: flo
         Line2D([], [], color=c, linestyle=dash, linewidth=1.6, path_effects=_stroke(k),
                label="focus area" if k == "focus" else k.replace("_", " "))
         for k, (c, dash) in ACTION_STYLE.items() if k in kinds]
-    if grey:
-        handles.append(Patch(color=NOT_REACHED, label=no_value))
-    if handles:
-        fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), 6),
-                   fontsize="small", facecolor="#BFBFBF", framealpha=1.0)
+    for key, colour, text in (("habitat", HABITAT, f"habitat, {no_value}"),
+                              ("matrix", MATRIX, "matrix (no habitat)"),
+                              ("grey", NOT_REACHED, no_value)):
+        if key in blank:
+            handles.append(Patch(facecolor=colour, edgecolor="0.5", label=text))
+    if handles or note:
+        fig.legend(handles=handles, loc="outside lower center",
+                   ncols=max(min(len(handles), 6, int(fig_width / 2.4)), 1),
+                   fontsize="small", facecolor="#BFBFBF", framealpha=1.0,
+                   title=textwrap.fill(note, int(fig_width * 13)) or None,
+                   title_fontsize="small")
     fig.suptitle(f"{title}\ngrid CRS: {_crs_label(crs)}", fontsize=11)
     return fig
 
@@ -414,30 +575,54 @@ def _save(fig: Figure, path: Path) -> Path:
     return path
 
 
-def _maps(plans: list[Plan]) -> list[tuple[str, Figure]]:
-    occ, col = [], []
+def _without_zero(layer: MapLayer) -> np.ma.MaskedArray:
+    return np.ma.masked_where(layer.values == 0, layer.values)
+
+
+def _maps(plans: list[Plan], compare_dir: Path | None = None) -> list[tuple[str, Figure]]:
+    """The occupancy and colonisation maps, and with ``compare_dir`` the occupancy difference
+    maps of the plans after the first."""
+    finals = [read_band(p.folder / "occupancy.tif") for p in plans]
+    cells = [plan_cells(p) for p in plans]
+    actions, note = action_outlines(plans, cells, finals[0])
     years = max(int(p.summary.get("years", 0)) for p in plans)
-    for plan in plans:
-        final = read_band(plan.folder / "occupancy.tif")
+    occ, col, diff = [], [], []
+    for plan, final, pc, lines in zip(plans, finals, cells, actions, strict=True):
         study = ~np.ma.getmaskarray(final.values)
-        lines = outlines(plan, final.crs)
-        occ.append((plan.name, final, lines))
+        habitat = pc.habitat if pc is not None else None
+        lines = focus_outlines(plan, final.crs) + lines  # actions drawn over focus areas
+        occ.append((plan.name, MapLayer(_without_zero(final), final.extent, final.crs, study,
+                                        habitat), lines))
         first = read_band(plan.folder / "colonisation_year.tif", 1)
-        col.append((plan.name, MapLayer(first.values, first.extent, first.crs, study), lines))
-    return [
+        col.append((plan.name, MapLayer(first.values, first.extent, first.crs, study, habitat),
+                    lines))
+        if compare_dir is not None and plan is not plans[0]:
+            d = read_band(compare_dir / f"occupancy_difference_{plan.name}.tif", 1)
+            diff.append((f"{plan.name} minus {plans[0].name}",
+                         MapLayer(_without_zero(d), d.extent, d.crs, study, habitat), lines))
+    maps = [
         ("occupancy", map_figure(
-            occ, cmap="viridis", vmin=0.0, vmax=1.0,
-            label="fraction of replicates occupied", title=f"Occupancy in year {years}")),
+            occ, cmap="viridis", vmin=0.0, vmax=1.0, label="fraction of replicates occupied",
+            title=f"Occupancy in year {years}", no_value="occupied in no replicate",
+            note=note)),
         ("colonisation", map_figure(
             col, cmap="cividis", vmin=0.0, vmax=max(years, 1),
             label="median first year occupied", title="Colonisation year",
-            no_value="not occupied in half of the replicates")),
+            no_value="not occupied in half of the replicates", note=note)),
     ]
+    if diff:
+        top = max(max(float(np.ma.max(np.ma.abs(d[1].values)) or 0.0) for d in diff), 0.01)
+        maps.append(("occupancy_difference", map_figure(
+            diff, cmap="PuOr", vmin=-top, vmax=top,
+            label="difference in fraction of replicates occupied",
+            title="Final-year occupancy: difference from the first plan",
+            no_value="no difference", note=note)))
+    return maps
 
 
-def _figures(plans: list[Plan]) -> list[tuple[str, Figure]]:
+def _figures(plans: list[Plan], compare_dir: Path | None = None) -> list[tuple[str, Figure]]:
     return ([("risk", risk_figure(plans)), ("abundance", abundance_figure(plans))]
-            + _maps(plans) + [("ledger", ledger_figure(plans))])
+            + _maps(plans, compare_dir) + [("ledger", ledger_figure(plans))])
 
 
 def _write(folder: Path, figures) -> list[Path]:
@@ -449,10 +634,12 @@ def _write(folder: Path, figures) -> list[Path]:
 def plot_run(run_dir) -> list[Path]:
     """Draw the figures of a RUN folder into ``run_dir/plots/`` and return their paths.
 
-    risk.png (quasi-extinction risk with intervals), abundance.png (median, 5-95 % band and a
-    few replicates), occupancy.png (final-year occupancy probability), colonisation.png (median
-    colonisation year), both maps with the plan's vector action areas and focus areas, and
-    ledger.png (births, deaths, disturbance deaths, net movement per year).
+    risk.png (quasi-extinction risk with intervals; colonisation for a focus area that starts
+    below the threshold), abundance.png (median, 5-95 % band and a few replicates),
+    occupancy.png (final-year occupancy probability), colonisation.png (median colonisation
+    year), both maps over the habitat of the last year with the footprints of the plan's actions
+    and its focus areas, and ledger.png (births, deaths, disturbance deaths, net movement per
+    year).
     """
     run_dir = Path(run_dir)
     return _write(run_dir, _figures([read_run(run_dir)]))
@@ -462,22 +649,10 @@ def plot_compare(compare_dir) -> list[Path]:
     """Draw the figures of a COMPARE folder into ``compare_dir/plots/`` and return their paths.
 
     The figures of :func:`plot_run` with every plan (one risk curve per plan on one axis, one
-    panel per plan elsewhere, shared scales), and occupancy_difference.png: each plan's
-    final-year occupancy probability minus the first plan's (occupancy_difference_<plan>.tif).
+    panel per plan elsewhere, shared scales; the maps draw only the actions that tell the plans
+    apart), and occupancy_difference.png: each plan's final-year occupancy probability minus the
+    first plan's (occupancy_difference_<plan>.tif).
     """
     compare_dir = Path(compare_dir)
     _, plans = read_plans(compare_dir)
-    figures = _figures(plans)
-    diffs = []
-    for plan in plans[1:]:
-        path = compare_dir / f"occupancy_difference_{plan.name}.tif"
-        layer = read_band(path, 1)
-        diffs.append((f"{plan.name} minus {plans[0].name}", layer, outlines(plan, layer.crs)))
-    if diffs:
-        top = max(float(np.ma.max(np.ma.abs(d[1].values)) or 0.0) for d in diffs)
-        top = max(top, 0.01)
-        figures.append(("occupancy_difference", map_figure(
-            diffs, cmap="PuOr", vmin=-top, vmax=top,
-            label="difference in fraction of replicates occupied",
-            title="Final-year occupancy: difference from the first plan")))
-    return _write(compare_dir, figures)
+    return _write(compare_dir, _figures(plans, compare_dir))
