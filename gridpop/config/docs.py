@@ -1,0 +1,88 @@
+"""Documents generated from the schema: the scenario reference (``docs/scenario.md``) and the
+commented template written by ``gridpop init``."""
+
+from __future__ import annotations
+
+import textwrap
+
+from .kinds import ARRAY_SECTIONS
+from .schema import REQUIRED, Key
+from .sections import SECTIONS
+
+
+def _toml_value(v: object) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, str):
+        return f'"{v}"'
+    if isinstance(v, (list, tuple)):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    return repr(v)
+
+
+def _key_lines(keys: tuple[Key, ...]) -> list[str]:
+    """Template lines of some keys: each key's doc, then the key (commented out unless required)."""
+    lines = []
+    for k in keys:
+        unit = f" [{k.unit}]" if k.unit else ""
+        lines.append(f"# {k.doc}{unit}")
+        if k.default is REQUIRED:
+            lines.append(f"{k.name} = {_toml_value(k.example)}")
+        elif k.default is None:
+            if k.example is not None:
+                lines.append(f"# {k.name} = {_toml_value(k.example)}")
+            else:
+                lines.append(f"# {k.name} = ...")
+        else:
+            lines.append(f"# {k.name} = {_toml_value(k.default)}")
+    return lines
+
+
+def template_toml() -> str:
+    """A commented scenario template generated from the schema (``gridpop init``).
+
+    The ``[[disturbance]]`` and ``[[action]]`` examples are commented out as a whole: removing one
+    leading ``# `` from the lines of an example gives a table with its required keys set and its
+    optional keys (at their defaults) still commented out.
+    """
+    lines = ["# gridpop scenario. Paths are relative to this file.",
+             "# Every key is documented in docs/scenario.md; defaults are shown commented out.", ""]
+    for name, (doc, keys) in SECTIONS.items():
+        lines.append(f"[{name}]  # {doc}")
+        lines += _key_lines(keys)
+        lines.append("")
+    for name, (doc, kinds) in ARRAY_SECTIONS.items():
+        lines += ["# " + line for line in
+                  textwrap.wrap(f"{doc} Known kinds: {', '.join(kinds)}.", 96)] + [""]
+        for kind, (kind_doc, keys) in kinds.items():
+            block = [f"[[{name}]]"]
+            block += ["# " + line for line in textwrap.wrap(kind_doc, 96)]
+            block.append(f"kind = {_toml_value(kind)}")
+            block += _key_lines(keys)
+            lines += ["# " + line for line in block] + [""]
+    return "\n".join(lines)
+
+
+def _key_table(keys: tuple[Key, ...]) -> list[str]:
+    out = ["| key | unit | default | allowed | meaning |", "|---|---|---|---|---|"]
+    for k in keys:
+        default = ("required" if k.default is REQUIRED
+                   else "-" if k.default is None else _toml_value(k.default))
+        out.append(f"| `{k.name}` | {k.unit or '-'} | {default} | {k.allowed()} | {k.doc} |")
+    return out
+
+
+def reference_markdown() -> str:
+    """The scenario reference (docs/scenario.md) generated from the schema."""
+    out = ["# Scenario reference", "",
+           "Generated from the section classes in `gridpop/config/` "
+           "(`python -m gridpop.config > docs/scenario.md`).",
+           "Paths are relative to the scenario file.", ""]
+    for name, (doc, keys) in SECTIONS.items():
+        out += [f"## [{name}]", "", doc, ""] + _key_table(keys) + [""]
+    for name, (doc, kinds) in ARRAY_SECTIONS.items():
+        out += [f"## [[{name}]]", "", f"{doc} Each table needs `kind`, one of "
+                f"{', '.join(f'`{k!r}`' for k in kinds)}; the other keys depend on the kind.", ""]
+        for kind, (kind_doc, keys) in kinds.items():
+            out += [f"### kind = \"{kind}\"", "", kind_doc, ""] + _key_table(keys) + [""]
+    return "\n".join(out)

@@ -1,0 +1,121 @@
+"""Scenario keys as a table, generated from the fields of the section dataclasses.
+
+A section or kind is a frozen dataclass whose fields are its keys: the annotation gives the type
+and, through ``Literal``, the allowed choices; :func:`key` puts the documentation, unit, bounds and
+example in the field's metadata. :func:`keys_of` reads them back as :class:`Key` records, the
+table that validation, the reference and the template work from.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import types
+import typing
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Final, Literal, Union, get_args, get_origin
+
+REQUIRED: Final = object()
+"""Default marker for keys that must be given."""
+
+META: Final = "gridpop.key"
+"""Name under which :func:`key` keeps a field's :class:`KeyInfo` in its metadata."""
+
+SCALARS: Final[dict[object, str]] = {int: "int", float: "float", bool: "bool", str: "str",
+                                     Path: "path"}
+LISTS: Final = {"str": "strlist", "float": "floatlist", "path": "pathlist"}
+
+
+@dataclass(frozen=True)
+class KeyInfo:
+    """What a key's annotation does not say: its documentation, unit, bounds and example."""
+
+    doc: str
+    unit: str = ""
+    low: float | None = None
+    high: float | None = None
+    low_open: bool = False
+    high_open: bool = False
+    example: object = None
+
+
+def key(default: object = REQUIRED, *, doc: str, unit: str = "", low: float | None = None,
+        high: float | None = None, low_open: bool = False, high_open: bool = False,
+        example: object = None) -> Any:
+    """A dataclass field for one scenario key (no default given: the key is required)."""
+    info = KeyInfo(doc, unit, low, high, low_open, high_open, example)
+    if default is REQUIRED:
+        return dataclasses.field(metadata={META: info})
+    return dataclasses.field(default=default, metadata={META: info})
+
+
+@dataclass(frozen=True)
+class Key:
+    """One scenario key: its type, default, unit, allowed values and documentation."""
+
+    name: str
+    type: str  # "int", "float", "bool", "str", "path", "strlist", "floatlist", "pathlist"
+    default: object
+    doc: str
+    unit: str = ""
+    choices: tuple[str, ...] = ()
+    low: float | None = None
+    high: float | None = None
+    low_open: bool = False
+    high_open: bool = False
+    example: object = None
+
+    def allowed(self) -> str:
+        if self.choices:
+            return "one of " + ", ".join(repr(c) for c in self.choices)
+        kinds = {
+            "int": "an integer",
+            "float": "a number",
+            "bool": "true or false",
+            "str": "a string",
+            "path": "a file path (relative to the scenario file)",
+            "strlist": "a list of strings",
+            "floatlist": "a number or a list of numbers",
+            "pathlist": "a file path or a list of file paths",
+        }
+        text = kinds[self.type]
+        if self.low is not None or self.high is not None:
+            lo = "" if self.low is None else f"{self.low:g} {'<' if self.low_open else '<='} "
+            hi = "" if self.high is None else f" {'<' if self.high_open else '<='} {self.high:g}"
+            text += f" with {lo}{'values' if self.type == 'floatlist' else 'value'}{hi}"
+        return text
+
+
+def key_type(hint: object) -> tuple[str, tuple[str, ...]]:
+    """Key type name and choices of a field annotation; ``X | None`` counts as ``X``."""
+    origin, args = get_origin(hint), get_args(hint)
+    if origin is Union or origin is types.UnionType:
+        (inner,) = (a for a in args if a is not type(None))
+        return key_type(inner)
+    if origin is Literal:
+        return "str", args
+    if origin is tuple:
+        item, _ = args  # tuple[item, ...]
+        name, choices = key_type(item)
+        return LISTS[name], choices
+    return SCALARS[hint], ()
+
+
+def doc_of(cls: type) -> str:
+    """A section's or kind's description: its class docstring on one line."""
+    return " ".join((cls.__doc__ or "").split())
+
+
+def keys_of(cls: type, skip: tuple[str, ...] = ()) -> tuple[Key, ...]:
+    """The keys of a section or kind dataclass, in field order (fields in ``skip`` left out)."""
+    hints = typing.get_type_hints(cls)
+    out = []
+    for f in dataclasses.fields(cls):
+        if f.name in skip:
+            continue
+        info: KeyInfo = f.metadata[META]
+        kind, choices = key_type(hints[f.name])
+        default = REQUIRED if f.default is dataclasses.MISSING else f.default
+        out.append(Key(f.name, kind, default, info.doc, info.unit, choices, info.low, info.high,
+                       info.low_open, info.high_open, info.example))
+    return tuple(out)

@@ -1,0 +1,199 @@
+"""The scenario sections (``[run]``, ``[grid]``, ...): one frozen, typed dataclass each.
+
+A class's docstring is the section's description and its fields are the section's keys
+(:func:`gridpop.config.schema.key`); :data:`SECTIONS` is generated from them. The option choices
+are the ``Literal`` aliases below, and the tuples beside them list the same choices in order.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal, get_args
+
+from .schema import Key, doc_of, key, keys_of
+
+GrowthModel = Literal["exponential", "beverton-holt", "ricker", "theta-logistic", "ceiling"]
+Kernel = Literal["gaussian", "exponential", "2dt"]
+Edge = Literal["absorbing", "reflecting"]
+DispersalMethod = Literal["kernel", "walk"]
+Response = Literal["linear", "threshold", "power"]
+OutputRaster = Literal["abundance", "occupancy", "colonised"]
+
+GROWTH_MODELS: tuple[GrowthModel, ...] = get_args(GrowthModel)
+KERNELS: tuple[Kernel, ...] = get_args(Kernel)
+EDGES: tuple[Edge, ...] = get_args(Edge)
+DISPERSAL_METHODS: tuple[DispersalMethod, ...] = get_args(DispersalMethod)
+RESPONSES: tuple[Response, ...] = get_args(Response)
+OUTPUT_RASTERS: tuple[OutputRaster, ...] = get_args(OutputRaster)
+
+
+@dataclass(frozen=True, kw_only=True)
+class RunConfig:
+    """How long and how often to simulate."""
+
+    years: int = key(doc="Planning horizon: number of yearly steps.", unit="years", low=1,
+                     example=50)
+    replicates: int = key(doc="Number of stochastic replicates.", low=1, example=100)
+    seed: int = key(1, doc="Seed of the counter-based random numbers. Replicate i of two "
+                    "scenarios with the same seed uses the same random numbers.", low=0)
+    batch_size: int = key(16, doc="Replicates per unit of work (checkpoint and distributed "
+                          "task). Does not change results.", low=1)
+
+
+@dataclass(frozen=True, kw_only=True)
+class GridConfig:
+    """The raster grid every layer is aligned to."""
+
+    template: Path | None = key(None, doc="Raster that defines CRS, transform and shape. "
+                                "Defaults to the suitability raster.", example="suitability.tif")
+
+
+@dataclass(frozen=True, kw_only=True)
+class HabitatConfig:
+    """Habitat suitability and carrying capacity."""
+
+    suitability: Path = key(doc="Habitat-suitability raster, values 0..1; nodata or NaN marks "
+                            "cells outside the study area.", example="suitability.tif")
+    capacity_per_ha: float = key(doc="Carrying capacity at suitability 1.",
+                                 unit="individuals/ha", low=0, example=2.0)
+    response: Response = key("linear", doc="How suitability s maps to capacity: linear "
+                             "(K ~ s), threshold (K ~ s where s >= threshold, else 0), power "
+                             "(K ~ s^exponent).")
+    threshold: float = key(0.5, doc="Cut-off for the threshold response.", low=0, high=1)
+    exponent: float = key(2.0, doc="Exponent of the power response.", low=0, low_open=True)
+
+
+@dataclass(frozen=True, kw_only=True)
+class InitialConfig:
+    """Who is there in year 0. Give one of fraction_of_capacity, raster, points (none given:
+    fraction_of_capacity = 1)."""
+
+    fraction_of_capacity: float | None = key(None, doc="Initial abundance as a fraction of each "
+                                             "cell's capacity (rounded to whole individuals in "
+                                             "stochastic mode).", low=0, example=0.5)
+    raster: Path | None = key(None, doc="Raster of individuals per cell (resampled by sum when "
+                              "its grid differs).")
+    points: Path | None = key(None, doc="Vector file of release points (GeoPackage, Shapefile, "
+                              "GeoJSON).")
+    count_field: str = key("count", doc="Attribute of the release points holding the number of "
+                           "individuals.")
+
+
+@dataclass(frozen=True, kw_only=True)
+class GrowthConfig:
+    """Local growth, survival and stochasticity."""
+
+    model: GrowthModel = key("beverton-holt", doc="Density dependence of the yearly multiplier.")
+    rate: float = key(doc="Intrinsic growth rate r at low density; lambda0 = e^r. Declines come "
+                      "from survival, crowding, the environment and disturbance.",
+                      unit="1/year", low=0, example=0.4)
+    survival: float = key(0.6, doc="Adult annual survival s; births make up the rest of the "
+                          "multiplier.", low=0, high=1)
+    theta: float = key(1.0, doc="Shape of the theta-logistic model.", low=0, low_open=True)
+    allee_density: float = key(0.0, doc="Mate-finding Allee effect: births are scaled by "
+                               "N / (N + A), A this density times the cell area. 0 = none.",
+                               unit="individuals/ha", low=0)
+    stochastic: bool = key(True, doc="true: whole individuals with demographic stochasticity; "
+                           "false: deterministic expectations.")
+    env_sd: float = key(0.0, doc="Standard deviation of the yearly deviation of the log growth "
+                        "multiplier (environmental stochasticity).", low=0)
+    env_correlation_m: float = key(0.0, doc="Correlation length of the environmental deviation: "
+                                   "correlation at distance d is exp(-(d/L)^2). 0 = independent "
+                                   "cells.", unit="m", low=0)
+    env_autocorrelation: float = key(0.0, doc="Year-to-year correlation of the environmental "
+                                     "deviation (AR(1) coefficient).", low=-1, high=1,
+                                     low_open=True, high_open=True)
+
+
+@dataclass(frozen=True, kw_only=True)
+class DispersalConfig:
+    """Movement between cells with a dispersal kernel."""
+
+    fraction: float = key(0.0, doc="Fraction of individuals that disperse each year.", low=0,
+                          high=1)
+    density_dependence: float = key(0.0, doc="Emigration rises with crowding: fraction x "
+                                    "min(1, N/K)^density_dependence. 0 = constant.", low=0)
+    kernel: Kernel = key("gaussian", doc="Shape of the dispersal kernel.")
+    mean_distance_m: float | None = key(None, doc="Mean distance of a disperser's displacement. "
+                                        "Required when fraction > 0.", unit="m", low=0,
+                                        low_open=True, example=400.0)
+    tail: float = key(1.5, doc="Shape p of the 2dt kernel (smaller = fatter tail).", low=0.5,
+                      low_open=True)
+    max_distance_m: float | None = key(None, doc="Truncation distance of the kernel. Default: "
+                                       "where the kernel has dropped to about 1e-6 of its "
+                                       "mass.", unit="m", low=0, low_open=True)
+    edge: Edge = key("absorbing", doc="Grid edge: absorbing (dispersers that leave are lost) or "
+                     "reflecting. Kernel method only: a walk never leaves the grid.")
+    method: DispersalMethod = key("kernel", doc="kernel: dispersers jump by the dispersal "
+                                  "kernel; walk: they walk cell by cell over a resistance "
+                                  "surface (corridors lead them, barriers stop them).")
+    resistance: Path | None = key(None, doc="Walk: resistance raster (>= 1 easy to cross; nodata "
+                                  "or inf = impassable). Default: derived from suitability s as "
+                                  "R = 1 + (resistance_max - 1) (1 - s)^resistance_shape.")
+    resistance_max: float = key(20.0, doc="Walk: resistance of the worst habitat (s = 0) when "
+                                "resistance is derived from suitability.", low=1)
+    resistance_shape: float = key(1.0, doc="Walk: shape of the suitability-to-resistance "
+                                  "transform (> 1 keeps resistance low in middling habitat).",
+                                  low=0, low_open=True)
+    walk_length: int = key(60, doc="Walk: the most cell-to-cell steps a disperser takes in a "
+                           "year; one still moving after that dies.", unit="cells", low=1)
+    death_per_resistance: float = key(0.0, doc="Walk: hazard per unit resistance and cell "
+                                      "length: entering a cell of resistance R kills with "
+                                      "probability 1 - exp(-death_per_resistance R len).", low=0)
+    settle_exponent: float = key(1.0, doc="Walk: a walker settles on a cell of suitability s "
+                                 "with probability s^settle_exponent (never where capacity is "
+                                 "0).", low=0, low_open=True)
+    heading_bias: float = key(0.0, doc="Walk: heading bias kappa, how strongly a walker keeps "
+                              "its last direction (correlated random walk; 0 = none).", low=0)
+
+
+@dataclass(frozen=True, kw_only=True)
+class OutputConfig:
+    """What to write."""
+
+    rasters: tuple[OutputRaster, ...] = key(OUTPUT_RASTERS, doc="GeoTIFF time stacks to write.")
+    occupancy_threshold: float = key(1.0, doc="A cell is occupied when it holds at least this "
+                                     "many individuals.", unit="individuals", low=0,
+                                     low_open=True)
+    patches_csv: bool = key(True, doc="Write the per-patch ledger patches.csv.")
+
+
+@dataclass(frozen=True, kw_only=True)
+class RiskConfig:
+    """How the run summary measures risk (summary.json, risk.csv)."""
+
+    quasi_extinction: float = key(10.0, doc="Quasi-extinction threshold: a replicate is below "
+                                  "it in a year when abundance < this value.",
+                                  unit="individuals", low=0, low_open=True)
+    focus_areas: Path | None = key(None, doc="Vector file of named focus areas (polygons): risk "
+                                   "and colonisation are also reported for the individuals "
+                                   "inside each.", example="focus_areas.gpkg")
+    focus_name_field: str = key("name", doc="Attribute of the focus areas holding their names "
+                                "(features with the same name form one focus area).")
+    confidence: float = key(0.95, doc="Coverage of the confidence intervals.", low=0, high=1,
+                            low_open=True, high_open=True)
+
+
+@dataclass(frozen=True, kw_only=True)
+class PlanConfig:
+    """What this scenario stands for, for tables and reports."""
+
+    description: str = key("", doc="One line on the plan (e.g. \"two corridors between the north "
+                           "blocks\").")
+
+
+SectionConfig = (RunConfig | GridConfig | HabitatConfig | InitialConfig | GrowthConfig
+                 | DispersalConfig | OutputConfig | RiskConfig | PlanConfig)
+
+SECTION_CLASSES: dict[str, type[SectionConfig]] = {
+    "run": RunConfig, "grid": GridConfig, "habitat": HabitatConfig, "initial": InitialConfig,
+    "growth": GrowthConfig, "dispersal": DispersalConfig, "output": OutputConfig,
+    "risk": RiskConfig, "plan": PlanConfig,
+}
+"""Section name (the TOML table ``[name]``) -> its dataclass, in the order of the reference."""
+
+SECTIONS: dict[str, tuple[str, tuple[Key, ...]]] = {
+    name: (doc_of(cls), keys_of(cls)) for name, cls in SECTION_CLASSES.items()
+}
+"""Section name -> (description, keys), generated from :data:`SECTION_CLASSES`."""
