@@ -36,10 +36,10 @@ from _common import SIGMA_CELLS, best_time, write_result, write_scenario
 from scipy import ndimage
 
 from gridpop._jit import pjit, prange
+from gridpop.config import load_scenario
 from gridpop.demography import MODEL_CODES, step_deterministic
 from gridpop.landscape import build_landscape
 from gridpop.movement import kernel
-from gridpop.scenario import load_scenario
 from gridpop.simulation import cycle
 from gridpop.simulation.cycle import BatchSink, Replicate, simulate_replicate
 from gridpop.simulation.model import build_model

@@ -22,8 +22,8 @@ from pathlib import Path
 
 from _common import write_result, write_scenario
 
+from gridpop.config import load_scenario
 from gridpop.landscape import build_landscape
-from gridpop.scenario import load_scenario
 from gridpop.simulation.model import build_model
 from gridpop.simulation.resources import footprint
 
@@ -48,7 +48,7 @@ RUN = """
 import sys
 from pathlib import Path
 from gridpop.simulation.run import run
-from gridpop.scenario import load_scenario
+from gridpop.config import load_scenario
 run(load_scenario(sys.argv[1]), sys.argv[2])
 print(Path("/proc/self/status").read_text())
 """

@@ -8,7 +8,7 @@ Public API::
 """
 
 from ._version import __version__
-from .scenario import load_scenario
+from .config import load_scenario
 
 
 def run(scenario, out_dir, **kwargs):

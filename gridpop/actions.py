@@ -1,7 +1,7 @@
 """Management actions: a scenario is a base landscape plus its ``[[action]]`` tables, in order.
 
 Each action has an area (a vector file of polygons or lines, or a raster whose cells > 0 count)
-and a kind (:data:`gridpop.scenario.ACTION_KINDS`):
+and a kind (:data:`gridpop.config.ACTION_KINDS`):
 
 - **reserve**: capacity times ``capacity_multiplier``; exempt from every habitat_loss action
   (whatever the order); fire ignition and spread times ``ignition_multiplier`` and
@@ -171,7 +171,7 @@ def apply_actions(scenario, landscape: Landscape) -> Actions:
 
     Parameters
     ----------
-    scenario : gridpop.scenario.Scenario
+    scenario : gridpop.config.Scenario
     landscape : Landscape
         The base landscape (:func:`gridpop.landscape.build_landscape`).
 
@@ -187,7 +187,7 @@ def apply_actions(scenario, landscape: Landscape) -> Actions:
     InputDataError
         An area layer that cannot be read.
     """
-    configs = scenario.extra.get("action", ())
+    configs = scenario.actions
     if not configs:
         return Actions(landscape, (), (), None, None, None, None)
     grid, shape, mask = landscape.grid, landscape.grid.shape, landscape.mask

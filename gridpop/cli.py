@@ -14,7 +14,7 @@ from .errors import GridpopError, OutputExistsError
 
 
 def _scenario_with_overrides(args, path=None):
-    from .scenario import load_scenario
+    from .config import load_scenario
 
     scenario = load_scenario(args.scenario if path is None else path)
     overrides = {k: getattr(args, k) for k in ("years", "replicates", "seed")
@@ -82,7 +82,7 @@ def cmd_report(args) -> int:
 
 
 def cmd_init(args) -> int:
-    from .scenario import template_toml
+    from .config import template_toml
 
     folder = Path(args.dir)
     target = folder / "scenario.toml"

@@ -26,7 +26,7 @@ import scipy.fft
 
 from . import rng
 from ._jit import njit, pjit, prange
-from .scenario import GROWTH_MODELS
+from .config import GROWTH_MODELS
 
 MODEL_CODES = {name: code for code, name in enumerate(GROWTH_MODELS)}
 """Growth model names and the integer codes the kernels take."""

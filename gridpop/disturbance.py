@@ -1,6 +1,6 @@
 """Disturbance regimes: fires and floods drawn per replicate-year, with mortality and recovery.
 
-A scenario's ``[[disturbance]]`` tables (:data:`gridpop.scenario.DISTURBANCE_KINDS`) become one
+A scenario's ``[[disturbance]]`` tables (:data:`gridpop.config.DISTURBANCE_KINDS`) become one
 :class:`Regime`. The engine calls :meth:`Regime.apply` once per replicate-year, before growth.
 Events depend only on (seed, replicate, year, table position) through the counter-based numbers
 of :mod:`gridpop.rng`, never on the population: replicate i of two scenarios on the same
@@ -66,11 +66,11 @@ import numpy as np
 
 from . import rng
 from ._jit import njit
+from .config import FIRE_SIZES, RECOVERY
 from .errors import InputDataError, where
 from .io.rasters import align_raster
 from .io.vectors import read_cells
 from .landscape import Landscape
-from .scenario import FIRE_SIZES, RECOVERY
 
 SIZES = {name: code for code, name in enumerate(FIRE_SIZES)}
 RECOVERIES = {name: code for code, name in enumerate(RECOVERY)}
@@ -585,7 +585,7 @@ def build_regime(scenario, landscape: Landscape, actions=None) -> Regime | None:
 
     Parameters
     ----------
-    scenario : gridpop.scenario.Scenario
+    scenario : gridpop.config.Scenario
     landscape : Landscape
         The landscape the engine runs on (with actions: ``actions.landscape``); its patch labels
         are the ignition units and the patch ids of events.
@@ -602,7 +602,7 @@ def build_regime(scenario, landscape: Landscape, actions=None) -> Regime | None:
     InputDataError
         A hazard, zone or terrain layer that cannot be read, or negative hazard.
     """
-    configs = scenario.extra.get("disturbance", ())
+    configs = scenario.disturbances
     if not configs:
         return None
     tables: list[_Fire | _Flood] = []

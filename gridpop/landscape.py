@@ -21,10 +21,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
+from .config import RESPONSES
 from .errors import InputDataError, ScenarioError, where_layer
 from .io.rasters import Grid, align_raster, load_grid
 from .io.vectors import read_points
-from .scenario import RESPONSES
 
 
 def capacity(suitability: np.ndarray, *, capacity_per_ha: float, cell_area_ha: float,
@@ -175,7 +175,7 @@ def build_landscape(scenario, *, stochastic: bool) -> Landscape:
 
     Parameters
     ----------
-    scenario : gridpop.scenario.Scenario
+    scenario : gridpop.config.Scenario
     stochastic : bool
         Round the initial abundance to whole individuals.
 

@@ -12,16 +12,16 @@ import shapely
 from conftest import UTM, write_raster
 
 from gridpop.actions import apply_actions
-from gridpop.landscape import build_landscape, capacity
-from gridpop.scenario import (
+from gridpop.config import (
     ARRAY_SECTIONS,
-    EXTRA_PARSERS,
     REQUIRED,
-    ScenarioError,
     load_scenario,
     reference_markdown,
     template_toml,
 )
+from gridpop.config.load import parse_tables
+from gridpop.errors import ScenarioError
+from gridpop.landscape import build_landscape, capacity
 
 X0, Y0 = 500_000.0, 4_000_000.0  # top-left corner of the conftest raster, UTM 33N, 30 m cells
 CELL = 30.0
@@ -284,7 +284,7 @@ def test_template_examples_parse_and_reference_documents_every_key(tmp_path, sec
             table["zone"] = ["flood10.gpkg", "flood100.gpkg"]
             for p in table["zone"]:
                 (tmp_path / p).touch()
-        (config,) = EXTRA_PARSERS[section](tmp_path / "s.toml", [table])
+        (config,) = parse_tables(tmp_path / "s.toml", section, [table])
         assert config.kind == kind
         assert f'### kind = "{kind}"' in doc
 

@@ -122,7 +122,7 @@ def test_check_prints_what_was_understood(make_scenario, capsys):
 
 
 def test_init_writes_template_that_parses(tmp_path, make_raster, capsys):
-    from gridpop.scenario import load_scenario
+    from gridpop.config import load_scenario
 
     assert run_cli("init", tmp_path / "proj") == 0
     text = (tmp_path / "proj" / "scenario.toml").read_text()

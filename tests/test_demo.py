@@ -74,7 +74,7 @@ def test_plans_are_the_base_case_plus_actions():
     """Every plan has the base case's landscape, seed, parameters and disturbances; it differs
     only in its description and in the actions it adds to the base case's (kept in order)."""
     base = _scenario("base")
-    kinds = [a.kind for a in base.extra["action"]]
+    kinds = [a.kind for a in base.actions]
     assert kinds == ["reserve", "barrier", "habitat_loss"]
     expected = {k: v for k, v in parameters(base).items() if k not in ("plan", "action")}
     descriptions = {base.plan.description}
@@ -99,10 +99,10 @@ def test_reserve_layouts_have_equal_area():
     for name in ("reserve_one_block", "reserve_small_sites"):
         scenario = _scenario(name)
         model = build_model(scenario, build_landscape(scenario, stochastic=True))
-        new = [c for c, a in zip(scenario.extra["action"], model.actions.areas, strict=True)
+        new = [c for c, a in zip(scenario.actions, model.actions.areas, strict=True)
                if c.kind == "reserve" and "east_reserve" not in str(c.area)]
         assert len(new) == 1
-        area = model.actions.areas[scenario.extra["action"].index(new[0])]
+        area = model.actions.areas[scenario.actions.index(new[0])]
         assert (area <= model.landscape.mask).all()
         cells.append(int(area.sum()))
     assert cells == [400, 400]

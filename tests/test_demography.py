@@ -12,7 +12,7 @@ from scipy import optimize, stats
 from gridpop import demography as dm
 from gridpop import rng
 from gridpop._jit import njit
-from gridpop.scenario import GROWTH_MODELS
+from gridpop.config import GROWTH_MODELS
 
 EXP, BH, RICKER, THETA, CEILING = (dm.MODEL_CODES[m] for m in GROWTH_MODELS)
 

@@ -10,7 +10,7 @@ import pytest
 from scipy import integrate, ndimage, optimize, stats
 from scipy.special import ndtr
 
-from gridpop import rng, scenario
+from gridpop import config, rng
 from gridpop._jit import njit
 from gridpop.movement import kernels, placement
 from gridpop.movement.barrier import thin
@@ -93,8 +93,8 @@ def threads():
 
 def test_registries_match_scenario_schema():
     """The option names the engine maps to codes are exactly those the scenario accepts."""
-    assert tuple(KERNEL_CODES) == scenario.KERNELS
-    assert tuple(EDGE_CODES) == scenario.EDGES
+    assert tuple(KERNEL_CODES) == config.KERNELS
+    assert tuple(EDGE_CODES) == config.EDGES
     assert sorted(KERNEL_CODES.values()) == list(range(len(KERNEL_CODES)))
 
 

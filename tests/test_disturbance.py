@@ -16,10 +16,10 @@ from rasterio.warp import transform_bounds
 from scipy import integrate, ndimage, stats
 
 from gridpop.actions import apply_actions
+from gridpop.config import load_scenario
 from gridpop.disturbance import build_regime, expected_size
 from gridpop.errors import InputDataError, ScenarioError
 from gridpop.landscape import build_landscape
-from gridpop.scenario import load_scenario
 
 ORIGIN = (500_000.0, 4_000_000.0)  # top-left corner of the test grids, UTM 33N, 30 m cells
 

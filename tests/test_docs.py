@@ -2,14 +2,14 @@
 
 from pathlib import Path
 
-from gridpop.scenario import reference_markdown
+from gridpop.config import reference_markdown
 
 ROOT = Path(__file__).resolve().parents[1]
 
 
 def test_scenario_reference_is_current():
-    """docs/scenario.md is generated from gridpop/scenario.py; regenerate it with
-    `python -m gridpop.scenario > docs/scenario.md` after changing the schema."""
+    """docs/scenario.md is generated from the section classes in gridpop/config/; regenerate
+    it with `python -m gridpop.config > docs/scenario.md` after changing the schema."""
     text = (ROOT / "docs" / "scenario.md").read_text()
     assert text.strip() == reference_markdown().strip()
 

@@ -18,11 +18,11 @@ from conftest import UTM, suitability_array
 from scipy import ndimage
 from shapely.geometry import LineString, Point, Polygon, box
 
+from gridpop.config import load_scenario
 from gridpop.errors import InputDataError, ScenarioError
 from gridpop.io.rasters import align_raster, load_grid
 from gridpop.io.vectors import rasterize_vector, read_points
 from gridpop.landscape import build_landscape, capacity, label_patches
-from gridpop.scenario import load_scenario
 
 # conftest's default transform comes from rasterio's from_origin, which composes affines with `*`;
 # affine 3 marks that as a pending deprecation. gridpop.landscape itself raises no such warning.

@@ -222,7 +222,7 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
 
     Parameters
     ----------
-    scenarios : list of gridpop.scenario.Scenario
+    scenarios : list of gridpop.config.Scenario
         The plans, the baseline first. They must share the grid, the horizon and the replicate
         count; the first plan's seed (and ``[risk]`` threshold and confidence) are used for all.
     out_dir : path

@@ -40,11 +40,11 @@ from typing import Any
 import numpy as np
 import rasterio.features
 
+from ..config import SECTIONS
 from ..errors import InputDataError, ScenarioError, where
 from ..io.rasters import fmt_bounds
 from ..io.results import LEDGER_FIELDS, write_json, write_stack
 from ..io.vectors import read_vector
-from ..scenario import ARRAY_SECTIONS, SECTIONS
 from .metrics import (
     colonisation_probability,
     expected_minimum,
@@ -187,8 +187,8 @@ def parameters(scenario) -> dict:
     tables as lists; paths as absolute path strings."""
     out: dict[str, Any] = {name: dataclasses.asdict(getattr(scenario, name))
                            for name in SECTIONS}
-    for name in ARRAY_SECTIONS:
-        out[name] = [dataclasses.asdict(c) for c in scenario.extra.get(name, ())]
+    out["disturbance"] = [dataclasses.asdict(c) for c in scenario.disturbances]
+    out["action"] = [dataclasses.asdict(c) for c in scenario.actions]
     return json.loads(json.dumps(out, default=str))
 
 
@@ -196,7 +196,7 @@ def plan(scenario) -> dict:
     """Name (file stem), description and actions (kind, absolute area path) of a scenario."""
     return {"name": scenario.path.stem, "description": scenario.plan.description,
             "actions": [{"kind": c.kind, "area": str(c.area)}
-                        for c in scenario.extra.get("action", ())]}
+                        for c in scenario.actions]}
 
 
 def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray | None) -> dict:
@@ -204,7 +204,7 @@ def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray |
 
     Parameters
     ----------
-    scenario : gridpop.scenario.Scenario
+    scenario : gridpop.config.Scenario
     model : gridpop.simulation.model.Model
     ledger : (R, T + 1, P + 1, F) ndarray
         The combined ledger (index 0 the landscape, 1..P the patches; fields

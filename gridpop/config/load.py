@@ -2,7 +2,7 @@
 checks across keys, into a :class:`Scenario`.
 
 Values stay in the units a user thinks in (metres, hectares, years); the conversion to cells
-happens in one place, :func:`gridpop.engine.build_model`.
+happens in one place, :func:`gridpop.simulation.model.build_model`.
 """
 
 from __future__ import annotations

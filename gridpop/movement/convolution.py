@@ -14,7 +14,7 @@ import scipy.fft as sfft
 from scipy import ndimage
 
 from .._jit import njit, pjit, prange
-from ..scenario import EDGES
+from ..config import EDGES
 from .kernels import Kernel
 
 FFT_FLOOR = 1e-12

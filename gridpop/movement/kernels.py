@@ -29,7 +29,7 @@ import numpy as np
 from scipy.special import erf, lambertw, ndtr
 
 from .._jit import njit, pjit, prange
-from ..scenario import KERNELS
+from ..config import KERNELS
 
 KERNEL_CODES = {name: code for code, name in enumerate(KERNELS)}
 """Integer code of each kernel shape (the choices of ``[dispersal] kernel``) in the kernels."""

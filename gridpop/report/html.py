@@ -23,8 +23,8 @@ import json
 from pathlib import Path
 
 from .._version import __version__
+from ..config import ARRAY_SECTIONS, SECTIONS
 from ..errors import InputDataError
-from ..scenario import ARRAY_SECTIONS, SECTIONS
 from .assumptions import CAPACITY, CONNECTION, WALK_CAPACITY, assumptions, fmt
 from .plots import Plan, plot_compare, plot_run, read_plans, relative
 

@@ -53,10 +53,10 @@ from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
 from ..actions import apply_actions
 from ..analysis.metrics import binomial_interval
+from ..config import load_scenario
 from ..errors import GridpopError, InputDataError, RunStateError
 from ..io.results import LEDGER_FIELDS
 from ..landscape import build_landscape
-from ..scenario import load_scenario
 
 OKABE_ITO = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000",
              "#F0E442")
@@ -409,7 +409,7 @@ def plan_cells(plan: Plan) -> PlanCells | None:
                       "habitat and no action areas.", stacklevel=2)
         return None
     habitat = actions.capacity_for_year(int(plan.summary["years"]) - 1) > 0
-    configs = scenario.extra.get("action", ())
+    configs = scenario.actions
     return PlanCells(habitat, tuple((c.kind, relative(c.area, path.parent), cells)
                                     for c, cells in zip(configs, actions.areas, strict=True)))
 

@@ -12,9 +12,9 @@ from typing import Any
 import numpy as np
 
 from ..analysis.summary import write_summary
+from ..config import OUTPUT_RASTERS
 from ..io.results import write_events_csv, write_json, write_ledger_csv, write_stack, year_labels
 from ..movement.connectivity import corridor_share
-from ..scenario import OUTPUT_RASTERS
 from .model import Model
 
 
@@ -86,7 +86,7 @@ def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
         total += visits[t]
     everywhere = float(total.sum())
     corridors = {}
-    for cfg, cells in zip(scenario.extra.get("action", ()), model.actions.areas, strict=True):
+    for cfg, cells in zip(scenario.actions, model.actions.areas, strict=True):
         if cfg.kind != "corridor":
             continue
         of_visits = float(total[cells].sum()) / everywhere if everywhere else None
