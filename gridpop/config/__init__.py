@@ -15,7 +15,7 @@ from .kinds import (
     ARRAY_SECTIONS,
     DISTURBANCE_KINDS,
     FIRE_SIZES,
-    RECOVERIES,
+    RECOVERY,
     ActionConfig,
     BarrierConfig,
     CorridorConfig,
@@ -57,7 +57,7 @@ from .sections import (
 
 __all__ = [
     "ACTION_KINDS", "ARRAY_SECTIONS", "DISPERSAL_METHODS", "DISTURBANCE_KINDS", "EDGES",
-    "FIRE_SIZES", "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS", "RECOVERIES", "REQUIRED",
+    "FIRE_SIZES", "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED",
     "RESPONSES", "SECTIONS",
     "ActionConfig", "BarrierConfig", "CorridorConfig", "DispersalConfig", "DispersalMethod",
     "DisturbanceConfig", "Edge", "FireConfig", "FireSize", "FloodConfig", "GridConfig",

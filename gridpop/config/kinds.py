@@ -20,7 +20,7 @@ FireSize = Literal["fraction", "exponential", "power_law"]
 Recovery = Literal["linear", "exponential"]
 
 FIRE_SIZES: tuple[FireSize, ...] = get_args(FireSize)
-RECOVERIES: tuple[Recovery, ...] = get_args(Recovery)
+RECOVERY: tuple[Recovery, ...] = get_args(Recovery)
 
 
 def _mortality(what: str) -> Any:
@@ -117,16 +117,6 @@ class FloodConfig:
     recovery_years: float = _recovery_years()
 
 
-def _area() -> Any:
-    return key(doc="Where the action applies: a vector file (polygons, lines) or a raster (cells "
-               "> 0).", example="action.gpkg")
-
-
-def _buffer_m() -> Any:
-    return key(0.0, doc="Buffer vector features by this distance first (gives lines a width). "
-               "Vector areas only.", unit="m", low=0)
-
-
 def _all_touched(default: bool) -> Any:
     return key(default, doc="Take every cell a vector feature touches, not only cells whose "
                "centre it covers.")
@@ -138,15 +128,26 @@ def _start_year() -> Any:
 
 
 @dataclass(frozen=True, kw_only=True)
-class ReserveConfig:
+class AreaAction:
+    """What every action kind has first: its label and kind, and the area it applies to. Each
+    kind narrows ``kind`` to its own name (a field keeps its place when a subclass redefines
+    it)."""
+
+    label: str
+    kind: str
+    area: Path = key(doc="Where the action applies: a vector file (polygons, lines) or a raster "
+                     "(cells > 0).", example="action.gpkg")
+    buffer_m: float = key(0.0, doc="Buffer vector features by this distance first (gives lines a "
+                          "width). Vector areas only.", unit="m", low=0)
+    all_touched: bool = _all_touched(False)
+
+
+@dataclass(frozen=True, kw_only=True)
+class ReserveConfig(AreaAction):
     """Protects habitat: multiplies capacity, exempts the area from every habitat_loss action,
     and may suppress fire."""
 
-    label: str
     kind: Literal["reserve"]
-    area: Path = _area()
-    buffer_m: float = _buffer_m()
-    all_touched: bool = _all_touched(False)
     capacity_multiplier: float = key(1.0, doc="Multiplier on the capacity of the area.", low=0)
     ignition_multiplier: float = key(1.0, doc="Multiplier on the fire ignition rate in the area "
                                      "(fire suppression < 1).", low=0)
@@ -155,14 +156,10 @@ class ReserveConfig:
 
 
 @dataclass(frozen=True, kw_only=True)
-class CorridorConfig:
+class CorridorConfig(AreaAction):
     """Sets or raises suitability along the area and lowers dispersal resistance there."""
 
-    label: str
     kind: Literal["corridor"]
-    area: Path = _area()
-    buffer_m: float = _buffer_m()
-    all_touched: bool = _all_touched(False)
     target_suitability: float | None = key(None, doc="Suitability along the corridor (cells "
                                            "already better keep theirs). Not given: suitability "
                                            "unchanged.", low=0, high=1, example=0.6)
@@ -171,27 +168,20 @@ class CorridorConfig:
 
 
 @dataclass(frozen=True, kw_only=True)
-class BarrierConfig:
+class BarrierConfig(AreaAction):
     """A line or area dispersers cross only with a mortality (roads, fences)."""
 
-    label: str
     kind: Literal["barrier"]
-    area: Path = _area()
-    buffer_m: float = _buffer_m()
     all_touched: bool = _all_touched(True)
     crossing_mortality: float = key(1.0, doc="Probability that a disperser dies entering a "
                                     "barrier cell (1 = impassable).", low=0, high=1)
 
 
 @dataclass(frozen=True, kw_only=True)
-class RestorationConfig:
+class RestorationConfig(AreaAction):
     """Suitability rises in the area from start_year to target_suitability over ramp_years."""
 
-    label: str
     kind: Literal["restoration"]
-    area: Path = _area()
-    buffer_m: float = _buffer_m()
-    all_touched: bool = _all_touched(False)
     target_suitability: float = key(doc="Suitability reached (cells already better keep "
                                     "theirs).", low=0, high=1, example=0.8)
     start_year: int = _start_year()
@@ -200,15 +190,11 @@ class RestorationConfig:
 
 
 @dataclass(frozen=True, kw_only=True)
-class HabitatLossConfig:
+class HabitatLossConfig(AreaAction):
     """Suitability falls in the area, outside every reserve, from start_year to
     target_suitability over ramp_years."""
 
-    label: str
     kind: Literal["habitat_loss"]
-    area: Path = _area()
-    buffer_m: float = _buffer_m()
-    all_touched: bool = _all_touched(False)
     target_suitability: float = key(0.0, doc="Suitability left (cells already worse keep "
                                     "theirs).", low=0, high=1)
     start_year: int = _start_year()
