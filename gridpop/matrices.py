@@ -21,7 +21,7 @@ numbers derived from it (Caswell 2001 ch. 4, 5 and 9):
   lambda = 1 (within ``|ln lambda| < 1e-7``) both logarithms vanish and the generation time is
   their limit, ``lambda <v, w> / <v, F w>``, the mean age of the parents of the offspring born in
   the stable population (derived here: scale F by c and differentiate; this is also the measure of
-  Bienvenu and Legendre 2015, American Naturalist 185:834, from memory);
+  Bienvenu and Legendre 2015, American Naturalist, from memory);
 - the damping ratio ``lambda / |lambda_2|``: the distance to the stable distribution shrinks by
   about this factor a year (Caswell 2001 ch. 4);
 - elasticities ``e_ij = a_ij s_ij / lambda`` with sensitivities ``s_ij = v_i w_j / <v, w>``: the
@@ -38,8 +38,9 @@ stages) get reproductive value 0 and elasticity 0 while their own survival is be
 the breeding stages; when it is above, A's dominant eigenvalue is that survival, the stable
 population holds only non-breeders and :func:`describe` says so. If the newborn stage cannot
 reach the stages that set lambda (its reproductive value is 0), reproductive values are scaled so
-that the largest is 1. If the dominant eigenvalue is defective (blocks sharing it exactly),
-lambda is not differentiable and the elasticities are NaN.
+that the largest is 1. If the dominant eigenvalue is defective (blocks sharing it exactly, or
+so nearly that ``<v, w> < 1e-10 |v| |w|``), lambda is not (numerically) differentiable and the
+elasticities are NaN.
 
 Everything here is pure numpy/scipy on small arrays; errors are plain ``ValueError`` whose message
 starts with the parameter's name (the scenario layer adds the file and key).
