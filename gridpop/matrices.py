@@ -49,6 +49,7 @@ starts with the parameter's name (the scenario layer adds the file and key).
 from __future__ import annotations
 
 import math
+import numbers
 from collections.abc import Sequence
 from typing import Any, NamedTuple
 
@@ -197,10 +198,11 @@ def diagnostics(transitions: Any, fecundity: Any) -> MatrixDiagnostics:
 
 
 def _positive(name: str, value: Any) -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float) or not (
-            math.isfinite(value) and value > 0):
+    number = float(value) if isinstance(value, numbers.Real) and not isinstance(
+        value, bool) else math.nan
+    if not (math.isfinite(number) and number > 0):
         raise ValueError(f"{name}: must be a finite number > 0, got {value!r}")
-    return float(value)
+    return number
 
 
 def weibull_leslie(ages: int, shape: float, mean_lifespan_years: float,

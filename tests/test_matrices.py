@@ -386,6 +386,7 @@ def test_weibull_leslie_extreme_shapes_stay_finite(shape):
     ((3, 0.0, 3.0, [1, 1, 1]), "shape"),
     ((3, float("nan"), 3.0, [1, 1, 1]), "shape"),
     ((3, -1.0, 3.0, [1, 1, 1]), "shape"),
+    ((3, True, 3.0, [1, 1, 1]), "shape"),
     ((3, 1.0, 0.0, [1, 1, 1]), "mean_lifespan_years"),
     ((3, 1.0, float("inf"), [1, 1, 1]), "mean_lifespan_years"),
     ((3, 1.0, "3", [1, 1, 1]), "mean_lifespan_years"),
@@ -398,6 +399,12 @@ def test_weibull_leslie_extreme_shapes_stay_finite(shape):
 def test_weibull_leslie_refuses_bad_values(args, name):
     with pytest.raises(ValueError, match=f"^{name}:"):
         mx.weibull_leslie(*args)
+
+
+def test_weibull_leslie_takes_numpy_numbers():
+    """numpy integers and floats are numbers like Python's (common practice)."""
+    t, f = mx.weibull_leslie(np.int64(3), np.float32(1.0), np.float64(2.0), np.ones(3))
+    np.testing.assert_allclose(np.diagonal(t, -1), math.exp(-0.5), rtol=1e-13)
 
 
 @pytest.mark.parametrize(("transitions", "fecundity", "name", "words"), [
