@@ -104,48 +104,32 @@ def test_run_killed_then_resumed_or_complete(one_run, tmp_path, moment, opens, k
     same_results(whole, out)
 
 
-@pytest.fixture(scope="module")
-def two_plans(tmp_path_factory):
-    """A base plan and a reserve plan in batches of two replicates, and their uninterrupted
-    comparison."""
-    tmp = tmp_path_factory.mktemp("compare")
-    paths = write_plans(tmp, [("base", 5, None, ""), ("reserve", 5, 2.0, "")])
-    for p in paths:
+def test_compare_killed_in_second_plan_then_while_plotting_resumes_to_same(tmp_path):
+    """A comparison killed while its second plan runs (its first batch done), then its resume
+    killed while the comparison's own figures are drawn, then resumed to the end: nothing is
+    published before; the first plan's run is kept whole and never run again, the second
+    continues from its finished batch; the result is that of an uninterrupted comparison."""
+    paths = write_plans(tmp_path, [("base", 5, None, ""), ("reserve", 5, 2.0, "")])
+    for p in paths:  # batches of two replicates
         p.write_text(p.read_text().replace("[run]\n", "[run]\nbatch_size = 2\n"))
-    assert cli("compare", *paths, "--out", tmp / "whole") == 0
-    return paths, tmp / "whole"
-
-
-def test_compare_killed_in_second_plan_resumes_keeping_the_first(two_plans, tmp_path):
-    """Killed while the second plan runs (its first batch done): nothing published; the first
-    plan's run is kept whole and untouched by the resume, the second continues from its
-    finished batch; the result is that of an uninterrupted comparison."""
-    paths, whole = two_plans
+    assert cli("compare", *paths, "--out", tmp_path / "whole") == 0
     out, work = tmp_path / "c", tmp_path / ".c.partial"
+
     assert kill_when(["compare", *paths, "--out", out],
                      exists(work, ".reserve.partial/batches/00001.*.tmp"), tmp_path / "err")
-    assert not out.exists()
-    assert complete(work / "base", "run.json")
-    first = (work / "base" / "run.json").read_bytes()
+    assert not out.exists() and complete(work / "base", "run.json")
+    assert not (work / "reserve").exists()
     assert (work / ".reserve.partial" / "batches" / "00000" / "done").is_file()
+    first = (work / "base" / "run.json").read_bytes()
 
-    assert cli("compare", *paths, "--out", out, "--resume") == 0
-    assert (out / "base" / "run.json").read_bytes() == first  # kept, not run again
-    execution = json.loads((out / "reserve" / "run.json").read_text())["execution"]
-    assert execution["resumed_batches"] >= 1
-    assert not work.exists() and complete(out, "compare.json")
-    same_results(whole, out)
-
-
-def test_compare_killed_while_plotting_resumes_with_both_plans(two_plans, tmp_path):
-    """Killed while the comparison's own figures are drawn: both plans are kept, the comparison
-    files and figures are written again, the same as uninterrupted."""
-    paths, whole = two_plans
-    out, work = tmp_path / "c", tmp_path / ".c.partial"
-    assert kill_when(["compare", *paths, "--out", out], exists(work, "plots/*.png"),
+    assert kill_when(["compare", *paths, "--out", out, "--resume"], exists(work, "plots/*.png"),
                      tmp_path / "err")
     assert not out.exists() and not (work / "compare.json").exists()
-    kept = {p: (work / p / "run.json").read_bytes() for p in ("base", "reserve")}
+    assert (work / "base" / "run.json").read_bytes() == first  # kept, not run again
+    second = (work / "reserve" / "run.json").read_bytes()
+    assert json.loads(second)["execution"]["resumed_batches"] >= 1
+
     assert cli("compare", *paths, "--out", out, "--resume") == 0
-    assert {p: (out / p / "run.json").read_bytes() for p in kept} == kept
-    same_results(whole, out)
+    assert [(out / p / "run.json").read_bytes() for p in ("base", "reserve")] == [first, second]
+    assert not work.exists() and complete(out, "compare.json")
+    same_results(tmp_path / "whole", out)
