@@ -97,7 +97,12 @@ def _add_run_overrides(p):
     p.add_argument("--seed", type=int, help="override [run] seed")
 
 
-def _add_execution_options(p, *, resume: str):
+def _add_run_options(p, *, resume: str):
+    """The options `run` and `compare` share: output, execution and ``--resume`` (its help)."""
+    _add_run_overrides(p)
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
+    p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
     p.add_argument("--workers", type=int, metavar="N", help="run batches of replicates on a "
                    "local Dask cluster of N worker processes (default: in this process)")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run batches on the Dask cluster at "
@@ -124,12 +129,8 @@ def parser() -> argparse.ArgumentParser:
     p = sub.add_parser("run", help="run a scenario")
     p.add_argument("scenario")
     p.add_argument("--out", help="output folder (default results/<scenario name>)")
-    _add_run_overrides(p)
-    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
-    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
-    p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
-    _add_execution_options(p, resume="continue an interrupted run of the same scenario into "
-                           "the same --out, keeping its finished batches")
+    _add_run_options(p, resume="continue an interrupted run of the same scenario into the "
+                     "same --out, keeping its finished batches")
     p.set_defaults(func=cmd_run)
 
     p = sub.add_parser("compare", help="run plans with common random numbers and compare them "
@@ -137,12 +138,8 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("scenarios", nargs="+", metavar="SCENARIO",
                    help="scenario files; the first is the baseline")
     p.add_argument("--out", required=True, help="output folder")
-    _add_run_overrides(p)
-    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
-    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
-    p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
-    _add_execution_options(p, resume="continue an interrupted comparison of the same plans "
-                           "into the same --out, keeping its finished plans and batches")
+    _add_run_options(p, resume="continue an interrupted comparison of the same plans into "
+                     "the same --out, keeping its finished plans and batches")
     p.set_defaults(func=cmd_compare)
 
     p = sub.add_parser("report", help="write a self-contained HTML report of a run or "
