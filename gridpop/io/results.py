@@ -11,6 +11,7 @@ resume.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import json
 import os
@@ -166,10 +167,19 @@ def write_events_csv(path: Path, events) -> None:
             w.writerow([rep, year, kind, patches, cells, f"{deaths:.12g}"])
 
 
-def write_json(path: Path, data: dict) -> None:
-    tmp = path.with_suffix(path.suffix + ".tmp")
-    tmp.write_text(json.dumps(data, indent=2, default=_jsonable) + "\n")
+@contextlib.contextmanager
+def whole_file(path: Path):
+    """Yield a temporary path beside ``path`` to write, and rename it to ``path`` when the block
+    ends without error: a reader (or a kill) sees the old file or the new one, never part of
+    it."""
+    tmp = path.with_name(path.name + ".tmp")
+    yield tmp
     os.replace(tmp, path)
+
+
+def write_json(path: Path, data: dict) -> None:
+    with whole_file(path) as tmp:
+        tmp.write_text(json.dumps(data, indent=2, default=_jsonable) + "\n")
 
 
 def _jsonable(obj):

@@ -55,7 +55,7 @@ from ..actions import apply_actions
 from ..analysis.metrics import binomial_interval
 from ..config import load_scenario
 from ..errors import GridpopError, InputDataError, RunStateError
-from ..io.results import LEDGER_FIELDS
+from ..io.results import LEDGER_FIELDS, whole_file
 from ..landscape import build_landscape
 
 OKABE_ITO = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000",
@@ -572,7 +572,8 @@ def map_figure(panels: list[tuple[str, MapLayer, list]], *, cmap: str, vmin: flo
 
 
 def _save(fig: Figure, path: Path) -> Path:
-    fig.savefig(path, dpi=DPI)
+    with whole_file(path) as tmp:  # a folder drawn again keeps whole figures if interrupted
+        fig.savefig(tmp, dpi=DPI, format="png")
     return path
 
 
@@ -640,8 +641,7 @@ def plot_run(run_dir, manifest: dict | None = None) -> list[Path]:
     occupancy.png (final-year occupancy probability), colonisation.png (median colonisation
     year), both maps over the habitat of the last year with the footprints of the plan's actions
     and its focus areas, and ledger.png (births, deaths, disturbance deaths, net movement per
-    year). ``manifest`` stands for run.json (a run's working folder, drawn before it is
-    published).
+    year). ``manifest`` stands for run.json (a working folder, drawn before it is published).
     """
     run_dir = Path(run_dir)
     return _write(run_dir, _figures([read_run(run_dir, manifest)]))
