@@ -301,8 +301,8 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
         the folder is published.
     workers, scheduler, force
         How each plan's run is carried out (:func:`gridpop.simulation.run.run`): on a local Dask
-        cluster
-        of ``workers`` processes, on the cluster at ``scheduler``, or despite the room check.
+        cluster of ``workers`` processes, on the cluster at ``scheduler``, or despite the room
+        check.
     resume : bool
         Continue the interrupted comparison into ``out_dir``: finished plans are kept, the
         unfinished plan resumes from its finished batches. Refused when the plans or settings
