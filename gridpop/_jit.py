@@ -3,16 +3,72 @@
 ``cache=True`` keeps compiled kernels on disk (``__pycache__`` beside the module), so the second
 run of a session starts without compiling. ``fastmath`` is off: results must be bit-identical
 across machines with the same numba build, and NaN handling must stay IEEE.
+
+Time to first result (an empty cache) is mostly compiling, so:
+
+- A :func:`pjit` kernel has two variants, each compiled on first use: a serial one for grids
+  below :data:`PARALLEL_CELLS` cells and a ``parallel=True`` one above. Compiling a parallel kernel
+  costs several times the serial one and, on a small grid, running it in parallel saves less
+  than starting the threads costs; a run compiles only the variant its grid uses.
+- numba compiles a separate copy of a kernel for every literal constant argument it is called
+  with from another kernel (``uniform(key, 0)``, ``uniform(key, 1)``): kernels pass integer
+  constants as typed values (``uniform(key, np.int64(0))``), and cast a ``prange`` index
+  (unsigned) with ``np.int64`` before handing it on, so that callees are compiled once.
 """
 
 from __future__ import annotations
 
+import types
+
 import numba
+import numpy as np
 
 njit = numba.njit(cache=True, nogil=True)
 """Serial kernel."""
 
-pjit = numba.njit(cache=True, nogil=True, parallel=True)
-"""Kernel whose ``numba.prange`` loops run on numba's thread pool."""
-
 prange = numba.prange
+
+PARALLEL_CELLS = 32768
+"""A :func:`pjit` kernel runs in parallel on a grid of at least this many cells (and when numba
+has more than one thread), serially on a smaller one."""
+
+
+class SizedKernel:
+    """A kernel with a serial and a parallel variant, each compiled on its first call.
+
+    Both run the same code, whose ``prange`` loops the serial variant runs as plain loops; the
+    kernels are written so that their results do not depend on the number of threads, so the two
+    give identical results. Called from Python only: another kernel cannot call it.
+    """
+
+    def __init__(self, func):
+        self.py_func = func
+        self.__doc__, self.__name__ = func.__doc__, func.__name__
+        self.parallel = numba.njit(cache=True, nogil=True, parallel=True)(func)
+        # numba's cache tells functions apart by qualified name, not by options: the serial
+        # variant is a copy of the function under its own name
+        serial = types.FunctionType(func.__code__, func.__globals__, func.__name__,
+                                    func.__defaults__, func.__closure__)
+        serial.__qualname__ = f"{func.__qualname__}_serial"
+        self.serial = njit(serial)
+
+    def __call__(self, *args):
+        return self.variant(*args)(*args)
+
+    def variant(self, *args):
+        """The dispatcher that :meth:`__call__` uses for these arguments: the grid is the first
+        two axes of the first array argument of two or more dimensions; a kernel without one
+        (its work not a grid) runs in parallel."""
+        if numba.get_num_threads() == 1:
+            return self.serial
+        for a in args:
+            if isinstance(a, np.ndarray) and a.ndim >= 2:
+                big = a.shape[0] * a.shape[1] >= PARALLEL_CELLS
+                return self.parallel if big else self.serial
+        return self.parallel
+
+
+def pjit(func) -> SizedKernel:
+    """Kernel whose ``numba.prange`` loops run on numba's thread pool on large arrays (see
+    :class:`SizedKernel`)."""
+    return SizedKernel(func)

@@ -201,7 +201,7 @@ def _split_row_stochastic(n, out, births, deaths, s, allee_a, key_survival, key_
         mean = births[j]
         ck = rng.cell_key(key_births, cell)
         if mean < 10.0:
-            b = rng.poisson_inversion(mean, exp_neg[j], rng.uniform(ck, 0))
+            b = rng.poisson_inversion(mean, exp_neg[j], rng.uniform(ck, np.int64(0)))
         else:
             b = rng.poisson(mean, ck)
         out[j] = surv + b
@@ -252,7 +252,7 @@ def _standard_normals(key, out):
     for i in prange(out.shape[0]):
         row = out[i]
         for j in range(nx):
-            row[j] = rng.normal(rng.cell_key(key, i * nx + j), 0)
+            row[j] = rng.normal(rng.cell_key(key, i * nx + j), np.int64(0))
 
 
 @pjit

@@ -129,8 +129,9 @@ def _push(heap_t, heap_c, size, t, c):
     if size == len(heap_t):
         bigger_t = np.empty(2 * size)
         bigger_c = np.empty(2 * size, np.int64)
-        bigger_t[:size] = heap_t
-        bigger_c[:size] = heap_c
+        for m in range(size):  # a loop, not a slice copy: no shape check to compile
+            bigger_t[m] = heap_t[m]
+            bigger_c[m] = heap_c[m]
         heap_t, heap_c = bigger_t, bigger_c
     i = size
     heap_t[i] = t
@@ -189,10 +190,24 @@ def _reach(c, t, fid, fkey, spread, nx, ny, fire_of, heap_t, heap_c, size):
                 continue
             fire_of[nb] = -fid
             ck = rng.cell_key(fkey, nb)
-            if rng.uniform(ck, 0) < q:
+            if rng.uniform(ck, np.int64(0)) < q:
                 size, heap_t, heap_c = _push(heap_t, heap_c, size,
-                                             t - math.log(rng.uniform(ck, 1)) / q, nb)
+                                             t - math.log(rng.uniform(ck, np.int64(1))) / q, nb)
     return size, heap_t, heap_c
+
+
+@njit
+def _first_above(a, lo, hi, x):
+    """The first index ``i`` in ``lo..hi`` with ``a[i] > x`` (``hi`` if none), ``a[lo:hi]``
+    sorted: ``lo + np.searchsorted(a[lo:hi], x, side="right")`` for a NaN-free ``a``, by
+    bisection (numba's searchsorted, which orders NaNs, takes seconds to compile)."""
+    while lo < hi:
+        mid = (lo + hi) // 2
+        if a[mid] > x:
+            hi = mid
+        else:
+            lo = mid + 1
+    return lo
 
 
 @njit
@@ -213,9 +228,9 @@ def _burn_year(rkey, rate, ptr, cells, cumw, size_code, fraction_cells, mean_cel
     returns F. Patch p's candidate ignition cells are ``cells[ptr[p]:ptr[p + 1]]`` with
     cumulative weights ``cumw`` (running over all patches).
     """
-    count_key = rng.cell_key(rkey, 0)
-    ignite_key = rng.cell_key(rkey, 1)
-    spread_key = rng.cell_key(rkey, 2)
+    count_key = rng.cell_key(rkey, np.int64(0))
+    ignite_key = rng.cell_key(rkey, np.int64(1))
+    spread_key = rng.cell_key(rkey, np.int64(2))
     heap_t = np.empty(64)
     heap_c = np.empty(64, np.int64)
     fires = 0
@@ -228,12 +243,11 @@ def _burn_year(rkey, rate, ptr, cells, cumw, size_code, fraction_cells, mean_cel
         total = cumw[hi - 1] - base
         for m in range(k):
             ck = rng.cell_key(rng.cell_key(ignite_key, p), m)
-            x = base + rng.uniform(ck, 0) * total
-            idx = lo + np.searchsorted(cumw[lo:hi], x, side="right")
-            c0 = cells[min(idx, hi - 1)]
+            x = base + rng.uniform(ck, np.int64(0)) * total
+            c0 = cells[min(_first_above(cumw, lo, hi, x), hi - 1)]
             if fire_of[c0] > 0:
                 continue
-            u = rng.uniform(ck, 1)
+            u = rng.uniform(ck, np.int64(1))
             if size_code == 0:
                 s = fraction_cells[p]
             elif size_code == 1:
@@ -246,7 +260,7 @@ def _burn_year(rkey, rate, ptr, cells, cumw, size_code, fraction_cells, mean_cel
             fire_of[c0] = fires
             burned = 1
             size, heap_t, heap_c = _reach(c0, 0.0, fires, fkey, spread, nx, ny, fire_of,
-                                          heap_t, heap_c, 0)
+                                          heap_t, heap_c, np.int64(0))
             while burned < target and size > 0:
                 t, c, size = _pop(heap_t, heap_c, size)
                 fire_of[c] = fires

@@ -177,7 +177,7 @@ def poisson(lam, ckey):
     if not lam > 0.0:
         return 0
     if lam < 10.0:
-        return poisson_inversion(lam, math.exp(-lam), uniform(ckey, 0))
+        return poisson_inversion(lam, math.exp(-lam), uniform(ckey, np.int64(0)))
     slam = math.sqrt(lam)
     loglam = math.log(lam)
     b = 0.931 + 2.53 * slam
@@ -303,7 +303,7 @@ def binomial_with_table(n, p, p_table, table, ckey):
     BERNOULLI_MAX``, else :func:`binomial`. For many draws of which most share one
     probability."""
     if n <= BERNOULLI_MAX and p == p_table:
-        return binomial_inversion(table, n, uniform(ckey, 0))
+        return binomial_inversion(table, n, uniform(ckey, np.int64(0)))
     return binomial(n, p, ckey)
 
 
@@ -312,7 +312,7 @@ def _binomial_low(n, p, ckey):
     """Binomial(n, p) for 0 < p <= 0.5."""
     q = 1.0 - p
     if n * p < 10.0:
-        u = uniform(ckey, 0)
+        u = uniform(ckey, np.int64(0))
         ratio = p / q
         a = (n + 1) * ratio
         r = math.exp(n * math.log1p(-p))

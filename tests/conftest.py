@@ -12,6 +12,8 @@ import pytest
 import rasterio
 from rasterio.transform import from_origin
 
+from gridpop import _jit
+
 UTM = "EPSG:32633"  # WGS 84 / UTM zone 33N, a projected CRS in metres
 
 
@@ -29,6 +31,14 @@ def write_raster(path, data, *, crs=UTM, transform=None, nodata=-9999.0, dtype="
     with rasterio.open(path, "w", **profile) as dst:
         dst.write(data.astype(dtype))
     return Path(path)
+
+
+@pytest.fixture
+def parallel_kernels(monkeypatch):
+    """The parallel variant of every ``pjit`` kernel whenever numba has more than one thread,
+    even on the small grids of the tests (:class:`gridpop._jit.SizedKernel`): tests that compare
+    1 and 2 threads then compare the serial and the parallel code."""
+    monkeypatch.setattr(_jit, "PARALLEL_CELLS", 0)
 
 
 @pytest.fixture

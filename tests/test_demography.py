@@ -364,7 +364,7 @@ def test_noise_rejects_bad_values(kwargs, key):
         dm.EnvironmentalNoise(**args)
 
 
-def test_thread_count_invariance():
+def test_thread_count_invariance(parallel_kernels):
     """Kernels and noise fields are bit-identical with 1 and 2 numba threads (counter-based
     random numbers; reproducibility requirement of the project)."""
     n = np.floor(np.random.default_rng(0).gamma(0.7, 40.0, (97, 61)))

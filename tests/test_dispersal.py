@@ -80,8 +80,9 @@ def scatter(d, k, edge):
 
 
 @pytest.fixture
-def threads():
-    """Restore numba's thread count after a test that changes it."""
+def threads(parallel_kernels):
+    """Restore numba's thread count after a test that changes it (with 2 threads, the
+    parallel variants of the kernels run)."""
     n = numba.get_num_threads()
     yield
     numba.set_num_threads(n)

@@ -5,12 +5,13 @@ from __future__ import annotations
 import subprocess
 import sys
 
+import numba
 import numpy as np
 import pytest
 from conftest import FIRE, read_rows, scenario_text
 
 import gridpop
-from gridpop import demography, rng
+from gridpop import _jit, demography, rng
 from gridpop.io.results import LEDGER_FIELDS
 from gridpop.landscape import build_landscape
 from gridpop.movement import NO_RETENTION
@@ -79,7 +80,8 @@ def test_same_seed_bit_identical_whatever_threads_and_batches(make_scenario, tmp
             'kernel = "exponential"', f'kernel = "{kernel}"')
         scen = make_scenario(text, name=f"s{threads}.toml")
         out = tmp_path / f"r{threads}"
-        code = ("import sys, gridpop; gridpop.run(sys.argv[1], sys.argv[2])")
+        code = ("import sys, gridpop, gridpop._jit as j; j.PARALLEL_CELLS = 0; "  # parallel code
+                "gridpop.run(sys.argv[1], sys.argv[2])")
         subprocess.run([sys.executable, "-c", code, str(scen), str(out)], check=True,
                        env={"NUMBA_NUM_THREADS": str(threads), "PATH": "/usr/bin:/bin",
                             "HOME": str(tmp_path)})
@@ -273,6 +275,36 @@ def test_barrier_crossing_mortality_thins_crossers_exactly(make_scenario, make_r
                           edits=(("env_sd = 0.3", "env_sd = 0.0"), ("years = 8", "years = 1")))
     assert a[(0, 1, p)][5] > 0
     assert b[(0, 1, p)][5] == pytest.approx(0.5 * a[(0, 1, p)][5], rel=1e-9)
+
+
+def test_serial_and_parallel_variants_agree():
+    """A ``pjit`` kernel runs its parallel variant on a grid of at least ``PARALLEL_CELLS``
+    cells when numba has several threads, its serial variant below, and the two give
+    bit-identical results (fixed chunking of the sums, counter-based random numbers: common
+    practice for reproducible parallel Monte Carlo)."""
+    r = np.random.default_rng(8)
+    ny, nx, n_patches = 190, 180, 3
+    assert ny * nx >= _jit.PARALLEL_CELLS
+    labels = np.ascontiguousarray(r.integers(0, n_patches + 1, (ny, nx)), dtype=np.int32)
+    k = np.where(r.random((ny, nx)) < 0.8, r.uniform(2.0, 20.0, (ny, nx)), 0.0)
+    n = np.floor(r.uniform(0.0, 15.0, (ny, nx))) * (k > 0)
+    keys = np.array([rng.year_key(5, 1, 2, s) for s in
+                     (rng.STREAM_SURVIVAL, rng.STREAM_BIRTHS, rng.STREAM_EMIGRATION)], np.uint64)
+    rates = GrowthRates(demography.MODEL_CODES["ricker"], 0.5, 0.7, 1.0, 0.0, True)
+    results = []
+    for variant in (grow_pass.serial, grow_pass.parallel):
+        out, lv = np.empty((ny, nx)), np.empty((ny, nx))
+        part = variant(labels, n_patches, n, k, np.full((1, 1), 0.1), out, lv,
+                       rates, Emigration(0.3, 1.0), keys, NO_RETENTION)
+        results.append((out, lv, part))
+    for a, b in zip(*results, strict=True):
+        np.testing.assert_array_equal(a, b)
+    assert results[0][1].sum() > 0
+    args = (labels, n_patches, n, k)
+    small = (labels[:10, :10], n_patches, n[:10, :10], k[:10, :10])
+    if numba.get_num_threads() > 1:
+        assert grow_pass.variant(*args) is grow_pass.parallel
+    assert grow_pass.variant(*small) is grow_pass.serial
 
 
 def test_settle_and_census_sums_match_numpy():

@@ -12,7 +12,6 @@ from scipy.signal import fftconvolve
 from scipy.sparse.linalg import spsolve
 
 from gridpop import rng
-from gridpop.movement import walk
 from gridpop.movement.connectivity import corridor_share, patch_connectivity
 from gridpop.movement.walk import (
     WalkParams,
@@ -419,12 +418,11 @@ def test_stochastic_arrivals_match_deterministic_expectation():
     assert abs(np.mean(totals) - 1000 * p_vis.sum()) < 4 * se
 
 
-def test_results_do_not_depend_on_the_number_of_threads(monkeypatch):
+def test_results_do_not_depend_on_the_number_of_threads(parallel_kernels):
     """Bit-identical outputs with 1 and 2 numba threads (counter-based random numbers and
     per-thread buffers of whole numbers; common practice for reproducible parallel Monte Carlo)."""
     if numba.config.NUMBA_NUM_THREADS < 2:
         pytest.skip("needs 2 numba threads")
-    monkeypatch.setattr(walk, "SERIAL_CELLS", 0)  # small grid, parallel all the same
     perm, q, labels = landscape(size=40, seed=9)
     d = np.random.default_rng(2).integers(0, 15, perm.shape).astype(float)
     before = numba.get_num_threads()

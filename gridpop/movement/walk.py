@@ -103,11 +103,6 @@ _DX = np.array([-1, 0, 1, -1, 1, -1, 0, 1], dtype=np.int64)
 _LEN = np.sqrt(_DY**2 + _DX**2).astype(np.float64)
 _INV_SQRT2 = 1.0 / math.sqrt(2.0)
 
-SERIAL_CELLS = 32768
-"""Grids with fewer cells propagate the expected walk on one thread: there, starting a parallel
-region for each step costs more than the step."""
-
-
 @dataclass(frozen=True)
 class WalkParams:
     """Parameters of the walk (see the module docstring for their meaning).
@@ -336,7 +331,7 @@ def _walk_stochastic(dispersers, perm, settle, surv1, surv2, labels, turn, walk_
                 wk = cell_key(ck, w)
                 y = np.int64(i)
                 x = np.int64(j)
-                row = 0
+                row = np.int64(0)  # typed: a literal 0 would compile _norm and _pick again
                 settled = False
                 for t in range(walk_length):
                     z = _norm(perm, y, x, turn, row)
@@ -393,22 +388,26 @@ def _det_start(dispersers, invz, g, lost):
 
 @pjit
 def _det_step(g, perm, settle, surv1, surv2, turn, invz, last, g_next, arrivals, visits,
-              lost):
-    """One step of the expected walk.
+              lost, box):
+    """One step of the expected walk, over the cells ``box = (y0, y1, x0, x1)`` (rows
+    ``y0:y1``, columns ``x0:x1``): those a walker can have reached by the end of the step.
 
     ``g[a, l]`` holds the density of moving walkers of cell a in state layer ``l`` divided by the
     normaliser of their turn row ``r(l)``, so the flow into cell c from neighbour a = c - d_k is
     ``weight_k(a) * sum_l g[a, l] * turn[r(l), k]``; ``r(l) = l + 1`` for the 8 direction layers,
     0 for a single layer (no heading_bias, or before the first step). Each target cell gathers its
     inflow, removes the dead and the settled, and stores its own scaled density in ``g_next``: one
-    layer per arrival direction with heading_bias, a single layer without.
+    layer per arrival direction with heading_bias, a single layer without. Outside ``box``,
+    ``g`` and ``g_next`` hold zeros.
     """
     ny, nx = perm.shape
     nl = g.shape[2]
     row0 = 1 if nl == 8 else 0
     persist = turn.shape[0] > 1
-    for i in prange(ny):
-        for j in range(nx):
+    y0, y1, x0, x1 = box
+    for i0 in prange(y1 - y0):
+        i = y0 + np.int64(i0)
+        for j in range(x0, x1):
             for o in range(g_next.shape[2]):
                 g_next[i, j, o] = 0.0
             pc = perm[i, j]
@@ -462,27 +461,31 @@ def _det_step(g, perm, settle, surv1, surv2, turn, invz, last, g_next, arrivals,
 
 
 def propagate(dispersers: np.ndarray, surf: WalkSurfaces, turn: np.ndarray, walk_length: int):
-    """Expected walk of ``dispersers``: (arrivals, visits, lost) maps."""
-    threads = numba.get_num_threads()
-    if dispersers.size < SERIAL_CELLS:
-        numba.set_num_threads(1)
-    try:
-        shape = dispersers.shape
-        layers = 8 if turn.shape[0] > 1 else 1
-        invz = np.empty(shape + (turn.shape[0],))
-        _inv_norm(surf.perm, turn, invz)
-        arrivals, visits, lost = np.zeros(shape), np.zeros(shape), np.zeros(shape)
-        g: np.ndarray = np.empty(shape + (1,))  # no direction before the first step
-        _det_start(dispersers, invz, g, lost)
-        g_next = np.empty(shape + (layers,))
-        for t in range(walk_length):
-            _det_step(g, surf.perm, surf.settle, surf.surv1, surf.surv2, turn, invz,
-                      t == walk_length - 1, g_next, arrivals, visits, lost)
-            if g.shape[-1] != layers:
-                g = np.empty_like(g_next)
-            g, g_next = g_next, g
-    finally:
-        numba.set_num_threads(threads)
+    """Expected walk of ``dispersers``: (arrivals, visits, lost) maps.
+
+    Step t sweeps only the cells within t + 1 cells of the dispersers' bounding box, the
+    farthest a walker can be; elsewhere every density is 0, so the maps are those of a sweep
+    of the whole grid.
+    """
+    shape = dispersers.shape
+    layers = 8 if turn.shape[0] > 1 else 1
+    invz = np.empty(shape + (turn.shape[0],))
+    _inv_norm(surf.perm, turn, invz)
+    arrivals, visits, lost = np.zeros(shape), np.zeros(shape), np.zeros(shape)
+    g: np.ndarray = np.empty(shape + (1,))  # no direction before the first step
+    _det_start(dispersers, invz, g, lost)
+    g_next = np.zeros(shape + (layers,))
+    rows, cols = np.nonzero(dispersers.any(axis=1))[0], np.nonzero(dispersers.any(axis=0))[0]
+    if rows.size == 0:
+        return arrivals, visits, lost
+    for t in range(walk_length):
+        box = (max(int(rows[0]) - t - 1, 0), min(int(rows[-1]) + t + 2, shape[0]),
+               max(int(cols[0]) - t - 1, 0), min(int(cols[-1]) + t + 2, shape[1]))
+        _det_step(g, surf.perm, surf.settle, surf.surv1, surf.surv2, turn, invz,
+                  t == walk_length - 1, g_next, arrivals, visits, lost, box)
+        if g.shape[-1] != layers:
+            g = np.zeros_like(g_next)
+        g, g_next = g_next, g
     return arrivals, visits, lost
 
 

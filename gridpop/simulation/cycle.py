@@ -142,7 +142,8 @@ def grow_pass(labels, n_patches, n, k, env, out, leaving, rates, emigration, key
     weighted = retention.own.shape[0] > 0
     fraction, dd = emigration.fraction, emigration.density_dependence
     stochastic = rates.stochastic
-    for c in prange(N_CHUNKS):
+    for chunk in prange(N_CHUNKS):
+        c = np.int64(chunk)  # a prange index is unsigned: one type for the callees
         births, deaths = np.empty(nx), np.empty(nx)
         home, mine, anyw = np.zeros(nx), np.zeros(nx), np.zeros(nx)
         for i in range(c * rows, min(ny, (c + 1) * rows)):
@@ -184,7 +185,8 @@ def census_pass(labels, n_patches, k, n, arrivals, stayed, dist_deaths, threshol
     ny, nx = n.shape
     rows = (ny + N_CHUNKS - 1) // N_CHUNKS
     part = np.zeros((N_CHUNKS, n_patches + 2, N_SUMS))
-    for c in prange(N_CHUNKS):
+    for chunk in prange(N_CHUNKS):
+        c = np.int64(chunk)  # a prange index is unsigned: one type for the callees
         occ, settled, home, zero = np.empty(nx), np.empty(nx), np.empty(nx), np.zeros(nx)
         for i in range(c * rows, min(ny, (c + 1) * rows)):
             v, ki, e, sn, oc, ec = n[i], k[i], ever[i], sum_n[i], occupied[i], ever_count[i]

@@ -12,11 +12,13 @@ from __future__ import annotations
 
 import contextlib
 import shutil
+import threading
 import time
 from pathlib import Path
 
 import numba
 
+from .. import _jit
 from .._version import __version__
 from ..errors import RunStateError
 from ..io.results import (
@@ -98,6 +100,7 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
         raise RunStateError(f"--workers {workers}: must be 1 or more.")
     check_output(out_dir, overwrite=overwrite)
     model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
+    connectivity = _connectivity_in_background(model)
     plan = model.plan.batches()
     work = working_folder(out_dir)
     resuming = may_continue(work, run_identity(scenario, model), resume=resume,
@@ -130,6 +133,8 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
                         run_checkpointed_batch(model, b, reps, work, bar)
                 elif todo:
                     run_batches(client, model, todo, work, bar)
+    if connectivity is not None:
+        connectivity.join()
     with resumable_if_disk_full(work, len(plan)):
         ensure_space(work, fp.results, "combining the batches and writing the results")
         files = write_results(work, scenario, model, [batch_folder(work, b)
@@ -163,3 +168,21 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
         manifest["execution"]["wall_time_s"] = round(time.time() - started, 3)
         publish_complete(work, out_dir, "run.json", manifest)
     return out_dir
+
+
+def _connectivity_in_background(model) -> threading.Thread | None:
+    """Start computing the walk's connectivity table (an output that depends on the year-0
+    landscape only) on another thread: its kernels release the GIL, so it runs on a second core
+    while the replicates run. Only on a grid small enough for its kernels to run serially (two
+    threads must not enter numba's parallel kernels at once with every threading layer). An
+    error is left to be raised where the table is written."""
+    if model.walk is None or model.capacity.size >= _jit.PARALLEL_CELLS:
+        return None
+
+    def compute():
+        with contextlib.suppress(Exception):
+            _ = model.connectivity
+
+    thread = threading.Thread(target=compute, daemon=True)
+    thread.start()
+    return thread
