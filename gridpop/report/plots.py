@@ -57,6 +57,7 @@ from ..config import load_scenario
 from ..errors import GridpopError, InputDataError, RunStateError
 from ..io.results import LEDGER_FIELDS
 from ..landscape import build_landscape
+from .stageplots import stage_figures
 
 OKABE_ITO = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000",
              "#F0E442")
@@ -622,7 +623,7 @@ def _maps(plans: list[Plan], compare_dir: Path | None = None) -> list[tuple[str,
 
 def _figures(plans: list[Plan], compare_dir: Path | None = None) -> list[tuple[str, Figure]]:
     return ([("risk", risk_figure(plans)), ("abundance", abundance_figure(plans))]
-            + _maps(plans, compare_dir) + [("ledger", ledger_figure(plans))])
+            + _maps(plans, compare_dir) + [("ledger", ledger_figure(plans))] + stage_figures(plans))
 
 
 def _write(folder: Path, figures) -> list[Path]:
