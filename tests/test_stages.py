@@ -101,6 +101,22 @@ def test_density_stage_total_settles_at_capacity(model, acts_on):
     assert last[1] + last[2] == pytest.approx(50.0, rel=1e-6)
 
 
+def test_environment_is_lognormal_on_fecundity_and_logit_normal_on_survival():
+    """A deviation e multiplies fecundity by exp(e) and shifts survival by e on the logit scale
+    (logit-normal survival, common practice: the scales on which rates stay in bounds), with the
+    stage shares of the survivors unchanged."""
+    n = np.array([10.0, 20.0, 30.0])
+    e = 0.4
+    (out, births, deaths), = project(rates(), n, env=e)
+    assert births == pytest.approx((F3 @ n).sum() * math.exp(e), rel=1e-13)
+    s = T3.sum(axis=0)
+    logit = np.log(s / (1 - s)) + e
+    s_e = 1 / (1 + np.exp(-logit))
+    survivors = T3 / s * s_e
+    np.testing.assert_allclose(out, survivors @ n + F3 @ n * math.exp(e), rtol=1e-13)
+    assert deaths == pytest.approx(n.sum() - (survivors @ n).sum(), rel=1e-13)
+
+
 def test_crowding_cannot_act_on_rates_that_alone_keep_lambda_above_one():
     """Survival alone with lambda >= 1 cannot be held at K by fecundity (R0 undefined), and the
     reverse (Caswell 2001, sec. 5.3.4)."""
@@ -356,3 +372,30 @@ def test_long_lived_species_is_sensitive_to_adult_survival(make_scenario, tmp_pa
     assert e[1, 1] > 3 * e[0, 1]
     assert survival_cut > 3 * fecundity_cut > 0
 
+
+
+def test_stage_outputs_plots_and_report(make_scenario, tmp_path):
+    """A two-sex stage run writes abundance_<stage> stacks whose landscape sums are the mean of
+    the ledger's abundance_<stage> column over replicates (GDAL via rasterio reading back what
+    was written), the stage composition and sex ratio figure, and a report that lists the matrix
+    with its diagnostics (lambda from numpy.linalg.eigvals)."""
+    from gridpop.report.html import write_report
+    from gridpop.report.plots import plot_run
+
+    text = stage_text(False, extra='\n[sex]\nsystem = "polygynous"\nharem_size = 3\n') + \
+        '\n[output]\nrasters = ["abundance", "occupancy", "colonised", "abundance_adult"]\n'
+    out = tmp_path / "r"
+    gridpop.run(make_scenario(text), out)
+    rows = read(out / "timeseries.csv")
+    assert {"abundance_juvenile", "abundance_subadult", "abundance_adult", "females",
+            "males"} <= set(rows[0])
+    with rasterio.open(out / "abundance_adult.tif") as ds:
+        stack = ds.read(masked=True)
+    for t in (0, 3, 8):
+        mean = np.mean([float(r["abundance_adult"]) for r in rows if int(r["year"]) == t])
+        assert stack[t].sum() == pytest.approx(mean, rel=1e-5)
+    assert any(p.name == "stages.png" for p in plot_run(out))
+    html = write_report(out).read_text()
+    lam = np.max(np.abs(np.linalg.eigvals(T3 + F3)))
+    assert "Life history" in html and f"lambda {lam:.4g}" in html
+    assert "elasticities" in html
