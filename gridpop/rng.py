@@ -40,6 +40,7 @@ STREAM_INITIAL = 10
 STREAM_BARRIER = 11
 STREAM_TRANSITION = 12  # stage transitions of the survivors
 STREAM_SEX = 13  # sex of the births
+STREAM_REMOVAL = 14  # removals of individuals (gridpop.management)
 CLASS_STREAMS = 64
 """Stream ids below this; the dispersal of class c > 0 of a stage-structured model draws its
 streams ``s + c * CLASS_STREAMS`` (:class:`YearStreams` ``offset``)."""

@@ -305,12 +305,47 @@ def ledger(path, columns):
     return out
 
 
+MANAGED = """
+[[action]]
+kind = "release"
+area = "west.tif"
+stage = "subadult"
+count = 25
+years = [1, 3]
+
+[[action]]
+kind = "release"
+area = "east.tif"
+stage = "adult"
+count = 10
+years = [4]
+source_area = "west.tif"
+
+[[action]]
+kind = "removal"
+area = "east.tif"
+stage = "adult"
+fraction = 0.2
+start_year = 2
+"""
+
+
+def areas(make_raster):
+    west, east = np.zeros((40, 60)), np.zeros((40, 60))
+    west[5:20, 5:25] = 1
+    east[22:36, 35:55] = 1
+    make_raster("west.tif", west, nodata=None)
+    make_raster("east.tif", east, nodata=None)
+
+
 @pytest.mark.parametrize("stochastic", [True, False])
-def test_ledger_identity_over_every_stage(make_scenario, tmp_path, stochastic):
-    """N(t+1) = N(t) + births - deaths - disturbance_deaths + immigrants - emigrants with N the sum
-    over every stage and sex (the BIDE balance, common practice), for the landscape and every
-    patch, exactly with whole individuals; two sexes, stage-specific dispersal, fire,
-    environmental noise on."""
+def test_ledger_identity_over_every_stage(make_scenario, make_raster, tmp_path, stochastic):
+    """N(t+1) = N(t) + births - deaths - disturbance_deaths + immigrants - emigrants + released -
+    removed with N the sum over every stage and sex (the BIDE balance with harvest and
+    translocation, common practice), for the landscape and every patch, exactly with whole
+    individuals; two sexes, stage-specific dispersal, fire, environmental noise, releases, a
+    translocation and a removal on. A release of 25 adds exactly 25 in its years."""
+    areas(make_raster)
     text = stage_text(stochastic, extra='\n[sex]\nsystem = "monogamous"\n') + """
 [[disturbance]]
 kind = "fire"
@@ -318,12 +353,12 @@ return_interval_years = 3.0
 mortality = 0.6
 capacity_loss = 0.5
 recovery_years = 3.0
-"""
+""" + MANAGED
     out = tmp_path / "r"
     gridpop.run(make_scenario(text), out)
     stages = ["abundance_juvenile", "abundance_subadult", "abundance_adult"]
     cols = stages + ["births", "deaths", "disturbance_deaths", "immigrants", "emigrants",
-                     "abundance", "females", "males"]
+                     "abundance", "females", "males", "released", "removed"]
     for name in ("timeseries.csv", "patches.csv"):
         rows = ledger(out / name, cols)
         checked = 0
@@ -333,7 +368,7 @@ recovery_years = 3.0
             prev = rows[(r, p, t - 1)]
             n0, n1 = sum(prev[c] for c in stages), sum(row[c] for c in stages)
             expected = n0 + row["births"] - row["deaths"] - row["disturbance_deaths"] + \
-                row["immigrants"] - row["emigrants"]
+                row["immigrants"] - row["emigrants"] + row["released"] - row["removed"]
             assert n1 == pytest.approx(expected, rel=0 if stochastic else 1e-9, abs=1e-9)
             assert row["abundance"] == pytest.approx(
                 row["abundance_subadult"] + row["abundance_adult"], rel=1e-9)
@@ -343,6 +378,14 @@ recovery_years = 3.0
     land = ledger(out / "timeseries.csv", cols)
     assert sum(r["disturbance_deaths"] for r in land.values()) > 0
     assert sum(r["emigrants"] for r in land.values()) > 0
+    for (_, _, t), r in land.items():
+        plain = 25 if t in (2, 4) else 0  # release years 1 and 3 enter the census of 2 and 4
+        if t == 5:
+            assert 0 < r["released"] <= 10 + 1e-9
+        else:
+            assert r["released"] == pytest.approx(plain, abs=1e-9)
+        assert r["removed"] == 0 or t >= 3  # the removal starts in year 2
+    assert sum(r["removed"] for (_, _, t), r in land.items() if t == 3) > 0
 
 
 def test_long_lived_species_is_sensitive_to_adult_survival(make_scenario, tmp_path):
@@ -399,3 +442,37 @@ def test_stage_outputs_plots_and_report(make_scenario, tmp_path):
     lam = np.max(np.abs(np.linalg.eigvals(T3 + F3)))
     assert "Life history" in html and f"lambda {lam:.4g}" in html
     assert "elasticities" in html
+
+
+def test_release_and_removal_keys_are_checked(make_scenario, make_raster):
+    """A removal needs fraction or count, a stage of [stages] (none without it); release years
+    are whole numbers (common practice: refuse what cannot be meant)."""
+    areas(make_raster)
+    good = stage_text() + MANAGED
+    load_scenario(make_scenario(good, "good.toml"))
+    cases = [(good.replace("fraction = 0.2", "fraction = 0.2\ncount = 3"),
+              "(removal)]: give either"),
+             (good.replace('stage = "subadult"', 'stage = "calf"'), "[action #1 (release)] stage"),
+             (good.replace("years = [1, 3]", "years = [1.5]"), "[action #1 (release)] years"),
+             (scenario_text() + MANAGED.replace('stage = "adult"\n', ""),
+              "[action #1 (release)] stage")]
+    for i, (text, where) in enumerate(cases):
+        with pytest.raises(ScenarioError, match=re.escape(where)):
+            load_scenario(make_scenario(text, f"bad{i}.toml"))
+
+
+def test_stage_free_removal_by_count(make_scenario, make_raster, tmp_path):
+    """Without [stages], a removal of 30 a year takes exactly 30 while more are present, and
+    the ledger stays exact (common practice: the BIDE balance with harvest)."""
+    areas(make_raster)
+    text = scenario_text(stochastic=False) + """
+[[action]]
+kind = "removal"
+area = "west.tif"
+count = 30
+"""
+    gridpop.run(make_scenario(text), tmp_path / "r")
+    rows = read(tmp_path / "r" / "timeseries.csv")
+    assert [float(r["removed"]) for r in rows if r["year"] != "0"] == \
+        pytest.approx([30.0] * 8 * 4)
+    assert all(float(r["released"]) == 0 for r in rows)

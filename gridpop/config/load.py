@@ -27,6 +27,8 @@ from .kinds import (
     DisturbanceConfig,
     FireConfig,
     FloodConfig,
+    ReleaseConfig,
+    RemovalConfig,
 )
 from .schema import REQUIRED, Key
 from .sections import (
@@ -358,8 +360,22 @@ def _flood_checks(file: Path, c: FloodConfig) -> None:
                             f"must not decrease with the return period.")
 
 
+def _release_checks(file: Path, c: ReleaseConfig) -> None:
+    if any(y != int(y) for y in c.years):
+        raise ScenarioError(f"{where(file, c.label, 'years')} = {list(c.years)}: years must be "
+                            "whole numbers.")
+
+
+def _removal_checks(file: Path, c: RemovalConfig) -> None:
+    if (c.fraction is None) == (c.count is None):
+        raise ScenarioError(f"{where(file, c.label)}: give either fraction or count, not "
+                            f"{'both' if c.count is not None else 'neither'}.")
+
+
 KIND_CHECKS: dict[str, Callable[[Path, Any], None]] = {"fire": _fire_checks,
-                                                       "flood": _flood_checks}
+                                                       "flood": _flood_checks,
+                                                       "release": _release_checks,
+                                                       "removal": _removal_checks}
 """Checks across the keys of one kind, after each key is valid on its own."""
 
 
@@ -432,6 +448,23 @@ def load_scenario(path: str | Path) -> Scenario:
                                 for name in SECTIONS if name != "stages" or name in raw}
     scenario = Scenario(path=file, sha256=hashlib.sha256(raw_bytes).hexdigest(), **sections)
     scenario = _cross_checks(file, scenario)
-    return dataclasses.replace(
+    scenario = dataclasses.replace(
         scenario, disturbances=parse_tables(file, "disturbance", raw.get("disturbance", [])),
         actions=parse_tables(file, "action", raw.get("action", [])))
+    _managed_stages(file, scenario)
+    return scenario
+
+
+def _managed_stages(file: Path, s: Scenario) -> None:
+    """The stage of every release and removal is a stage of [stages] (none without it)."""
+    names = s.stages.names or () if s.stages is not None else ()
+    for c in s.actions:
+        if c.kind not in ("release", "removal"):
+            continue
+        if c.stage is None and names:
+            raise ScenarioError(f"{where(file, c.label, 'stage')} is required with [stages]: "
+                                f"one of {', '.join(names)}.")
+        if c.stage is not None and c.stage not in names:
+            raise ScenarioError(f"{where(file, c.label, 'stage')} = {c.stage!r} is not a stage"
+                                + (f"; the stages are {', '.join(names)}." if names else
+                                   " (no [stages] section: leave stage out)."))

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import json
 
-from .lifehistory import stage_texts
+from .lifehistory import managed_phrase, stage_texts
 
 CAPACITY = (
     "Metapopulation capacity (Hanski and Ovaskainen 2000) measures how well the patch network "
@@ -90,6 +90,8 @@ def _action(c: dict) -> str:
         what = f"crossing mortality {c['crossing_mortality']:g}"
     elif kind == "restoration":
         what = f"suitability rises to {c['target_suitability']:g} {_ramp(c)}"
+    elif kind in ("release", "removal"):
+        what = managed_phrase(c)
     else:
         what = f"suitability falls to {c['target_suitability']:g} outside reserves {_ramp(c)}"
     return f"{kind.replace('_', ' ')} ({area}): {what}"
@@ -290,7 +292,9 @@ def assumptions(params: dict) -> list[tuple[str, str]]:
          ("Genetics" if staged else "Age, stage or sex structure; genetics")
          + f" (inbreeding, loss of diversity); {behaviour}; "
          "settlement that depends on how crowded a cell is; other species (predators, "
-         "competitors, disease); harvest and translocation; habitat change other than the "
+         "competitors, disease); "
+         + ("" if any(c["kind"] in ("release", "removal") for c in actions) else
+            "harvest and translocation; ") + "habitat change other than the "
          "actions and the disturbances (climate or land-use trends); uncertainty in the "
          "parameters themselves (each run uses one parameter set); anything outside the grid."),
     ]

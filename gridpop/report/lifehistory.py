@@ -51,3 +51,16 @@ def stage_texts(params: dict) -> dict[str, str]:
                + ") leave their cell and ")
     return {"Population": population, "Growth": growth, "Life history": life,
             "leaving": leaving, "moves": str(max(fractions) > 0)}
+
+
+def managed_phrase(c: dict) -> str:
+    """A release or removal of the parameters as read, in a phrase."""
+    who = f"{c['stage']} individuals" if c.get("stage") else "individuals"
+    if c["kind"] == "release":
+        source = f", taken from the wild in {c['source_area']}" if c.get("source_area") else ""
+        years = ", ".join(f"{y:g}" for y in c["years"])
+        return (f"{c['count']} {who} released in years {years}{source}, spread over the area's "
+                "habitat by capacity")
+    amount = f"a fraction {c['fraction']:g} of the" if c.get("fraction") is not None else \
+        f"{c['count']}"
+    return f"{amount} {who} removed every year from year {c['start_year']}"

@@ -68,7 +68,7 @@ _DASHES = ("-", "--", "-.", ":")
 ACTION_STYLE: dict[str, tuple[str, Any]] = {
     "reserve": ("#CC79A7", "-"), "corridor": ("#D55E00", "--"), "barrier": ("#000000", ":"),
     "restoration": ("#009E73", "-."), "habitat_loss": ("#E69F00", (0, (5, 1, 1, 1))),
-    "focus": ("#FFFFFF", "-")}
+    "release": ("#56B4E9", "-"), "removal": ("#0072B2", ":"), "focus": ("#FFFFFF", "-")}
 """Outline colour and line style per action kind (and the focus areas) on the maps."""
 
 DPI = 110

@@ -354,6 +354,9 @@ class Replicate:
             effects = self.effects = self._disturb(year, k)
             dist_deaths = effects.deaths
             k = effects.capacity
+        if m.management is not None:
+            self.ledger[t, :, N_FIELDS:N_FIELDS + 2] = np.stack(m.management.apply(
+                self.n, k, year, streams, m.growth.stochastic), axis=1)
         movement = m.movement
         retention = movement.mover.retention(k) if movement is not None else NO_RETENTION
         counted = retention.own.shape[0] > 0  # the growth pass counts the retention
@@ -436,7 +439,7 @@ class Replicate:
         row[:, F_DIST] = s.disturbance_deaths
         row[:, F_OCC] = s.occupied
         if life.columns:
-            row[:, N_FIELDS:] = life.columns_of(
+            row[:, N_FIELDS + 2 * (self.model.management is not None):] = life.columns_of(
                 patch_totals(per_class) if life.classes > 1 else row[:, F_ABUND:F_ABUND + 1])
         if self.visits is not None and t > 0:
             sink.acc["visits"][t] += self.visits
@@ -481,7 +484,7 @@ class BatchSink:
                                                     dtype=dt, shape=shape)
                     for name, dt in model.accumulators.items()}
         self.ledger = np.zeros((len(replicates), model.plan.years + 1, model.census.n_patches + 1,
-                                N_FIELDS + len(model.growth.life.columns)))
+                                N_FIELDS + len(model.ledger_columns)))
         self.events: list[tuple] = []
         self.folder = folder
         self.replicates = replicates

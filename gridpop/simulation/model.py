@@ -25,6 +25,7 @@ from ..disturbance import Regime, build_regime
 from ..errors import InputDataError, ScenarioError, where, where_layer
 from ..io.rasters import align_raster
 from ..landscape import Landscape
+from ..management import Management, build_management
 from ..movement import Mover
 from ..movement.barrier import BarrierKernelMover
 from ..movement.connectivity import patch_connectivity
@@ -156,6 +157,15 @@ class Model:
     initial: np.ndarray
     actions: Actions
     regime: Regime | None
+    management: Management | None = None  # releases and removals
+
+    @property
+    def ledger_columns(self) -> list[str]:
+        """Ledger columns after :data:`gridpop.io.results.LEDGER_FIELDS`: ``released`` and
+        ``removed`` with releases or removals, then those of the life history
+        (:attr:`LifeHistory.columns`)."""
+        return (["released", "removed"] if self.management is not None else []) + \
+            self.growth.life.columns
 
     @property
     def walk(self) -> Walk | None:
@@ -240,6 +250,7 @@ def build_model(scenario, base: Landscape) -> Model:
         capacity=np.ascontiguousarray(landscape.capacity, dtype=np.float64),
         initial=np.ascontiguousarray(landscape.initial, dtype=np.float64),
         actions=actions, regime=build_regime(scenario, landscape, actions),
+        management=build_management(scenario, grid, actions.areas, labels, n_patches),
     )
 
 

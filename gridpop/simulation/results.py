@@ -127,7 +127,7 @@ def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list
     if model.walk is not None:
         files += write_connectivity(work, scenario, model, totals["visits"])
     ledger = np.concatenate([np.load(p / "ledger.npy") for p in parts], axis=0)
-    extra = tuple(model.growth.life.columns)
+    extra = tuple(model.ledger_columns)
     write_ledger_csv(work / "timeseries.csv", ledger[:, :, 0, :], integers=model.growth.stochastic,
                      extra=extra)
     files.append("timeseries.csv")
