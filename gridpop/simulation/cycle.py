@@ -253,16 +253,19 @@ def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving,
             v, ki, e, sn, oc, ec = abundance[i], k[i], ever[i], sum_n[i], occupied[i], \
                 ever_count[i]
             st = _row_of(stayed, i)
-            settled[:] = 0.0
-            for a in range(classes):
-                if arriving[a] < 0:
-                    continue
-                ar, na = _row_of(arrivals[arriving[a]], i), n[a, i]
-                for j in range(nx):
-                    x = ar[j] if ki[j] > 0.0 else 0.0
-                    settled[j] += x
-                    na[j] += x
-            if classes > 1:
+            one = classes == 1  # settled in the census loop below (v is n[0, i])
+            a0 = _row_of(arrivals[max(arriving[0], 0)], i)
+            lands = arriving[0] >= 0
+            if not one:
+                settled[:] = 0.0
+                for a in range(classes):
+                    if arriving[a] < 0:
+                        continue
+                    ar, na = _row_of(arrivals[arriving[a]], i), n[a, i]
+                    for j in range(nx):
+                        x = ar[j] if ki[j] > 0.0 else 0.0
+                        settled[j] += x
+                        na[j] += x
                 v[:] = 0.0
                 for a in range(classes):
                     if counted[a]:
@@ -272,6 +275,9 @@ def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving,
                 _run_sums_block(per_class, c, labels[i], n_patches, n[:, i])
             for j in range(nx):
                 here = ki[j] > 0.0
+                if one:
+                    settled[j] = a0[j] if here and lands else 0.0
+                    v[j] += settled[j]
                 home[j] = st[j] if here else 0.0
                 hit = v[j] >= threshold
                 e[j] = 1 if hit or e[j] else 0
