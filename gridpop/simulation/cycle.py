@@ -226,6 +226,27 @@ def grow_pass(labels, n_patches, n, k, env, out, leaving, rates, stages, fractio
     return part
 
 
+@njit
+def _settle_classes(n, i, ki, arrivals, arriving, counted, v, settled):
+    """Row ``i`` of several classes: each class gains its arrivals where ``ki > 0``
+    (``settled``: their sum), ``v`` the sum of the counted classes."""
+    settled[:] = 0.0
+    for a in range(n.shape[0]):
+        if arriving[a] < 0:
+            continue
+        ar, na = _row_of(arrivals[arriving[a]], i), n[a, i]
+        for j in range(ki.size):
+            x = ar[j] if ki[j] > 0.0 else 0.0
+            settled[j] += x
+            na[j] += x
+    v[:] = 0.0
+    for a in range(n.shape[0]):
+        if counted[a]:
+            na = n[a, i]
+            for j in range(ki.size):
+                v[j] += na[j]
+
+
 @pjit
 def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving, stayed,
                 dist_deaths, threshold, ever, sum_n, occupied, ever_count):
@@ -257,21 +278,7 @@ def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving,
             a0 = _row_of(arrivals[max(arriving[0], 0)], i)
             lands = arriving[0] >= 0
             if not one:
-                settled[:] = 0.0
-                for a in range(classes):
-                    if arriving[a] < 0:
-                        continue
-                    ar, na = _row_of(arrivals[arriving[a]], i), n[a, i]
-                    for j in range(nx):
-                        x = ar[j] if ki[j] > 0.0 else 0.0
-                        settled[j] += x
-                        na[j] += x
-                v[:] = 0.0
-                for a in range(classes):
-                    if counted[a]:
-                        na = n[a, i]
-                        for j in range(nx):
-                            v[j] += na[j]
+                _settle_classes(n, i, ki, arrivals, arriving, counted, v, settled)
                 _run_sums_block(per_class, c, labels[i], n_patches, n[:, i])
             for j in range(nx):
                 here = ki[j] > 0.0
