@@ -42,9 +42,12 @@ def describe(scenario, model: Model) -> list[str]:
     if model.growth.env is not None:
         lines.append(f"environment: sd {g.env_sd:g}, correlation length "
                      f"{g.env_correlation_m:g} m, autocorrelation {g.env_autocorrelation:g}")
+    staged = st is not None and st.dispersal_fraction is not None
+    who = ("the stage fractions above" if staged
+           else f"{scenario.dispersal.fraction:g} of individuals")
     if model.kernel is not None:
         d = scenario.dispersal
-        lines.append(f"dispersal: {d.fraction:g} of individuals per year, {d.kernel} kernel, "
+        lines.append(f"dispersal: {who} per year, {d.kernel} kernel, "
                      f"mean distance {d.mean_distance_m:g} m, radius {model.kernel.radius} "
                      f"cells, {d.edge} edge")
     elif model.walk is not None:
@@ -53,7 +56,7 @@ def describe(scenario, model: Model) -> list[str]:
             f"resistance from suitability (max {d.resistance_max:g}, shape "
             f"{d.resistance_shape:g})")
         blocked = int((w.permeability == 0).sum())
-        lines.append(f"dispersal: {d.fraction:g} of individuals per year walk over the "
+        lines.append(f"dispersal: {who} per year walk over the "
                      f"landscape, {source}; up to {d.walk_length} steps, "
                      f"death_per_resistance {d.death_per_resistance:g}, heading_bias "
                      f"{d.heading_bias:g}; "
