@@ -12,7 +12,12 @@
    the steady state of a batch: replicate 1, after replicate 0 has run every year (compiling
    the kernels and touching the accumulators' pages once per batch).
    Figures: cell-years per second and the ratio gridpop / reference.
-2. The deterministic local step (``demography.step_deterministic``: reads N, K, the noise; writes
+2. One replicate's yearly cycle with a three-stage life history (juvenile, subadult, adult;
+   Beverton-Holt crowding of fecundity; subadults and adults disperse, 0.6 and 0.05) against the
+   one-stage year of (1) on the same landscape: the ratio of their fastest years, both
+   measured here (the target: a three-stage year within 1.5 times per stage, 4.5 times, of the
+   one-stage year).
+3. The deterministic local step (``demography.step_deterministic``: reads N, K, the noise; writes
    the new N, births, deaths: 48 bytes per cell at least) against the bound set by a measured
    streaming triad ``a = b + s c`` (STREAM convention: 24 bytes per element; McCalpin 1995, IEEE
    TCCA Newsletter), both on numba's thread pool.
@@ -188,6 +193,26 @@ def bandwidth(cells: int) -> dict:
             "copy_bytes_per_s": 16 * cells / t_copy}
 
 
+STAGES = """
+[stages]
+names = ["juvenile", "subadult", "adult"]
+transitions = [[0.0, 0.0, 0.0], [0.35, 0.0, 0.0], [0.0, 0.55, 0.82]]
+fecundity = [[0.0, 0.9, 2.1], [0.0, 0.0, 0.0], [0.0, 0.0, 0.0]]
+dispersal_fraction = [0.0, 0.6, 0.05]
+"""
+
+
+def three_stage(path: Path) -> Path:
+    """The benchmark scenario at ``path`` with the three-stage life history of :data:`STAGES`
+    instead of [growth] rate and survival and [dispersal] fraction."""
+    text = path.read_text()
+    for line in ("rate = 0.4\n", "survival = 0.6\n", "fraction = 0.2\n"):
+        text = text.replace(line, "")
+    staged = path.with_name("three_stage.toml")
+    staged.write_text(text + STAGES)
+    return staged
+
+
 def local_step(size: int, bw: dict) -> dict:
     rng = np.random.default_rng(1)
     k = rng.uniform(0.0, 50.0, (size, size))
@@ -227,9 +252,12 @@ def main():
                 model = build_model(s, build_landscape(s, stochastic=stochastic))
                 t_r = reference_cycle(model, stochastic, years)
                 mode = "stochastic" if stochastic else "deterministic"
+                s3 = load_scenario(three_stage(path))
+                staged = build_model(s3, build_landscape(s3, stochastic=stochastic))
                 for nt in threads:
                     numba.set_num_threads(nt)
                     t_g, phases = gridpop_cycle(model, folder / f"batch{nt}", years)
+                    t_3, phases_3 = gridpop_cycle(staged, folder / f"staged{nt}", years)
                     rows.append({"size": size, "stochastic": stochastic, "threads": nt,
                                  "years_timed": years, "timing": "fastest year",
                                  "habitat_cells": int((model.capacity > 0).sum()),
@@ -238,11 +266,17 @@ def main():
                                  "gridpop_s_per_year": t_g, "reference_s_per_year": t_r,
                                  "gridpop_cell_years_per_s": cells / t_g,
                                  "reference_cell_years_per_s": cells / t_r,
-                                 "speedup": t_r / t_g, "gridpop_phases_s_per_year": phases})
+                                 "speedup": t_r / t_g, "gridpop_phases_s_per_year": phases,
+                                 "three_stage_s_per_year": t_3,
+                                 "three_stage_over_one_stage": t_3 / t_g,
+                                 "three_stage_phases_s_per_year": phases_3})
                     print(f"{size:>6} {mode:>13} {nt:>7} {cells / t_g:>18.3g} "
                           f"{cells / t_r:>16.3g} {t_r / t_g:>6.2f}   "
                           + ", ".join(f"{k} {v * 1e3:.0f} ms" for k, v in phases.items()))
-                del model
+                    print(f"{'':>6} {'three stages':>13} {nt:>7} {cells / t_3:>18.3g} "
+                          f"{'':>16} {t_3 / t_g:>6.2f}x the one-stage year   "
+                          + ", ".join(f"{k} {v * 1e3:.0f} ms" for k, v in phases_3.items()))
+                del model, staged
     bw, steps = [], []
     for nt in threads:
         numba.set_num_threads(nt)

@@ -33,6 +33,7 @@ import numpy as np
 
 from .io.vectors import read_cells
 from .landscape import Landscape, Patches, capacity, label_patches
+from .management import managed_note
 
 
 @dataclass(frozen=True, eq=False)
@@ -268,6 +269,8 @@ def _notes(configs, read, changes, base: Landscape, habitat, reserved) -> list[s
         elif c.kind == "barrier":
             parts.append(f"crossing mortality {c.crossing_mortality:g}"
                          + (" (impassable)" if c.crossing_mortality == 1 else ""))
+        elif c.kind in ("release", "removal"):
+            parts.append(managed_note(c))
         else:
             ramp = max(c.ramp_years, 1)
             parts.append(f"suitability towards {c.target_suitability:g} from year "
@@ -277,7 +280,7 @@ def _notes(configs, read, changes, base: Landscape, habitat, reserved) -> list[s
                 parts.append(f"{exempt} cells inside reserves exempt")
         if changes[i] is not None:
             changes[i].apply(s, 1.0)
-        if c.kind != "barrier":
+        if c.kind not in ("barrier", "release", "removal"):
             after = _k(s, multiplier, base, habitat).sum()
             full = " at full effect" if changes[i] is not None and changes[i].scheduled else ""
             parts.append(f"total capacity {total:.6g} -> {after:.6g} ({after - total:+.6g})"

@@ -38,6 +38,12 @@ STREAM_DISTURBANCE_MORTALITY = 8
 STREAM_WALK = 9
 STREAM_INITIAL = 10
 STREAM_BARRIER = 11
+STREAM_TRANSITION = 12  # stage transitions of the survivors
+STREAM_SEX = 13  # sex of the births
+STREAM_REMOVAL = 14  # removals of individuals (gridpop.management)
+CLASS_STREAMS = 64
+"""Stream ids below this; the dispersal of class c > 0 of a stage-structured model draws its
+streams ``s + c * CLASS_STREAMS`` (:class:`YearStreams` ``offset``)."""
 
 _GOLDEN = np.uint64(0x9E3779B97F4A7C15)
 _M1 = np.uint64(0xBF58476D1CE4E5B9)
@@ -78,9 +84,10 @@ class YearStreams(NamedTuple):
     seed: int
     replicate: int
     year: int
+    offset: int = 0  # added to every stream id (the streams of one class, CLASS_STREAMS)
 
     def key(self, stream: int) -> np.uint64:
-        return np.uint64(year_key(self.seed, self.replicate, self.year, stream))
+        return np.uint64(year_key(self.seed, self.replicate, self.year, stream + self.offset))
 
 
 @njit

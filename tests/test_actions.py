@@ -250,7 +250,7 @@ def test_unknown_action_kind_lists_known_ones(make_scenario):
     tables = '[[action]]\nkind = "fence"\narea = "{suitability}"\n'
     with pytest.raises(ScenarioError, match=re.escape(
             "kind = 'fence' is not known; known kinds: 'reserve', 'corridor', 'barrier', "
-            "'restoration', 'habitat_loss'.")):
+            "'restoration', 'habitat_loss', 'release', 'removal'.")):
         setup(make_scenario, tables)
 
 
@@ -284,6 +284,8 @@ def test_template_examples_parse_and_reference_documents_every_key(tmp_path, sec
             table["zone"] = ["flood10.gpkg", "flood100.gpkg"]
             for p in table["zone"]:
                 (tmp_path / p).touch()
+        if kind == "removal":  # a removal needs fraction or count; both are commented
+            table["fraction"] = 0.1
         (config,) = parse_tables(tmp_path / "s.toml", section, [table])
         assert config.kind == kind
         assert f'### kind = "{kind}"' in doc

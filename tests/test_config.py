@@ -81,7 +81,7 @@ def test_array_sections_list_the_kinds_of_the_unions():
     assert tuple(KIND_CLASSES["disturbance"].values()) == get_args(config.DisturbanceConfig)
     assert tuple(KIND_CLASSES["action"].values()) == get_args(config.ActionConfig)
     assert list(config.ARRAY_SECTIONS["action"][1]) == [
-        "reserve", "corridor", "barrier", "restoration", "habitat_loss"]
+        "reserve", "corridor", "barrier", "restoration", "habitat_loss", "release", "removal"]
 
 
 def test_key_types_follow_the_annotations():

@@ -19,6 +19,7 @@ from gridpop.movement.emigration import leaving_deterministic, leaving_stochasti
 from gridpop.simulation.check import describe
 from gridpop.simulation.cycle import census_pass, grow_pass, patch_totals
 from gridpop.simulation.model import Emigration, GrowthRates, build_model
+from gridpop.stages import one_stage
 
 
 def read_ledger(path, patches=False):
@@ -324,9 +325,11 @@ def test_settle_and_census_sums_match_numpy():
     settled = np.where(k > 0, arrivals, 0.0)
     after = n + settled
     ever_after = ever | (after >= 1.0)
-    got = n.copy()
-    s = patch_totals(census_pass(labels, n_patches, k, got, arrivals, stayed, dist, 1.0,
-                                           ever, *acc))
+    got = n.copy()[None]
+    part, _ = census_pass(labels, n_patches, k, got, got[0], np.ones(1, np.uint8),
+                          arrivals[None], np.zeros(1, np.int64), stayed, dist, 1.0, ever, *acc)
+    s = patch_totals(part)
+    got = got[0]
     np.testing.assert_array_equal(got, after)
     np.testing.assert_array_equal(ever, ever_after)
     np.testing.assert_array_equal(acc[0], 1.5 + after)
@@ -354,7 +357,8 @@ def test_growth_pass_matches_the_stage_functions(stochastic):
     n = np.floor(r.uniform(0.0, 15.0, (ny, nx))) * (k > 0)
     env = np.zeros((ny, nx))
     keys = np.array([rng.year_key(7, 0, 3, s) for s in
-                     (rng.STREAM_SURVIVAL, rng.STREAM_BIRTHS, rng.STREAM_EMIGRATION)], np.uint64)
+                     (rng.STREAM_SURVIVAL, rng.STREAM_BIRTHS, rng.STREAM_EMIGRATION,
+                      rng.STREAM_TRANSITION, rng.STREAM_SEX)], np.uint64)
     model, rate, surv, theta = demography.MODEL_CODES["ricker"], 0.5, 0.7, 1.0
     grown, births, deaths = (np.empty((ny, nx)) for _ in range(3))
     if stochastic:
@@ -365,10 +369,12 @@ def test_growth_pass_matches_the_stage_functions(stochastic):
         demography.step_deterministic(n, k, env, grown, births, deaths, model, rate, surv,
                                       theta, 0.0)
         leaving = leaving_deterministic(grown, k, 0.25, 1.0)
-    out, lv = np.empty((ny, nx)), np.empty((ny, nx))
+    out, lv = np.empty((1, ny, nx)), np.empty((1, ny, nx))
     rates = GrowthRates(model, rate, surv, theta, 0.0, stochastic)
-    s = patch_totals(grow_pass(labels, n_patches, n, k, np.zeros((1, nx)), out, lv, rates,
-                               Emigration(0.25, 1.0), keys, NO_RETENTION))
+    s = patch_totals(grow_pass(labels, n_patches, n[None], k, np.zeros((1, nx)), out, lv, rates,
+                               one_stage(), np.array([0.25]), Emigration(0.25, 1.0), keys,
+                               NO_RETENTION))
+    out, lv = out[0], lv[0]
     np.testing.assert_array_equal(lv, leaving)
     np.testing.assert_array_equal(out, grown - leaving)
     assert leaving.sum() > 0

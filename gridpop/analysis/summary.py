@@ -186,7 +186,8 @@ def parameters(scenario) -> dict:
     """The scenario as read: every section, then the ``[[disturbance]]`` and ``[[action]]``
     tables as lists; paths as absolute path strings."""
     out: dict[str, Any] = {name: dataclasses.asdict(getattr(scenario, name))
-                           for name in SECTIONS}
+                           for name in SECTIONS if getattr(scenario, name) is not None
+                           and (name != "sex" or scenario.stages is not None)}
     out["disturbance"] = [dataclasses.asdict(c) for c in scenario.disturbances]
     out["action"] = [dataclasses.asdict(c) for c in scenario.actions]
     return json.loads(json.dumps(out, default=str))

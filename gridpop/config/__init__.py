@@ -31,6 +31,7 @@ from .kinds import (
 from .load import Scenario, load_scenario
 from .schema import REQUIRED, Key
 from .sections import (
+    DENSITY_ACTS_ON,
     DISPERSAL_METHODS,
     EDGES,
     GROWTH_MODELS,
@@ -38,6 +39,9 @@ from .sections import (
     OUTPUT_RASTERS,
     RESPONSES,
     SECTIONS,
+    SEX_SYSTEMS,
+    SURVIVORSHIPS,
+    DensityActsOn,
     DispersalConfig,
     DispersalMethod,
     Edge,
@@ -53,16 +57,22 @@ from .sections import (
     Response,
     RiskConfig,
     RunConfig,
+    SexConfig,
+    SexSystem,
+    StagesConfig,
+    Survivorship,
 )
 
 __all__ = [
-    "ACTION_KINDS", "ARRAY_SECTIONS", "DISPERSAL_METHODS", "DISTURBANCE_KINDS", "EDGES",
+    "ACTION_KINDS", "ARRAY_SECTIONS", "DENSITY_ACTS_ON", "DISPERSAL_METHODS",
+    "DISTURBANCE_KINDS", "EDGES",
     "FIRE_SIZES", "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED",
-    "RESPONSES", "SECTIONS",
+    "RESPONSES", "SECTIONS", "SEX_SYSTEMS", "SURVIVORSHIPS",
     "ActionConfig", "BarrierConfig", "CorridorConfig", "DispersalConfig", "DispersalMethod",
     "DisturbanceConfig", "Edge", "FireConfig", "FireSize", "FloodConfig", "GridConfig",
     "GrowthConfig", "GrowthModel", "HabitatConfig", "HabitatLossConfig", "InitialConfig", "Kernel",
     "Key", "OutputConfig", "OutputRaster", "PlanConfig", "Recovery", "ReserveConfig",
-    "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario",
+    "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario", "SexConfig",
+    "SexSystem", "StagesConfig", "Survivorship", "DensityActsOn",
     "load_scenario", "reference_markdown", "template_toml",
 ]

@@ -38,19 +38,25 @@ def _key_lines(keys: tuple[Key, ...]) -> list[str]:
     return lines
 
 
+OPTIONAL_SECTIONS = ("stages", "sex")
+"""Sections the template shows commented out as a whole: given, they change the model."""
+
+
 def template_toml() -> str:
     """A commented scenario template generated from the schema (``gridpop init``).
 
-    The ``[[disturbance]]`` and ``[[action]]`` examples are commented out as a whole: removing one
+    The ``[stages]`` and ``[sex]`` sections (stage- or age-structured life history, two sexes) and
+    the ``[[disturbance]]`` and ``[[action]]`` examples are commented out as a whole: removing one
     leading ``# `` from the lines of an example gives a table with its required keys set and its
     optional keys (at their defaults) still commented out.
     """
     lines = ["# gridpop scenario. Paths are relative to this file.",
              "# Every key is documented in docs/scenario.md; defaults are shown commented out.", ""]
     for name, (doc, keys) in SECTIONS.items():
-        lines.append(f"[{name}]  # {doc}")
-        lines += _key_lines(keys)
-        lines.append("")
+        block = [f"[{name}]  # {doc}"] + _key_lines(keys)
+        if name in OPTIONAL_SECTIONS:  # commented out as a whole, like the examples below
+            block = [f"# {line}" for line in block]
+        lines += block + [""]
     for name, (doc, kinds) in ARRAY_SECTIONS.items():
         lines += ["# " + line for line in
                   textwrap.wrap(f"{doc} Known kinds: {', '.join(kinds)}.", 96)] + [""]

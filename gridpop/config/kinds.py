@@ -202,11 +202,48 @@ class HabitatLossConfig(AreaAction):
                           unit="years", low=0)
 
 
+def _stage() -> Any:
+    return key(None, doc="Stage of [stages] concerned (required with [stages]; without it, "
+               "every individual).", example="adult")
+
+
+@dataclass(frozen=True, kw_only=True)
+class ReleaseConfig(AreaAction):
+    """Individuals added (captive-bred or translocated) in the given years, spread over the
+    area's habitat cells in proportion to capacity, after the year's disturbance and before
+    growth."""
+
+    kind: Literal["release"]
+    stage: str | None = _stage()
+    count: int = key(doc="Individuals released in each of the years.", low=1, example=60)
+    years: tuple[float, ...] = key(doc="Years of the releases: year t is the step from census "
+                                   "year t to t+1 (whole numbers, 0 = the first step).",
+                                   unit="year", low=0, example=[2, 3, 4])
+    source_area: Path | None = key(None, doc="Translocation: the individuals are taken from the "
+                                   "wild there (as many as are present, up to count), a vector "
+                                   "file or raster as area.", example="donor.gpkg")
+
+
+@dataclass(frozen=True, kw_only=True)
+class RemovalConfig(AreaAction):
+    """Individuals removed (culling, harvest, bycatch) from the area each year from start_year,
+    after the year's disturbance and before growth. Give fraction or count."""
+
+    kind: Literal["removal"]
+    stage: str | None = _stage()
+    fraction: float | None = key(None, doc="Fraction of the individuals in the area removed each "
+                                 "year (binomial in stochastic mode).", low=0, high=1,
+                                 example=0.1)
+    count: int | None = key(None, doc="Individuals removed each year (as many as are present, "
+                            "taken in proportion to the cells' numbers).", low=1)
+    start_year: int = _start_year()
+
+
 DisturbanceConfig = FireConfig | FloodConfig
 """A ``[[disturbance]]`` table, one class per kind."""
 
 ActionConfig = (ReserveConfig | CorridorConfig | BarrierConfig | RestorationConfig
-                | HabitatLossConfig)
+                | HabitatLossConfig | ReleaseConfig | RemovalConfig)
 """An ``[[action]]`` table, one class per kind."""
 
 TABLE_FIELDS = ("label", "kind")

@@ -11,12 +11,14 @@ import dataclasses
 import difflib
 import hashlib
 import math
+import re
 import tomllib
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from .. import matrices
 from ..errors import ScenarioError, where
 from .kinds import (
     ARRAY_SECTIONS,
@@ -25,11 +27,14 @@ from .kinds import (
     DisturbanceConfig,
     FireConfig,
     FloodConfig,
+    ReleaseConfig,
+    RemovalConfig,
 )
 from .schema import REQUIRED, Key
 from .sections import (
     SECTION_CLASSES,
     SECTIONS,
+    STAGE_RASTER,
     DispersalConfig,
     GridConfig,
     GrowthConfig,
@@ -40,6 +45,8 @@ from .sections import (
     RiskConfig,
     RunConfig,
     SectionConfig,
+    SexConfig,
+    StagesConfig,
 )
 
 
@@ -59,6 +66,8 @@ class Scenario:
     output: OutputConfig
     risk: RiskConfig
     plan: PlanConfig
+    stages: StagesConfig | None = None  # None: no [stages], the stage-free model
+    sex: SexConfig = SexConfig()
     disturbances: tuple[DisturbanceConfig, ...] = ()
     actions: tuple[ActionConfig, ...] = ()
 
@@ -96,11 +105,21 @@ def check_value(file: Path | str, section: str, key: Key, value: object) -> Any:
         if not isinstance(value, bool):
             raise ScenarioError(bad)
         return value
+    if key.type == "floatlist" and isinstance(value, str):
+        if value in key.choices:
+            return value
+        raise ScenarioError(bad)
+    if key.type == "floatmatrix":
+        if not isinstance(value, list) or not value or not all(
+                isinstance(row, list) and row for row in value):
+            raise ScenarioError(bad)
+        one = dataclasses.replace(key, type="float")
+        return tuple(tuple(check_value(file, section, one, v) for v in row) for row in value)
     if key.type == "floatlist":
         items = value if isinstance(value, list) else [value]
         if not items:
             raise ScenarioError(bad)
-        one = dataclasses.replace(key, type="float")
+        one = dataclasses.replace(key, type="float", choices=())
         return tuple(check_value(file, section, one, v) for v in items)
     if key.type == "pathlist":
         items = value if isinstance(value, list) else [value]
@@ -111,7 +130,8 @@ def check_value(file: Path | str, section: str, key: Key, value: object) -> Any:
         if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
             raise ScenarioError(bad)
         for v in value:
-            if key.choices and v not in key.choices:
+            if key.choices and v not in key.choices and not (
+                    key.name == "rasters" and v.startswith(STAGE_RASTER)):
                 raise ScenarioError(f"{loc}: {v!r} is not known; expected {key.allowed()}.")
         return tuple(value)
     if key.type in ("str", "path"):
@@ -192,7 +212,109 @@ def _cross_checks(file: Path, s: Scenario) -> Scenario:
                             f"fraction = {disp.fraction:g} > 0.")
     if s.grid.template is None:
         s = dataclasses.replace(s, grid=dataclasses.replace(s.grid, template=s.habitat.suitability))
+    if s.stages is not None:
+        s = _stage_checks(file, s)
+    elif s.sex.system != "female-only":
+        raise ScenarioError(f"{where(file, 'sex', 'system')} = {s.sex.system!r} needs a "
+                            "[stages] section (the life history of females and males).")
+    elif any(r.startswith(STAGE_RASTER) for r in s.output.rasters):
+        raise ScenarioError(f"{where(file, 'output', 'rasters')}: abundance_<stage> needs a "
+                            "[stages] section.")
     return s
+
+
+STAGE_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+LESLIE_KEYS = ("ages", "weibull_shape", "mean_lifespan_years", "fecundity_by_age")
+
+
+def _matrix(file: Path, st: StagesConfig) -> tuple[StagesConfig, Any, Any]:
+    """The stages with names, transitions and fecundity filled in (a Leslie matrix built from
+    the Weibull survivorship when ``ages`` is given), and the checked (T, F)."""
+    leslie = [k for k in LESLIE_KEYS if getattr(st, k) is not None]
+    given = [k for k in ("transitions", "fecundity") if getattr(st, k) is not None]
+    if leslie and given:
+        raise ScenarioError(f"{where(file, 'stages', given[0])}: give either transitions and "
+                            f"fecundity or {', '.join(LESLIE_KEYS)}, not both.")
+    needed = LESLIE_KEYS if leslie else ("transitions", "fecundity")
+    for k in needed:
+        if getattr(st, k) is None:
+            raise ScenarioError(f"{where(file, 'stages', k)} is required with "
+                                f"{(leslie or given or ['[stages]'])[0]}.")
+    for k in given:
+        rows = getattr(st, k)
+        if any(len(row) != len(rows) for row in rows):
+            raise ScenarioError(f"{where(file, 'stages', k)}: must be a square matrix, one row "
+                                f"of {len(rows)} numbers per stage (got rows of "
+                                f"{', '.join(str(len(r)) for r in rows)}).")
+    try:
+        if leslie:
+            assert st.ages is not None and st.weibull_shape is not None
+            assert st.mean_lifespan_years is not None
+            t, f = matrices.weibull_leslie(st.ages, st.weibull_shape, st.mean_lifespan_years,
+                                           st.fecundity_by_age)
+            t, f = matrices.validate(t, f)
+        else:
+            t, f = matrices.validate(st.transitions, st.fecundity)
+    except ValueError as exc:
+        name = str(exc).split()[0].rstrip(":")
+        if leslie and name not in LESLIE_KEYS:
+            raise ScenarioError(f"{where(file, 'stages', 'fecundity_by_age')}: the Leslie "
+                                f"matrix: {exc}.") from None
+        raise ScenarioError(f"{where(file, 'stages')} {exc}.") from None
+    n = t.shape[0]
+    names = st.names or tuple(f"age{i}" if leslie else f"stage{i + 1}" for i in range(n))
+    if len(names) != n:
+        raise ScenarioError(f"{where(file, 'stages', 'names')} = {list(names)}: {len(names)} "
+                            f"names for a {n}-stage matrix; give one per stage.")
+    for name in names:
+        if not STAGE_NAME.match(name) or names.count(name) > 1:
+            raise ScenarioError(f"{where(file, 'stages', 'names')}: {name!r} must be unique "
+                                "and made of letters, digits and _ (starting with a letter).")
+    st = dataclasses.replace(st, names=tuple(names), transitions=tuple(map(tuple, t.tolist())),
+                             fecundity=tuple(map(tuple, f.tolist())))
+    return st, t, f
+
+
+def _stage_checks(file: Path, s: Scenario) -> Scenario:
+    """[stages] (and [sex]) against each other and against [growth] and [dispersal]."""
+    assert s.stages is not None
+    st, t, f = _matrix(file, s.stages)
+    assert st.names is not None
+    names, n = st.names, len(st.names)
+    for k in ("density_stages", "abundance_stages"):
+        chosen = getattr(st, k)
+        if chosen is None:
+            continue
+        unknown = [x for x in chosen if x not in names]
+        if unknown or not chosen:
+            raise ScenarioError(f"{where(file, 'stages', k)} = {list(chosen)}: unknown stage "
+                                f"{unknown[0] if unknown else 'none given'}; the stages are "
+                                f"{', '.join(names)}.")
+    for r in s.output.rasters:
+        if r.startswith(STAGE_RASTER) and r[len(STAGE_RASTER):] not in names:
+            raise ScenarioError(f"{where(file, 'output', 'rasters')}: {r!r} names no stage; "
+                                f"the stages are {', '.join(names)}.")
+    for k in ("initial_distribution", "dispersal_fraction"):
+        v = getattr(st, k)
+        if isinstance(v, tuple) and len(v) != n:
+            raise ScenarioError(f"{where(file, 'stages', k)} = {list(v)}: {len(v)} values for "
+                                f"{n} stages ({', '.join(names)}); give one per stage.")
+    init = st.initial_distribution
+    if isinstance(init, tuple) and not math.isclose(sum(init), 1.0, abs_tol=1e-6):
+        raise ScenarioError(f"{where(file, 'stages', 'initial_distribution')} = {list(init)}: "
+                            "the fractions must sum to 1.")
+    if st.dispersal_fraction is not None and s.dispersal.fraction > 0:
+        raise ScenarioError(f"{where(file, 'dispersal', 'fraction')} is replaced by [stages] "
+                            "dispersal_fraction; give only one of them.")
+    fractions = st.dispersal_fraction or (s.dispersal.fraction,)
+    d = s.dispersal
+    if max(fractions) > 0 and d.method == "kernel" and d.mean_distance_m is None:
+        raise ScenarioError(f"{where(file, 'dispersal', 'mean_distance_m')} is required when "
+                            f"individuals disperse ([stages] dispersal_fraction).")
+    diag = matrices.diagnostics(t, f)
+    growth = dataclasses.replace(s.growth, rate=math.log(diag.lam),
+                                 survival=float(t.sum(axis=0) @ diag.stable_distribution))
+    return dataclasses.replace(s, stages=st, growth=growth)
 
 
 def _fire_checks(file: Path, c: FireConfig) -> None:
@@ -238,8 +360,22 @@ def _flood_checks(file: Path, c: FloodConfig) -> None:
                             f"must not decrease with the return period.")
 
 
+def _release_checks(file: Path, c: ReleaseConfig) -> None:
+    if any(y != int(y) for y in c.years):
+        raise ScenarioError(f"{where(file, c.label, 'years')} = {list(c.years)}: years must be "
+                            "whole numbers.")
+
+
+def _removal_checks(file: Path, c: RemovalConfig) -> None:
+    if (c.fraction is None) == (c.count is None):
+        raise ScenarioError(f"{where(file, c.label)}: give either fraction or count, not "
+                            f"{'both' if c.count is not None else 'neither'}.")
+
+
 KIND_CHECKS: dict[str, Callable[[Path, Any], None]] = {"fire": _fire_checks,
-                                                       "flood": _flood_checks}
+                                                       "flood": _flood_checks,
+                                                       "release": _release_checks,
+                                                       "removal": _removal_checks}
 """Checks across the keys of one kind, after each key is valid on its own."""
 
 
@@ -301,10 +437,34 @@ def load_scenario(path: str | Path) -> Scenario:
     for name in ("run", "habitat", "growth"):
         if name not in raw:
             raise ScenarioError(f"{file}: section [{name}] is required.")
+    if "stages" in raw and isinstance(raw["growth"], dict):
+        for name in ("rate", "survival"):
+            if name in raw["growth"]:
+                raise ScenarioError(f"{where(file, 'growth', name)} is set by the [stages] "
+                                    "matrix; remove it (model, theta, allee_density, "
+                                    "stochastic and the env_ keys still apply).")
+        raw["growth"] = {**raw["growth"], "rate": 0.0}  # replaced from the matrix below
     sections: dict[str, Any] = {name: parse_section(file, name, raw.get(name, {}))
-                                for name in SECTIONS}
+                                for name in SECTIONS if name != "stages" or name in raw}
     scenario = Scenario(path=file, sha256=hashlib.sha256(raw_bytes).hexdigest(), **sections)
     scenario = _cross_checks(file, scenario)
-    return dataclasses.replace(
+    scenario = dataclasses.replace(
         scenario, disturbances=parse_tables(file, "disturbance", raw.get("disturbance", [])),
         actions=parse_tables(file, "action", raw.get("action", [])))
+    _managed_stages(file, scenario)
+    return scenario
+
+
+def _managed_stages(file: Path, s: Scenario) -> None:
+    """The stage of every release and removal is a stage of [stages] (none without it)."""
+    names = s.stages.names or () if s.stages is not None else ()
+    for c in s.actions:
+        if c.kind not in ("release", "removal"):
+            continue
+        if c.stage is None and names:
+            raise ScenarioError(f"{where(file, c.label, 'stage')} is required with [stages]: "
+                                f"one of {', '.join(names)}.")
+        if c.stage is not None and c.stage not in names:
+            raise ScenarioError(f"{where(file, c.label, 'stage')} = {c.stage!r} is not a stage"
+                                + (f"; the stages are {', '.join(names)}." if names else
+                                   " (no [stages] section: leave stage out)."))

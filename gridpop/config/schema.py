@@ -23,7 +23,8 @@ META: Final = "gridpop.key"
 
 SCALARS: Final[dict[object, str]] = {int: "int", float: "float", bool: "bool", str: "str",
                                      Path: "path"}
-LISTS: Final = {"str": "strlist", "float": "floatlist", "path": "pathlist"}
+LISTS: Final = {"str": "strlist", "float": "floatlist", "path": "pathlist",
+                "floatlist": "floatmatrix"}
 
 
 @dataclass(frozen=True)
@@ -54,7 +55,8 @@ class Key:
     """One scenario key: its type, default, unit, allowed values and documentation."""
 
     name: str
-    type: str  # "int", "float", "bool", "str", "path", "strlist", "floatlist", "pathlist"
+    type: str  # "int", "float", "bool", "str", "path", "strlist", "floatlist", "pathlist",
+    # "floatmatrix"
     default: object
     doc: str
     unit: str = ""
@@ -66,6 +68,9 @@ class Key:
     example: object = None
 
     def allowed(self) -> str:
+        if self.choices and self.type == "floatlist":
+            return (" or ".join(repr(c) for c in self.choices) + " or "
+                    + dataclasses.replace(self, choices=()).allowed())
         if self.choices:
             return "one of " + ", ".join(repr(c) for c in self.choices)
         kinds = {
@@ -77,12 +82,14 @@ class Key:
             "strlist": "a list of strings",
             "floatlist": "a number or a list of numbers",
             "pathlist": "a file path or a list of file paths",
+            "floatmatrix": "a list of rows, each a list of numbers",
         }
         text = kinds[self.type]
         if self.low is not None or self.high is not None:
             lo = "" if self.low is None else f"{self.low:g} {'<' if self.low_open else '<='} "
             hi = "" if self.high is None else f" {'<' if self.high_open else '<='} {self.high:g}"
-            text += f" with {lo}{'values' if self.type == 'floatlist' else 'value'}{hi}"
+            many = self.type in ("floatlist", "floatmatrix")
+            text += f" with {lo}{'values' if many else 'value'}{hi}"
         return text
 
 
@@ -90,8 +97,11 @@ def key_type(hint: object) -> tuple[str, tuple[str, ...]]:
     """Key type name and choices of a field annotation; ``X | None`` counts as ``X``."""
     origin, args = get_origin(hint), get_args(hint)
     if origin is Union or origin is types.UnionType:
-        (inner,) = (a for a in args if a is not type(None))
-        return key_type(inner)
+        inner = [a for a in args if a is not type(None)]
+        if len(inner) == 2:  # Literal[...] | tuple[float, ...]: a choice or a list of numbers
+            (choice,) = (a for a in inner if get_origin(a) is Literal)
+            return "floatlist", get_args(choice)
+        return key_type(inner[0])
     if origin is Literal:
         return "str", args
     if origin is tuple:

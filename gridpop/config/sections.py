@@ -19,6 +19,10 @@ Edge = Literal["absorbing", "reflecting"]
 DispersalMethod = Literal["kernel", "walk"]
 Response = Literal["linear", "threshold", "power"]
 OutputRaster = Literal["abundance", "occupancy", "colonised"]
+DensityActsOn = Literal["fecundity", "survival", "all"]
+Survivorship = Literal["weibull"]
+SexSystem = Literal["female-only", "monogamous", "polygynous"]
+StableDistribution = Literal["stable"]
 
 GROWTH_MODELS: tuple[GrowthModel, ...] = get_args(GrowthModel)
 KERNELS: tuple[Kernel, ...] = get_args(Kernel)
@@ -26,6 +30,11 @@ EDGES: tuple[Edge, ...] = get_args(Edge)
 DISPERSAL_METHODS: tuple[DispersalMethod, ...] = get_args(DispersalMethod)
 RESPONSES: tuple[Response, ...] = get_args(Response)
 OUTPUT_RASTERS: tuple[OutputRaster, ...] = get_args(OutputRaster)
+STAGE_RASTER = "abundance_"
+"""[output] rasters also takes ``abundance_<stage>``, a stage of [stages]."""
+DENSITY_ACTS_ON: tuple[DensityActsOn, ...] = get_args(DensityActsOn)
+SURVIVORSHIPS: tuple[Survivorship, ...] = get_args(Survivorship)
+SEX_SYSTEMS: tuple[SexSystem, ...] = get_args(SexSystem)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -107,6 +116,62 @@ class GrowthConfig:
 
 
 @dataclass(frozen=True, kw_only=True)
+class StagesConfig:
+    """Stage- or age-structured life history in every cell (a projection matrix). Give names,
+    transitions and fecundity, or ages with a Weibull survivorship and fecundity_by_age. With
+    [stages], [growth] rate and survival are set by the matrix; the other [growth] keys apply."""
+
+    names: tuple[str, ...] | None = key(None, doc="Stage names, in matrix order (with ages: "
+                                        "default age0, age1, ...).",
+                                        example=["juvenile", "subadult", "adult"])
+    transitions: tuple[tuple[float, ...], ...] | None = key(
+        None, doc="transitions[i][j]: probability that an individual of stage j is alive and in "
+        "stage i next year (each column sums to at most 1).", low=0,
+        example=[[0.0, 0.0, 0.0], [0.35, 0.0, 0.0], [0.0, 0.55, 0.82]])
+    fecundity: tuple[tuple[float, ...], ...] | None = key(
+        None, doc="fecundity[i][j]: stage-i offspring counted at the next census per individual "
+        "of stage j.", low=0, example=[[0.0, 0.9, 2.1], [0.0, 0.0, 0.0], [0.0, 0.0, 0.0]])
+    ages: int | None = key(None, doc="Age-structured alternative: number of age classes of a "
+                           "Leslie matrix built from survivorship and fecundity_by_age.", low=1)
+    survivorship: Survivorship = key("weibull", doc="Survivorship of the age classes: weibull, "
+                                     "l(x) = exp(-(x/b)^weibull_shape).")
+    weibull_shape: float | None = key(None, doc="Shape of the Weibull survivorship: > 1 "
+                                      "late-life mortality (type I), 1 constant (type II), < 1 "
+                                      "early mortality (type III).", low=0, low_open=True)
+    mean_lifespan_years: float | None = key(None, doc="Mean lifespan of the Weibull "
+                                            "survivorship.", unit="years", low=0,
+                                            low_open=True)
+    fecundity_by_age: tuple[float, ...] | None = key(None, doc="Offspring at the next census "
+                                                     "per individual of each age class.", low=0)
+    density_acts_on: DensityActsOn = key("fecundity", doc="Vital rates that crowding scales "
+                                         "down (so that an isolated cell settles at its K).")
+    density_stages: tuple[str, ...] | None = key(None, doc="Stages counted against the "
+                                                 "capacity. Default: all stages.")
+    abundance_stages: tuple[str, ...] | None = key(None, doc="Stages counted in abundance, "
+                                                   "risk and occupancy. Default: all stages.")
+    initial_distribution: StableDistribution | tuple[float, ...] = key(
+        "stable", doc="How the initial individuals of a cell divide among the stages: stable "
+        "(the matrix's stable stage distribution) or one fraction per stage.", low=0)
+    dispersal_fraction: tuple[float, ...] | None = key(None, doc="Fraction of each stage that "
+                                                       "disperses each year; replaces "
+                                                       "[dispersal] fraction.", low=0, high=1)
+
+
+@dataclass(frozen=True, kw_only=True)
+class SexConfig:
+    """Two sexes: who breeds depends on the numbers of females and males."""
+
+    system: SexSystem = key("female-only", doc="female-only: one sex, the matrix as given; "
+                            "monogamous: births from the harmonic mean 2FM/(F+M) of the "
+                            "breeding females F and males M; polygynous: from min(F, harem_size "
+                            "M).")
+    female_fraction_at_birth: float = key(0.5, doc="Fraction of births that are female (two "
+                                          "sexes).", low=0, high=1, low_open=True,
+                                          high_open=True)
+    harem_size: float = key(4.0, doc="Polygynous: females one male can mate with.", low=1)
+
+
+@dataclass(frozen=True, kw_only=True)
 class DispersalConfig:
     """Movement between cells with a dispersal kernel."""
 
@@ -152,7 +217,9 @@ class DispersalConfig:
 class OutputConfig:
     """What to write."""
 
-    rasters: tuple[OutputRaster, ...] = key(OUTPUT_RASTERS, doc="GeoTIFF time stacks to write.")
+    rasters: tuple[OutputRaster, ...] = key(OUTPUT_RASTERS, doc="GeoTIFF time stacks to "
+                                            "write; abundance_<stage>: the mean abundance of "
+                                            "one stage of [stages] (e.g. abundance_adult).")
     occupancy_threshold: float = key(1.0, doc="A cell is occupied when it holds at least this "
                                      "many individuals.", unit="individuals", low=0,
                                      low_open=True)
@@ -184,11 +251,13 @@ class PlanConfig:
 
 
 SectionConfig = (RunConfig | GridConfig | HabitatConfig | InitialConfig | GrowthConfig
-                 | DispersalConfig | OutputConfig | RiskConfig | PlanConfig)
+                 | StagesConfig | SexConfig | DispersalConfig | OutputConfig | RiskConfig
+                 | PlanConfig)
 
 SECTION_CLASSES: dict[str, type[SectionConfig]] = {
     "run": RunConfig, "grid": GridConfig, "habitat": HabitatConfig, "initial": InitialConfig,
-    "growth": GrowthConfig, "dispersal": DispersalConfig, "output": OutputConfig,
+    "growth": GrowthConfig, "stages": StagesConfig, "sex": SexConfig,
+    "dispersal": DispersalConfig, "output": OutputConfig,
     "risk": RiskConfig, "plan": PlanConfig,
 }
 """Section name (the TOML table ``[name]``) -> its dataclass, in the order of the reference."""

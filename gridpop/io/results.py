@@ -133,14 +133,17 @@ def year_labels(years: int) -> list[str]:
 
 
 def write_ledger_csv(path: Path, ledger: np.ndarray, *, first_replicate: int = 0,
-                     patches: bool = False, integers: bool = True) -> None:
+                     patches: bool = False, integers: bool = True,
+                     extra: tuple[str, ...] = ()) -> None:
     """Write ledger rows.
 
     ``ledger`` has shape (replicates, years+1, F) for the landscape or
-    (replicates, years+1, P, F) for patches 1..P.
+    (replicates, years+1, P, F) for patches 1..P; F is :data:`LEDGER_FIELDS` and then the
+    ``extra`` columns (``abundance_<stage>``, ``females``, ``males`` of a life history).
     """
     fmt = (lambda v: str(int(v))) if integers else (lambda v: f"{v:.12g}")
-    head = ["replicate", "year"] + (["patch"] if patches else []) + list(LEDGER_FIELDS)
+    head = ["replicate", "year"] + (["patch"] if patches else []) + list(LEDGER_FIELDS) + list(
+        extra)
     with open(path, "w", newline="") as fh:
         w = csv.writer(fh)
         w.writerow(head)

@@ -1,7 +1,9 @@
 """How many individuals leave their cell: a fraction ``fraction * min(1, N / K) **
-density_dependence`` of each cell's individuals, as expected numbers or as binomial draws of whole
-individuals. The row kernels (:func:`leaving_row_deterministic`, :func:`leaving_row_stochastic`)
-are what the yearly cycle's growth pass calls; the whole-grid functions apply them to every row.
+density_dependence`` of each cell's individuals (N the cell's density-stage total, which the row
+kernels take apart from the individuals that may leave), as expected numbers or as binomial
+draws of whole individuals. The row kernels (:func:`leaving_row_deterministic`,
+:func:`leaving_row_stochastic`) are what the yearly cycle's growth pass calls; the whole-grid
+functions apply them to every row.
 """
 
 from __future__ import annotations
@@ -22,35 +24,36 @@ def _emigration_fraction(n, k, fraction, dd):
 
 
 @njit
-def leaving_row_deterministic(n, k, fraction, dd, out):
-    """Expected emigrants of one row (1-D ``n``, ``k``; written to ``out``)."""
+def leaving_row_deterministic(n, density, k, fraction, dd, out):
+    """Expected emigrants of one row (1-D ``n`` who may leave, ``density`` the density-stage
+    total, ``k``; written to ``out``)."""
     for j in range(n.size):
-        out[j] = n[j] * _emigration_fraction(n[j], k[j], fraction, dd)
+        out[j] = n[j] * _emigration_fraction(density[j], k[j], fraction, dd)
 
 
 @njit
-def leaving_row_stochastic(n, k, fraction, dd, key, first_cell, out):
+def leaving_row_stochastic(n, density, k, fraction, dd, key, first_cell, out):
     """Emigrants of one row, ``Binomial(n, f)`` on ``rng.cell_key(key, first_cell + j)``; cells
     that lose the plain fraction draw from its binomial table."""
     table = rng.binomial_table(fraction)
     for j in range(n.size):
         c = np.int64(n[j])
         out[j] = 0.0 if c <= 0 else rng.binomial_with_table(
-            c, _emigration_fraction(n[j], k[j], fraction, dd), fraction, table,
+            c, _emigration_fraction(density[j], k[j], fraction, dd), fraction, table,
             rng.cell_key(key, first_cell + j))
 
 
 @pjit
 def _leaving_deterministic_kernel(n, k, fraction, dd, out):
     for i in prange(n.shape[0]):
-        leaving_row_deterministic(n[i], k[i], fraction, dd, out[i])
+        leaving_row_deterministic(n[i], n[i], k[i], fraction, dd, out[i])
 
 
 @pjit
 def _leaving_stochastic_kernel(n, k, fraction, dd, key, out):
     nx = n.shape[1]
     for i in prange(n.shape[0]):
-        leaving_row_stochastic(n[i], k[i], fraction, dd, key, i * nx, out[i])
+        leaving_row_stochastic(n[i], n[i], k[i], fraction, dd, key, i * nx, out[i])
 
 
 def _leaving_args(n, k):

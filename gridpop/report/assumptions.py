@@ -6,6 +6,8 @@ from __future__ import annotations
 
 import json
 
+from .lifehistory import managed_phrase, stage_texts
+
 CAPACITY = (
     "Metapopulation capacity (Hanski and Ovaskainen 2000) measures how well the patch network "
     "as a whole can hold a metapopulation: the leading eigenvalue of the matrix with entries "
@@ -88,6 +90,8 @@ def _action(c: dict) -> str:
         what = f"crossing mortality {c['crossing_mortality']:g}"
     elif kind == "restoration":
         what = f"suitability rises to {c['target_suitability']:g} {_ramp(c)}"
+    elif kind in ("release", "removal"):
+        what = managed_phrase(c)
     else:
         what = f"suitability falls to {c['target_suitability']:g} outside reserves {_ramp(c)}"
     return f"{kind.replace('_', ' ')} ({area}): {what}"
@@ -190,7 +194,8 @@ def assumptions(params: dict) -> list[tuple[str, str]]:
     hab, g, d = params["habitat"], params["growth"], params["dispersal"]
     tables, actions = params.get("disturbance", []), params.get("action", [])
     ini = params["initial"]
-    moves = d["fraction"] > 0
+    staged = stage_texts(params)
+    moves = d["fraction"] > 0 or staged.get("moves") == "True"
     env = g["env_sd"] > 0
     if ini["raster"]:
         start = f"Year 0 is the raster {ini['raster']}"
@@ -242,9 +247,10 @@ def assumptions(params: dict) -> list[tuple[str, str]]:
     if not moves:
         dispersal = "None: every individual stays in its cell."
     else:
-        leaving = (f"Each year {d['fraction']:g} of a cell's individuals"
-                   + (f" (times min(1, N / K)^{d['density_dependence']:g}, so more when crowded)"
-                      if d["density_dependence"] > 0 else "") + " leave it and ")
+        leaving = staged.get("leaving") or (
+            f"Each year {d['fraction']:g} of a cell's individuals"
+            + (f" (times min(1, N / K)^{d['density_dependence']:g}, so more when crowded)"
+               if d["density_dependence"] > 0 else "") + " leave it and ")
         dispersal = leaving + (_walk_dispersal(d, actions) if d["method"] == "walk"
                                else _kernel_dispersal(d, actions))
     if actions:
@@ -268,9 +274,10 @@ def assumptions(params: dict) -> list[tuple[str, str]]:
                  "behaviour while dispersing (searching for habitat, following corridors, "
                  "avoiding barriers)")
     return [
-        ("Population", population),
+        ("Population", staged.get("Population", population)),
         ("Yearly cycle and census", cycle),
-        ("Growth", growth),
+        ("Growth", staged.get("Growth", growth)),
+        *([("Life history", staged["Life history"])] if staged else []),
         ("Environmental variation", environment),
         ("Dispersal", dispersal),
         ("Disturbance", _disturbance(tables, actions)),
@@ -282,9 +289,12 @@ def assumptions(params: dict) -> list[tuple[str, str]]:
          "differences between plans have paired intervals. They cover the randomness simulated "
          "only, not errors in the maps or the parameters, which usually matter more."),
         ("Not modelled",
-         f"Age, stage or sex structure; genetics (inbreeding, loss of diversity); {behaviour}; "
+         ("Genetics" if staged else "Age, stage or sex structure; genetics")
+         + f" (inbreeding, loss of diversity); {behaviour}; "
          "settlement that depends on how crowded a cell is; other species (predators, "
-         "competitors, disease); harvest and translocation; habitat change other than the "
+         "competitors, disease); "
+         + ("" if any(c["kind"] in ("release", "removal") for c in actions) else
+            "harvest and translocation; ") + "habitat change other than the "
          "actions and the disturbances (climate or land-use trends); uncertainty in the "
          "parameters themselves (each run uses one parameter set); anything outside the grid."),
     ]

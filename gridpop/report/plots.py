@@ -57,6 +57,7 @@ from ..config import load_scenario
 from ..errors import GridpopError, InputDataError, RunStateError
 from ..io.results import LEDGER_FIELDS, whole_file
 from ..landscape import build_landscape
+from .stageplots import stage_figures
 
 OKABE_ITO = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000",
              "#F0E442")
@@ -67,7 +68,7 @@ _DASHES = ("-", "--", "-.", ":")
 ACTION_STYLE: dict[str, tuple[str, Any]] = {
     "reserve": ("#CC79A7", "-"), "corridor": ("#D55E00", "--"), "barrier": ("#000000", ":"),
     "restoration": ("#009E73", "-."), "habitat_loss": ("#E69F00", (0, (5, 1, 1, 1))),
-    "focus": ("#FFFFFF", "-")}
+    "release": ("#56B4E9", "-"), "removal": ("#0072B2", ":"), "focus": ("#FFFFFF", "-")}
 """Outline colour and line style per action kind (and the focus areas) on the maps."""
 
 DPI = 110
@@ -624,7 +625,7 @@ def _maps(plans: list[Plan], compare_dir: Path | None = None) -> list[tuple[str,
 
 def _figures(plans: list[Plan], compare_dir: Path | None = None) -> list[tuple[str, Figure]]:
     return ([("risk", risk_figure(plans)), ("abundance", abundance_figure(plans))]
-            + _maps(plans, compare_dir) + [("ledger", ledger_figure(plans))])
+            + _maps(plans, compare_dir) + [("ledger", ledger_figure(plans))] + stage_figures(plans))
 
 
 def _write(folder: Path, figures) -> list[Path]:

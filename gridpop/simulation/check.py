@@ -5,6 +5,9 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+
+from .. import matrices
 from .model import Model
 
 
@@ -30,14 +33,21 @@ def describe(scenario, model: Model) -> list[str]:
         lines.append("patches: none (no cell has capacity)")
     lines.append(f"initial population: {model.initial.sum():,.1f} individuals")
     mode = "stochastic (whole individuals)" if g.stochastic else "deterministic (expectations)"
-    lines.append(f"growth: {g.model}, r = {g.rate:g} (lambda0 = {math.exp(g.rate):.4g}), "
-                 f"survival = {g.survival:g}, {mode}")
+    st = scenario.stages
+    if st is None:
+        lines.append(f"growth: {g.model}, r = {g.rate:g} (lambda0 = {math.exp(g.rate):.4g}), "
+                     f"survival = {g.survival:g}, {mode}")
+    else:
+        lines += stage_lines(scenario, mode)
     if model.growth.env is not None:
         lines.append(f"environment: sd {g.env_sd:g}, correlation length "
                      f"{g.env_correlation_m:g} m, autocorrelation {g.env_autocorrelation:g}")
+    staged = st is not None and st.dispersal_fraction is not None
+    who = ("the stage fractions above" if staged
+           else f"{scenario.dispersal.fraction:g} of individuals")
     if model.kernel is not None:
         d = scenario.dispersal
-        lines.append(f"dispersal: {d.fraction:g} of individuals per year, {d.kernel} kernel, "
+        lines.append(f"dispersal: {who} per year, {d.kernel} kernel, "
                      f"mean distance {d.mean_distance_m:g} m, radius {model.kernel.radius} "
                      f"cells, {d.edge} edge")
     elif model.walk is not None:
@@ -46,7 +56,7 @@ def describe(scenario, model: Model) -> list[str]:
             f"resistance from suitability (max {d.resistance_max:g}, shape "
             f"{d.resistance_shape:g})")
         blocked = int((w.permeability == 0).sum())
-        lines.append(f"dispersal: {d.fraction:g} of individuals per year walk over the "
+        lines.append(f"dispersal: {who} per year walk over the "
                      f"landscape, {source}; up to {d.walk_length} steps, "
                      f"death_per_resistance {d.death_per_resistance:g}, heading_bias "
                      f"{d.heading_bias:g}; "
@@ -59,3 +69,25 @@ def describe(scenario, model: Model) -> list[str]:
     plan = model.plan
     lines.append(f"run: {plan.years} years x {plan.replicates} replicates, seed {plan.seed}")
     return lines
+
+
+def stage_lines(scenario, mode: str) -> list[str]:
+    """The life history: stages, crowding, sexes, then the matrix and its diagnostics."""
+    st, g, sex = scenario.stages, scenario.growth, scenario.sex
+    names = list(st.names)
+    t, f = np.array(st.transitions), np.array(st.fecundity)
+    init = st.initial_distribution
+    lines = [f"growth: {len(names)}-stage matrix ({', '.join(names)}), {g.model} crowding of "
+             f"{st.density_acts_on} by {', '.join(st.density_stages or names)}, {mode}",
+             f"  abundance counts {', '.join(st.abundance_stages or names)}; initial "
+             f"distribution {init if isinstance(init, str) else list(init)}"]
+    if st.dispersal_fraction is not None:
+        lines.append("  dispersal fraction by stage: " + ", ".join(
+            f"{n} {x:g}" for n, x in zip(names, st.dispersal_fraction, strict=True)))
+    if sex.system != "female-only":
+        harem = f", harem size {sex.harem_size:g}" if sex.system == "polygynous" else ""
+        lines.append(f"  two sexes, {sex.system}{harem}, female fraction at birth "
+                     f"{sex.female_fraction_at_birth:g}")
+    lines.append("  transitions: " + "; ".join(" ".join(f"{x:g}" for x in r) for r in t))
+    lines.append("  fecundity: " + "; ".join(" ".join(f"{x:g}" for x in r) for r in f))
+    return lines + [f"  {line}" for line in matrices.describe(names, t, f)]

@@ -34,9 +34,18 @@ from .._jit import njit, pjit, prange
 from ..demography import grow_row
 from ..disturbance import YearEffects
 from ..io.results import LEDGER_FIELDS
-from ..movement import NO_RETENTION
+from ..movement import NO_RETENTION, Moved
 from ..movement.emigration import leaving_row_deterministic, leaving_row_stochastic
-from ..rng import STREAM_BIRTHS, STREAM_EMIGRATION, STREAM_SURVIVAL, YearStreams
+from ..rng import (
+    CLASS_STREAMS,
+    STREAM_BIRTHS,
+    STREAM_EMIGRATION,
+    STREAM_SEX,
+    STREAM_SURVIVAL,
+    STREAM_TRANSITION,
+    YearStreams,
+)
+from ..stages import density_row, share_deaths, stage_row
 from .model import Emigration, Model
 
 N_FIELDS = len(LEDGER_FIELDS)
@@ -120,44 +129,93 @@ def _add_run(part, c, q, r0, r1, r2, r3, r4, r5):
     part[c, q, 5] += r5
 
 
-@pjit
-def grow_pass(labels, n_patches, n, k, env, out, leaving, rates, emigration, keys, retention):
-    """Local growth of every cell, then emigration: ``out`` gets the residents (grown minus
-    emigrants), ``leaving`` the emigrants (zero when ``emigration.fraction == 0``).
+@njit
+def _run_sums_block(part, c, labels, n_patches, block):
+    """Add the sums of the rows of ``block`` (m, nx) over one row of the grid to
+    ``part[c, patch, :m]``, one run of a patch at a time (as :func:`_run_sums`)."""
+    m = block.shape[0]
+    run = labels[0]
+    acc = np.zeros(m)
+    for j in range(labels.size + 1):
+        p = labels[j] if j < labels.size else -1
+        if p != run:
+            q = run if run > 0 else n_patches + 1
+            for f in range(m):
+                part[c, q, f] += acc[f]
+                acc[f] = 0.0
+            run = p
+        if j < labels.size:
+            for f in range(m):
+                acc[f] += block[f, j]
 
-    ``env``: the year's environmental field, or (1, 1) for one deviation everywhere.
-    ``rates``: :class:`GrowthRates`; ``emigration``: :class:`Emigration`; ``keys``: year keys of
-    survival, births and emigration (stochastic). When ``retention.own`` is not empty (expected
-    kernel dispersal, :class:`gridpop.movement.Retention`), the emigrants are also summed
-    weighted by its ``share`` (of them landing back home, where ``k > 0``), ``own`` and
-    ``anywhere``: the stayers, those that settle in their own patch and those that settle.
+
+@pjit
+def grow_pass(labels, n_patches, n, k, env, out, leaving, rates, stages, fractions, emigration,
+              keys, retention):
+    """Local growth of every cell, then emigration: ``out`` gets the residents (grown minus
+    emigrants), ``leaving`` the emigrants (zero for classes whose ``fractions`` is 0).
+
+    ``n``, ``out``, ``leaving``: (C, ny, nx) counts per class (:mod:`gridpop.stages`; one class
+    for the stage-free model). ``env``: the year's environmental field, or (1, 1) for one
+    deviation everywhere. ``rates``: :class:`GrowthRates`; ``stages``:
+    :class:`gridpop.stages.StageRates` (``matrix`` False: the scalar kernel
+    :func:`gridpop.demography.grow_row` grows the one class); ``fractions``: (C,) emigration
+    fraction per class; ``emigration``: :class:`Emigration` (its density dependence acts on the
+    density-stage total); ``keys``: year keys of survival, births, emigration, transitions and
+    sex (stochastic); class ``c`` of cell ``i * nx + j`` is drawn as cell
+    ``(c * ny + i) * nx + j``. When ``retention.own`` is not empty (expected kernel dispersal,
+    :class:`gridpop.movement.Retention`), the emigrants are also summed weighted by its
+    ``share`` (of them landing back home, where ``k > 0``), ``own`` and ``anywhere``: the
+    stayers, those that settle in their own patch and those that settle.
 
     Returns (n_chunks, n_patches + 2, N_SUMS) partial sums per chunk of rows and patch (row 0
     unused, the last row the cells of no patch; :func:`patch_totals` adds them up) of the
     fields of :class:`GrowthSums`.
     """
-    ny, nx = n.shape
+    classes, ny, nx = n.shape
     rows = (ny + N_CHUNKS - 1) // N_CHUNKS
     part = np.zeros((N_CHUNKS, n_patches + 2, N_SUMS))
     weighted = retention.own.shape[0] > 0
-    fraction, dd = emigration.fraction, emigration.density_dependence
+    dd = emigration.density_dependence
     stochastic = rates.stochastic
+    stage_keys = np.array([keys[0], keys[1], keys[3], keys[4]], np.uint64)
     for chunk in prange(N_CHUNKS):
         c = np.int64(chunk)  # a prange index is unsigned: one type for the callees
         births, deaths = np.empty(nx), np.empty(nx)
         home, mine, anyw = np.zeros(nx), np.zeros(nx), np.zeros(nx)
+        dens, total = np.empty(nx), np.empty(nx)
         for i in range(c * rows, min(ny, (c + 1) * rows)):
-            o, lv, ki = out[i], leaving[i], k[i]
-            grow_row(n[i], ki, _row_of(env, i), o, births, deaths, rates.model, rates.r,
-                     rates.s, rates.theta, rates.allee_a, stochastic, keys[0], keys[1], i * nx)
-            if fraction == 0.0:
-                lv[:] = 0.0
-            elif stochastic:
-                leaving_row_stochastic(o, ki, fraction, dd, keys[2], i * nx, lv)
+            ki = k[i]
+            if stages.matrix:
+                stage_row(n[:, i], ki, _row_of(env, i), out[:, i], births, deaths, dens,
+                          rates.model, rates.theta, rates.allee_a, stages, stochastic,
+                          stage_keys, i * nx, ny * nx)
+                density_row(out[:, i], stages.density, dens)
             else:
-                leaving_row_deterministic(o, ki, fraction, dd, lv)
-            for j in range(nx):
-                o[j] -= lv[j]
+                grow_row(n[0, i], ki, _row_of(env, i), out[0, i], births, deaths, rates.model,
+                         rates.r, rates.s, rates.theta, rates.allee_a, stochastic, keys[0],
+                         keys[1], i * nx)
+            density = out[0, i] if not stages.matrix else dens
+            lv = leaving[0, i]
+            for a in range(classes):
+                o, lv = out[a, i], leaving[a, i]
+                fraction = fractions[a]
+                if fraction == 0.0:
+                    lv[:] = 0.0
+                elif stochastic:
+                    leaving_row_stochastic(o, density, ki, fraction, dd, keys[2],
+                                           (a * ny + i) * nx, lv)
+                else:
+                    leaving_row_deterministic(o, density, ki, fraction, dd, lv)
+                for j in range(nx):
+                    o[j] -= lv[j]
+            if classes > 1:
+                total[:] = 0.0
+                for a in range(classes):
+                    la = leaving[a, i]
+                    for j in range(nx):
+                        total[j] += la[j]
+                lv = total
             if weighted:
                 sh = _row_of(retention.share, i)
                 ow, an = retention.own[i], retention.anywhere[i]
@@ -169,33 +227,67 @@ def grow_pass(labels, n_patches, n, k, env, out, leaving, rates, emigration, key
     return part
 
 
+@njit
+def _settle_classes(n, i, ki, arrivals, arriving, counted, v, settled):
+    """Row ``i`` of several classes: each class gains its arrivals where ``ki > 0``
+    (``settled``: their sum), ``v`` the sum of the counted classes."""
+    settled[:] = 0.0
+    for a in range(n.shape[0]):
+        if arriving[a] < 0:
+            continue
+        ar, na = _row_of(arrivals[arriving[a]], i), n[a, i]
+        for j in range(ki.size):
+            x = ar[j] if ki[j] > 0.0 else 0.0
+            settled[j] += x
+            na[j] += x
+    v[:] = 0.0
+    for a in range(n.shape[0]):
+        if counted[a]:
+            na = n[a, i]
+            for j in range(ki.size):
+                v[j] += na[j]
+
+
 @pjit
-def census_pass(labels, n_patches, k, n, arrivals, stayed, dist_deaths, threshold, ever, sum_n,
-           occupied, ever_count):
+def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving, stayed,
+                dist_deaths, threshold, ever, sum_n, occupied, ever_count):
     """Settle the year's arrivals, then take the census.
 
-    ``n`` holds the residents on entry and the census abundance on return: ``n + arrivals``
-    where capacity ``k > 0`` (arrivals elsewhere are lost). ``arrivals``, ``stayed`` (the
-    dispersers that landed back home) and ``dist_deaths`` (the year's disturbance deaths) may
-    be (1, nx) zeros. Adds this year's per-cell abundance, occupancy and ever-occupied to the
-    accumulators (``ever``: this replicate's cells occupied so far).
+    ``n`` (C, ny, nx) holds the residents per class on entry and the census counts on return:
+    class ``c`` gains ``arrivals[arriving[c]]`` where capacity ``k > 0`` (``arriving[c] < 0``:
+    none; arrivals elsewhere are lost). ``abundance`` (ny, nx) gets the census abundance, the
+    sum of the classes where ``counted`` is 1 (with one class it may be ``n[0]`` itself).
+    ``arrivals`` may be (A, 1, nx), ``stayed`` (the dispersers that landed back home) and
+    ``dist_deaths`` (the year's disturbance deaths) (1, nx), zeros. Adds this year's per-cell
+    abundance, occupancy and ever-occupied to the accumulators (``ever``: this replicate's
+    cells occupied so far).
 
-    Returns partial sums as :func:`grow_pass` does, of the fields of :class:`CensusSums`.
+    Returns partial sums as :func:`grow_pass` does, of the fields of :class:`CensusSums`, and
+    (with more than one class) those of every class, (n_chunks, n_patches + 2, C).
     """
-    ny, nx = n.shape
+    classes, ny, nx = n.shape
     rows = (ny + N_CHUNKS - 1) // N_CHUNKS
     part = np.zeros((N_CHUNKS, n_patches + 2, N_SUMS))
+    per_class = np.zeros((N_CHUNKS, n_patches + 2, classes if classes > 1 else 0))
     for chunk in prange(N_CHUNKS):
         c = np.int64(chunk)  # a prange index is unsigned: one type for the callees
         occ, settled, home, zero = np.empty(nx), np.empty(nx), np.empty(nx), np.zeros(nx)
         for i in range(c * rows, min(ny, (c + 1) * rows)):
-            v, ki, e, sn, oc, ec = n[i], k[i], ever[i], sum_n[i], occupied[i], ever_count[i]
-            a, st = _row_of(arrivals, i), _row_of(stayed, i)
+            v, ki, e, sn, oc, ec = abundance[i], k[i], ever[i], sum_n[i], occupied[i], \
+                ever_count[i]
+            st = _row_of(stayed, i)
+            one = classes == 1  # settled in the census loop below (v is n[0, i])
+            a0 = _row_of(arrivals[max(arriving[0], 0)], i)
+            lands = arriving[0] >= 0
+            if not one:
+                _settle_classes(n, i, ki, arrivals, arriving, counted, v, settled)
+                _run_sums_block(per_class, c, labels[i], n_patches, n[:, i])
             for j in range(nx):
                 here = ki[j] > 0.0
-                settled[j] = a[j] if here else 0.0
+                if one:
+                    settled[j] = a0[j] if here and lands else 0.0
+                    v[j] += settled[j]
                 home[j] = st[j] if here else 0.0
-                v[j] += settled[j]
                 hit = v[j] >= threshold
                 e[j] = 1 if hit or e[j] else 0
                 occ[j] = 1.0 if hit else 0.0
@@ -204,7 +296,7 @@ def census_pass(labels, n_patches, k, n, arrivals, stayed, dist_deaths, threshol
                 ec[j] += e[j]
             _run_sums(part, c, labels[i], n_patches, v, _row_of(dist_deaths, i), occ, settled,
                       home, zero)
-    return part
+    return part, per_class
 
 
 class Replicate:
@@ -212,15 +304,27 @@ class Replicate:
 
     ``start(sink)`` takes the census of year 0; ``advance(t, sink)`` moves the population from
     census year ``t - 1`` to census year ``t``, takes that census and writes ledger row ``t``.
-    The random numbers of that transition are those of year ``t - 1``.
+    The random numbers of that transition are those of year ``t - 1``. The state ``n`` holds
+    one (ny, nx) field per class of the life history (:class:`gridpop.simulation.model.
+    LifeHistory`).
     """
 
     def __init__(self, model: Model, replicate: int, ledger: np.ndarray):
         self.model, self.replicate, self.ledger = model, replicate, ledger
+        life = model.growth.life
         shape = model.capacity.shape
-        self.n = model.initial.copy()
-        self._out = np.empty(shape)
-        self._leaving = np.zeros(shape)
+        self.n = life.initial.copy()
+        self._out = np.empty_like(self.n)
+        self._leaving = np.zeros_like(self.n)
+        self._abundance = np.empty(shape) if life.classes > 1 else None
+        self.moving = np.flatnonzero(life.fractions > 0) if model.movement is not None else \
+            np.zeros(0, np.int64)
+        self._fractions = life.fractions if model.movement is not None else \
+            np.zeros(life.classes)
+        self._arriving = np.full(life.classes, -1, np.int64)
+        self._arriving[self.moving] = np.arange(self.moving.size)
+        self._arrivals = np.empty((self.moving.size, *shape)) if self.moving.size > 1 else None
+        self._no_arrivals = np.zeros((1, 1, shape[1]))
         self._uniform = np.zeros((1, shape[1]))  # a field of zeros (see _row_of)
         self._no_env = np.zeros((1, 1))  # no environmental deviation (one value per row)
         self.ever = np.zeros(shape, np.uint8)
@@ -230,9 +334,27 @@ class Replicate:
         self.effects: YearEffects | None = None  # the last year's disturbance effects
         self.visits = np.zeros(shape) if model.walk is not None else None  # the year's flow
 
+    @property
+    def abundance(self) -> np.ndarray:
+        """The census abundance per cell (the counted classes)."""
+        return self.n[0] if self._abundance is None else self._abundance
+
     def start(self, sink: BatchSink) -> None:
-        self._census(0, sink, self.model.capacity, self._uniform, self._uniform,
-                     self._uniform)
+        self._census(0, sink, self.model.capacity, self._no_arrivals, self._uniform,
+                     self._uniform, np.full(self.n.shape[0], -1, np.int64))
+
+    def _disturb(self, year: int, k: np.ndarray) -> YearEffects:
+        """This year's fires and floods; their deaths shared among the classes."""
+        m = self.model
+        assert m.regime is not None
+        n = self.n[0] if self.n.shape[0] == 1 else self.n.sum(axis=0)
+        before = n.copy() if self.n.shape[0] > 1 else n
+        effects = m.regime.apply(self._dist_state, n, k, seed=m.plan.seed,
+                                 replicate=self.replicate, year=year,
+                                 stochastic=m.growth.stochastic)
+        if self.n.shape[0] > 1:
+            share_deaths(self.n, before, n, m.growth.stochastic)
+        return effects
 
     def advance(self, t: int, sink: BatchSink) -> None:
         m, year = self.model, t - 1
@@ -244,34 +366,38 @@ class Replicate:
                                                      self._env_state)
         k = m.actions.capacity_for_year(year)
         if m.regime is not None:
-            effects = self.effects = m.regime.apply(self._dist_state, self.n, k, seed=seed,
-                                                    replicate=self.replicate, year=year,
-                                                    stochastic=m.growth.stochastic)
+            effects = self.effects = self._disturb(year, k)
             dist_deaths = effects.deaths
             k = effects.capacity
+        if m.management is not None:
+            self.ledger[t, :, N_FIELDS:N_FIELDS + 2] = np.stack(m.management.apply(
+                self.n, k, year, streams, m.growth.stochastic), axis=1)
         movement = m.movement
         retention = movement.mover.retention(k) if movement is not None else NO_RETENTION
         counted = retention.own.shape[0] > 0  # the growth pass counts the retention
-        keys = np.array([streams.key(s) for s in
-                         (STREAM_SURVIVAL, STREAM_BIRTHS, STREAM_EMIGRATION)], np.uint64)
+        keys = np.array([streams.key(s) for s in (STREAM_SURVIVAL, STREAM_BIRTHS,
+                                                  STREAM_EMIGRATION, STREAM_TRANSITION,
+                                                  STREAM_SEX)], np.uint64)
         c = m.census
         g = GrowthSums(*patch_totals(grow_pass(
             c.labels, c.n_patches, self.n, k, env, self._out, self._leaving, m.growth.rates,
+            m.growth.life.rates, self._fractions,
             movement.emigration if movement is not None else NO_EMIGRATION, keys,
             retention)).T)
         self.n, self._out = self._out, self.n
         row = self.ledger[t]
         row[:, F_BIRTHS] = g.births
         row[:, F_DEATHS] = g.deaths
-        if movement is None:
-            self._census(t, sink, k, self._uniform, self._uniform, dist_deaths)
+        if movement is None or self.moving.size == 0:
+            self._census(t, sink, k, self._no_arrivals, self._uniform, dist_deaths,
+                         self._arriving)
             return
         if self.visits is not None:
             self.visits[:] = 0.0
-        moved = movement.mover.move(self._leaving, k, streams, self._work)
+        moved = self._move(streams, k)
         if moved.visits is not None:
             self.visits += moved.visits
-        s = self._census(t, sink, k, moved.arrivals, moved.stayed, dist_deaths)
+        s = self._census(t, sink, k, moved.arrivals, moved.stayed, dist_deaths, self._arriving)
         if counted:
             stay, retained, settled_from = g.stayed[0], g.retained.copy(), g.settled_from.copy()
             retained[0] = settled_from[0] = 0.0
@@ -286,21 +412,57 @@ class Replicate:
         row[0, F_IMMIG] = in_p[0] - stay
         row[0, F_LOSS] = out_p[0] - in_p[0]
 
-    def _census(self, t: int, sink: BatchSink, k, arrivals, stayed, dist_deaths) -> CensusSums:
+    def _move(self, streams: YearStreams, k: np.ndarray) -> Moved:
+        """The emigrants of every dispersing class moved, each class on its own streams
+        (``arrivals``: (A, ny, nx), one field per dispersing class)."""
+        mover = self.model.movement.mover  # type: ignore[union-attr]
+        if self.moving.size == 1:
+            a = int(self.moving[0])
+            one = mover.move(self._leaving[a], k, streams._replace(offset=a * CLASS_STREAMS),
+                             self._work)
+            return one._replace(arrivals=one.arrivals[None])
+        assert self._arrivals is not None
+        total: Moved | None = None
+        for i, a in enumerate(self.moving.tolist()):
+            one = mover.move(self._leaving[a], k, streams._replace(offset=a * CLASS_STREAMS),
+                             self._work)
+            self._arrivals[i] = one.arrivals
+            if total is None:
+                total = Moved(self._arrivals, one.stayed.copy(), _copy(one.retained),
+                              _copy(one.settled_from), _copy(one.visits))
+                continue
+            total.stayed[...] += one.stayed
+            for mine, theirs in ((total.retained, one.retained),
+                                 (total.settled_from, one.settled_from),
+                                 (total.visits, one.visits)):
+                if mine is not None and theirs is not None:
+                    mine += theirs
+        assert total is not None
+        return total
+
+    def _census(self, t: int, sink: BatchSink, k, arrivals, stayed, dist_deaths,
+                arriving) -> CensusSums:
         """Settle the arrivals, take the census of year ``t`` into ``sink`` and the ledger."""
-        c = self.model.census
-        s = CensusSums(*patch_totals(census_pass(
-            c.labels, c.n_patches, k, self.n, arrivals, stayed, dist_deaths,
-            c.occupancy_threshold, self.ever, sink.acc["sum_n"][t], sink.acc["occupied"][t],
-            sink.acc["ever"][t])).T)
+        c, life = self.model.census, self.model.growth.life
+        part, per_class = census_pass(
+            c.labels, c.n_patches, k, self.n, self.abundance, life.counted, arrivals, arriving,
+            stayed, dist_deaths, c.occupancy_threshold, self.ever, sink.acc["sum_n"][t],
+            sink.acc["occupied"][t], sink.acc["ever"][t])
+        s = CensusSums(*patch_totals(part).T)
         row = self.ledger[t]
         row[:, F_ABUND] = s.abundance
         row[:, F_DIST] = s.disturbance_deaths
         row[:, F_OCC] = s.occupied
+        if life.columns:
+            row[:, N_FIELDS + 2 * (self.model.management is not None):] = life.columns_of(
+                patch_totals(per_class) if life.classes > 1 else row[:, F_ABUND:F_ABUND + 1])
         if self.visits is not None and t > 0:
             sink.acc["visits"][t] += self.visits
+        for stage in life.rasters:
+            sink.acc[f"sum_abundance_{life.names[stage]}"][t] += \
+                self.n[stage::len(life.names)].sum(axis=0)
         if c.focus is not None and sink.focus is not None:
-            c.focus.record(sink.focus[self.replicate - sink.replicates.start, t], self.n)
+            c.focus.record(sink.focus[self.replicate - sink.replicates.start, t], self.abundance)
         eff = self.effects
         if t > 0 and eff is not None:
             for kind, hit in (("fire", eff.burned), ("flood", eff.flooded)):
@@ -308,6 +470,10 @@ class Replicate:
                     sink.acc[f"n_{kind}"][t] += hit
             sink.events += [(self.replicate, t, *e) for e in eff.events]
         return s
+
+
+def _copy(a: np.ndarray | None) -> np.ndarray | None:
+    return None if a is None else a.copy()
 
 
 def simulate_replicate(model: Model, replicate: int, sink: BatchSink, row: int) -> None:
@@ -333,7 +499,7 @@ class BatchSink:
                                                     dtype=dt, shape=shape)
                     for name, dt in model.accumulators.items()}
         self.ledger = np.zeros((len(replicates), model.plan.years + 1, model.census.n_patches + 1,
-                                N_FIELDS))
+                                N_FIELDS + len(model.ledger_columns)))
         self.events: list[tuple] = []
         self.folder = folder
         self.replicates = replicates

@@ -17,6 +17,7 @@ from typing import NamedTuple
 
 import numpy as np
 
+from .. import matrices
 from ..actions import Actions, apply_actions
 from ..analysis.summary import FocusCensus, focus_census
 from ..demography import MODEL_CODES, EnvironmentalNoise
@@ -24,6 +25,7 @@ from ..disturbance import Regime, build_regime
 from ..errors import InputDataError, ScenarioError, where, where_layer
 from ..io.rasters import align_raster
 from ..landscape import Landscape
+from ..management import Management, build_management
 from ..movement import Mover
 from ..movement.barrier import BarrierKernelMover
 from ..movement.connectivity import patch_connectivity
@@ -35,6 +37,7 @@ from ..movement.walk import (
     permeability_from_resistance,
     resistance_from_suitability,
 )
+from ..stages import StageRates, one_stage, split_initial, stage_rates
 
 
 @dataclass(frozen=True)
@@ -66,11 +69,46 @@ class GrowthRates(NamedTuple):
 
 
 @dataclass(frozen=True)
+class LifeHistory:
+    """The classes of a cell's population (:mod:`gridpop.stages`): the stages, and with two sexes
+    the female stages then the male stages. The stage-free model has one class and no names."""
+
+    rates: StageRates
+    names: tuple[str, ...]  # stage names; () without [stages]
+    fractions: np.ndarray  # (C,) emigration fraction per class
+    counted: np.ndarray  # (C,) uint8: 1 for classes counted in abundance
+    initial: np.ndarray  # (C, ny, nx) year-0 counts per class
+    rasters: tuple[int, ...] = ()  # stages whose abundance stacks are written
+
+    @property
+    def classes(self) -> int:
+        return self.fractions.size
+
+    @property
+    def columns(self) -> list[str]:
+        """Ledger columns after :data:`gridpop.io.results.LEDGER_FIELDS`: ``abundance_<stage>``
+        per stage, then ``females`` and ``males`` with two sexes."""
+        return [f"abundance_{n}" for n in self.names] + (
+            ["females", "males"] if self.rates.sexes == 2 else [])
+
+    def columns_of(self, per_class: np.ndarray) -> np.ndarray:
+        """The :attr:`columns` from the counts per class (last axis, C)."""
+        s = len(self.names)
+        sexes = [per_class[..., x * s:(x + 1) * s] for x in range(self.rates.sexes)]
+        cols = [sum(sexes[1:], sexes[0])]
+        if self.rates.sexes == 2:
+            cols += [x.sum(axis=-1, keepdims=True) for x in sexes]
+        return np.concatenate(cols, axis=-1)
+
+
+@dataclass(frozen=True)
 class Growth:
-    """Local growth: the vital rates and the environmental noise (None: none)."""
+    """Local growth: the vital rates, the environmental noise (None: none) and the life
+    history."""
 
     rates: GrowthRates
     env: EnvironmentalNoise | None
+    life: LifeHistory
 
     @property
     def stochastic(self) -> bool:
@@ -119,6 +157,15 @@ class Model:
     initial: np.ndarray
     actions: Actions
     regime: Regime | None
+    management: Management | None = None  # releases and removals
+
+    @property
+    def ledger_columns(self) -> list[str]:
+        """Ledger columns after :data:`gridpop.io.results.LEDGER_FIELDS`: ``released`` and
+        ``removed`` with releases or removals, then those of the life history
+        (:attr:`LifeHistory.columns`)."""
+        return (["released", "removed"] if self.management is not None else []) + \
+            self.growth.life.columns
 
     @property
     def walk(self) -> Walk | None:
@@ -136,6 +183,8 @@ class Model:
             acc.update({f"n_{kind}": np.int32 for kind in self.disturbance_kinds})
         if self.walk is not None:
             acc["visits"] = np.float64
+        acc.update({f"sum_abundance_{self.growth.life.names[s]}": np.float64
+                    for s in self.growth.life.rasters})
         return acc
 
     @functools.cached_property
@@ -162,8 +211,9 @@ def build_model(scenario, base: Landscape) -> Model:
     g, d, grid = scenario.growth, scenario.dispersal, landscape.grid
     labels = np.ascontiguousarray(landscape.patches.labels, np.int32)
     n_patches = landscape.patches.n
+    life = _life_history(scenario, landscape.initial)
     movement = None
-    if d.fraction > 0:
+    if life.fractions.max() > 0:
         emigration = Emigration(d.fraction, d.density_dependence)
         if d.method == "walk":
             walk = _walk(scenario, landscape, actions, labels, g.stochastic)
@@ -192,7 +242,7 @@ def build_model(scenario, base: Landscape) -> Model:
                         g.allee_density * grid.cell_area_ha, g.stochastic)
     return Model(
         plan=RunPlan(r.years, r.replicates, r.seed, r.batch_size),
-        growth=Growth(rates, env),
+        growth=Growth(rates, env, life),
         movement=movement,
         census=Census(labels, n_patches, scenario.output.occupancy_threshold,
                       focus_census(scenario, grid)),
@@ -200,7 +250,38 @@ def build_model(scenario, base: Landscape) -> Model:
         capacity=np.ascontiguousarray(landscape.capacity, dtype=np.float64),
         initial=np.ascontiguousarray(landscape.initial, dtype=np.float64),
         actions=actions, regime=build_regime(scenario, landscape, actions),
+        management=build_management(scenario, grid, actions.areas, labels, n_patches),
     )
+
+
+def _life_history(scenario, initial: np.ndarray) -> LifeHistory:
+    """The classes, their rates, emigration fractions and year-0 counts."""
+    st, g, sex = scenario.stages, scenario.growth, scenario.sex
+    if st is None:
+        return LifeHistory(one_stage(), (), np.array([scenario.dispersal.fraction]),
+                           np.ones(1, np.uint8), np.ascontiguousarray(initial[None], np.float64))
+    names = st.names
+    t, f = np.array(st.transitions), np.array(st.fecundity)
+    sexes = 1 if sex.system == "female-only" else 2
+    with _keys_of(scenario, "stages"):
+        rates = stage_rates(t, f, model=g.model, acts_on=st.density_acts_on,
+                            density_stages=[x in (st.density_stages or names) for x in names],
+                            sexes=sexes, system=sex.system,
+                            female_fraction=sex.female_fraction_at_birth, harem=sex.harem_size)
+    if st.initial_distribution == "stable":
+        w = matrices.diagnostics(t, f).stable_distribution
+    else:
+        w = np.array(st.initial_distribution, np.float64)
+    if sexes == 2:
+        p = sex.female_fraction_at_birth
+        w = np.concatenate([w * p, w * (1.0 - p)])
+    fractions = np.tile(np.array(st.dispersal_fraction
+                                 or [scenario.dispersal.fraction] * len(names)), sexes)
+    counted = np.tile([x in (st.abundance_stages or names) for x in names], sexes)
+    rasters = tuple(names.index(r[len("abundance_"):]) for r in scenario.output.rasters
+                    if r.startswith("abundance_"))
+    return LifeHistory(rates, names, fractions, counted.astype(np.uint8),
+                       np.ascontiguousarray(split_initial(initial, w, g.stochastic)), rasters)
 
 
 @contextlib.contextmanager

@@ -79,7 +79,8 @@ def footprint(scenario, model: Model) -> Footprint:
     if kernel is not None and kernel.radius > (STENCIL_MAX_RADIUS_SEPARABLE if kernel.separable
                                                else STENCIL_MAX_RADIUS):
         fft = FFT_BYTES_PER_CELL * (ny + 2 * kernel.radius) * (nx + 2 * kernel.radius)
-    ledger_row = N_FIELDS * 8
+    ledger_row = ledger_width(model) * 8
+    extra_classes = model.growth.life.classes - 1  # state, grown, emigrants per more class
     n_stacks = len(stacks_written(scenario, model))
     patch_rows = (model.plan.replicates * years * model.census.n_patches
                   if scenario.output.patches_csv else 0)
@@ -88,10 +89,16 @@ def footprint(scenario, model: Model) -> Footprint:
     results = years * cells * per_cell + output  # the combined totals beside the results
     return Footprint(
         base=BASE_BYTES + cells * MODEL_BYTES_PER_CELL,
-        batch=cells * REPLICATE_BYTES_PER_CELL + fft + model.plan.batch_size * rows * ledger_row,
+        batch=cells * (REPLICATE_BYTES_PER_CELL + 24 * extra_classes) + fft
+        + model.plan.batch_size * rows * ledger_row,
         combine=model.plan.replicates * rows * ledger_row + cells * 16,
         output=output, results=results,
         work=len(model.plan.batches()) * batch_bytes(model) + results)
+
+
+def ledger_width(model: Model) -> int:
+    """Columns of a ledger row: the fields, then releases and removals and the stages."""
+    return N_FIELDS + len(model.ledger_columns)
 
 
 def batch_bytes(model: Model) -> int:
@@ -99,7 +106,7 @@ def batch_bytes(model: Model) -> int:
     ny, nx = model.capacity.shape
     years = model.plan.years + 1
     per_cell = sum(np.dtype(dt).itemsize for dt in model.accumulators.values())
-    ledger = model.plan.batch_size * (model.census.n_patches + 1) * N_FIELDS * 8
+    ledger = model.plan.batch_size * (model.census.n_patches + 1) * ledger_width(model) * 8
     return years * (ny * nx * per_cell + ledger)
 
 

@@ -49,7 +49,8 @@ def stacks_written(scenario, model: Model) -> dict[str, str]:
     """Stacks a run writes (name -> accumulator): those asked for in [output] rasters, and
     always those of disturbance and walk dispersal when present."""
     return {name: acc for name, (acc, _) in STACKS.items() if acc in model.accumulators
-            and (name in scenario.output.rasters or name not in OUTPUT_RASTERS)}
+            and (name in scenario.output.rasters or name not in OUTPUT_RASTERS)} | {
+        name: f"sum_{name}" for name in scenario.output.rasters if name.startswith("abundance_")}
 
 
 def _blocks(model: Model) -> list[tuple[str, np.ndarray]]:
@@ -124,11 +125,13 @@ def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list
     if model.walk is not None:
         files += write_connectivity(work, scenario, model, totals["visits"])
     ledger = np.concatenate([np.load(p / "ledger.npy") for p in parts], axis=0)
-    write_ledger_csv(work / "timeseries.csv", ledger[:, :, 0, :], integers=model.growth.stochastic)
+    extra = tuple(model.ledger_columns)
+    write_ledger_csv(work / "timeseries.csv", ledger[:, :, 0, :], integers=model.growth.stochastic,
+                     extra=extra)
     files.append("timeseries.csv")
     if scenario.output.patches_csv and model.census.n_patches > 0:
         write_ledger_csv(work / "patches.csv", ledger[:, :, 1:, :], patches=True,
-                         integers=model.growth.stochastic)
+                         integers=model.growth.stochastic, extra=extra)
         files.append("patches.csv")
     if model.regime is not None:
         events = [e for p in parts for e in json.loads((p / "events.json").read_text())]
