@@ -249,7 +249,7 @@ def _matrix(file: Path, st: StagesConfig) -> tuple[StagesConfig, Any, Any]:
     try:
         if leslie:
             assert st.ages is not None and st.weibull_shape is not None
-            assert st.mean_lifespan_years is not None
+            assert st.mean_lifespan_years is not None and st.fecundity_by_age is not None
             t, f = matrices.weibull_leslie(st.ages, st.weibull_shape, st.mean_lifespan_years,
                                            st.fecundity_by_age)
             t, f = matrices.validate(t, f)
@@ -257,10 +257,12 @@ def _matrix(file: Path, st: StagesConfig) -> tuple[StagesConfig, Any, Any]:
             t, f = matrices.validate(st.transitions, st.fecundity)
     except ValueError as exc:
         name = str(exc).split()[0].rstrip(":")
+        name = "weibull_shape" if name == "shape" else name  # weibull_leslie's parameter
         if leslie and name not in LESLIE_KEYS:
             raise ScenarioError(f"{where(file, 'stages', 'fecundity_by_age')}: the Leslie "
                                 f"matrix: {exc}.") from None
-        raise ScenarioError(f"{where(file, 'stages')} {exc}.") from None
+        detail = str(exc).split(":", 1)[-1].strip()
+        raise ScenarioError(f"{where(file, 'stages', name)}: {detail}.") from None
     n = t.shape[0]
     names = st.names or tuple(f"age{i}" if leslie else f"stage{i + 1}" for i in range(n))
     if len(names) != n:
