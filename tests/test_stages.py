@@ -239,7 +239,7 @@ def test_stage_keys_are_checked(make_scenario):
         (good.replace('names = ["juvenile", "subadult", "adult"]', 'names = ["a", "b"]'),
          "[stages] names"),
         (good.replace("[[0.0, 0.9, 2.1]", "[[0.0, 0.0, 0.0]").replace("0.55, 0.82", "0.55, 0.0"),
-         "[stages] transitions"),
+         "[stages] fecundity"),  # lambda = 0: no stage ever reproduces
         (good.replace('model = "ricker"', 'model = "ricker"\nrate = 0.3'), "[growth] rate"),
         (good + "initial_distribution = [0.5, 0.2]\n", "[stages] initial_distribution"),
     ]
@@ -440,8 +440,8 @@ def test_stage_outputs_plots_and_report(make_scenario, tmp_path):
     assert any(p.name == "stages.png" for p in plot_run(out))
     html = write_report(out).read_text()
     lam = np.max(np.abs(np.linalg.eigvals(T3 + F3)))
-    assert "Life history" in html and f"lambda {lam:.4g}" in html
-    assert "elasticities" in html
+    assert "Life history" in html and f"lambda (dominant eigenvalue): {lam:.6g}" in html
+    assert "elasticity of lambda to each entry" in html
 
 
 def test_release_and_removal_keys_are_checked(make_scenario, make_raster):
