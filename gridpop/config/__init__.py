@@ -29,8 +29,9 @@ from .kinds import (
     RestorationConfig,
 )
 from .load import Scenario, load_scenario
-from .schema import REQUIRED, Key
+from .schema import REQUIRED, Key, Trend
 from .sections import (
+    CHANGES,
     DISPERSAL_METHODS,
     EDGES,
     GROWTH_MODELS,
@@ -41,10 +42,13 @@ from .sections import (
     DispersalConfig,
     DispersalMethod,
     Edge,
+    Change,
+    DispersalFuture,
     GridConfig,
     GrowthConfig,
     GrowthModel,
     HabitatConfig,
+    HabitatFuture,
     InitialConfig,
     Kernel,
     OutputConfig,
@@ -56,13 +60,13 @@ from .sections import (
 )
 
 __all__ = [
-    "ACTION_KINDS", "ARRAY_SECTIONS", "DISPERSAL_METHODS", "DISTURBANCE_KINDS", "EDGES",
+    "ACTION_KINDS", "ARRAY_SECTIONS", "CHANGES", "DISPERSAL_METHODS", "DISTURBANCE_KINDS", "EDGES",
     "FIRE_SIZES", "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED",
     "RESPONSES", "SECTIONS",
-    "ActionConfig", "BarrierConfig", "CorridorConfig", "DispersalConfig", "DispersalMethod",
+    "ActionConfig", "BarrierConfig", "Change", "DispersalFuture", "HabitatFuture", "CorridorConfig", "DispersalConfig", "DispersalMethod",
     "DisturbanceConfig", "Edge", "FireConfig", "FireSize", "FloodConfig", "GridConfig",
     "GrowthConfig", "GrowthModel", "HabitatConfig", "HabitatLossConfig", "InitialConfig", "Kernel",
     "Key", "OutputConfig", "OutputRaster", "PlanConfig", "Recovery", "ReserveConfig",
-    "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario",
+    "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario", "Trend",
     "load_scenario", "reference_markdown", "template_toml",
 ]

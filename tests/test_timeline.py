@@ -1,0 +1,202 @@
+"""Landscapes that change over time: future suitability layers and series, interpolation, actions
+on each year's layer, checks of every layer, and disturbance regimes that change."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from conftest import suitability_array
+
+from gridpop.actions import apply_actions
+from gridpop.config import load_scenario
+from gridpop.errors import InputDataError, ScenarioError
+from gridpop.landscape import build_landscape
+
+BASE = """
+[run]
+years = 40
+replicates = 2
+seed = 5
+
+[habitat]
+suitability = "{suitability}"
+capacity_per_ha = 10.0
+{habitat}
+
+[growth]
+rate = 0.4
+{more}
+"""
+
+K1 = 10.0 * (30.0 * 30.0 / 10_000.0)  # capacity at suitability 1 of a 30 m cell
+
+
+def layers(seed=0):
+    """The conftest suitability raster and two later layers with the same nodata corner."""
+    s0 = suitability_array()
+    rng = np.random.default_rng(seed + 11)
+    inside = s0 != -9999.0
+    s1 = np.where(inside, rng.random(s0.shape), -9999.0)
+    s2 = np.where(inside, 0.5 * s0, -9999.0)
+    return s0, s1, s2
+
+
+def scenario(make_scenario, habitat="", more="", name="scenario.toml"):
+    return load_scenario(make_scenario(BASE.replace("{habitat}", habitat)
+                                       .replace("{more}", more), name))
+
+
+def actions_of(sc):
+    return apply_actions(sc, build_landscape(sc, stochastic=False))
+
+
+FUTURE = """
+change = "{change}"
+[[habitat.future]]
+year = 10
+suitability = "s10.tif"
+[[habitat.future]]
+year = 30
+suitability = "s30.tif"
+"""
+
+
+def test_linear_change_equals_numpy_interp_per_cell(make_scenario, make_raster):
+    """Capacity of every year equals capacity_per_ha x cell area x the per-cell linear
+    interpolation of numpy.interp between the layers of years 0, 10 and 30, held after 30
+    (numpy reference: Harris et al. 2020, Nature 585:357, numpy.interp)."""
+    s0, s1, s2 = layers()
+    make_raster("s10.tif", s1)
+    make_raster("s30.tif", s2)
+    act = actions_of(scenario(make_scenario, FUTURE.format(change="linear")))
+    stack = np.stack([s0, s1, s2]).astype(np.float32).astype(np.float64)
+    inside = s0 != -9999.0
+    for year in range(0, 40):
+        want = np.zeros(s0.shape)
+        for i, j in zip(*np.nonzero(inside), strict=True):
+            want[i, j] = np.interp(year, [0, 10, 30], stack[:, i, j])
+        got = act.capacity_for_year(year)
+        np.testing.assert_array_equal(got, K1 * want, err_msg=f"year {year}")
+
+
+def test_step_change_happens_in_the_stated_year(make_scenario, make_raster):
+    """With change = "step" a layer holds from its year on, the earlier one until the year
+    before (year t is the step from census year t to t + 1)."""
+    s0, s1, s2 = layers()
+    make_raster("s10.tif", s1)
+    make_raster("s30.tif", s2)
+    act = actions_of(scenario(make_scenario, FUTURE.format(change="step")))
+    inside = s0 != -9999.0
+    k = {y: act.capacity_for_year(y) for y in (0, 9, 10, 29, 30, 39)}
+    f32 = [K1 * a.astype(np.float32).astype(np.float64)[inside] for a in (s0, s1, s2)]
+    np.testing.assert_array_equal(k[0][inside], f32[0])
+    np.testing.assert_array_equal(k[9][inside], f32[0])
+    np.testing.assert_array_equal(k[10][inside], f32[1])
+    np.testing.assert_array_equal(k[29][inside], f32[1])
+    np.testing.assert_array_equal(k[30][inside], f32[2])
+    np.testing.assert_array_equal(k[39][inside], f32[2])
+
+
+def test_series_band_k_is_year_k_minus_1(make_scenario, make_raster):
+    """A multi-band series: band k is the layer of year k-1, the last band holds after it."""
+    s0, s1, s2 = layers()
+    make_raster("series.tif", np.stack([s0, s1, s2]))
+    act = actions_of(scenario(make_scenario, 'suitability_series = "series.tif"'))
+    inside = s0 != -9999.0
+    for year, s in ((0, s0), (1, s1), (2, s2), (25, s2)):
+        got = act.capacity_for_year(year)
+        np.testing.assert_array_equal(got[inside], K1 * s.astype(np.float32).astype(np.float64)[inside])
+
+
+def test_series_band_1_must_be_the_starting_layer(make_scenario, make_raster):
+    s0, s1, s2 = layers()
+    make_raster("series.tif", np.stack([s1, s2]))
+    with pytest.raises(InputDataError, match="band 1 is the layer of year 0"):
+        actions_of(scenario(make_scenario, 'suitability_series = "series.tif"'))
+
+
+def test_layers_with_different_study_areas_name_both_files(make_scenario, make_raster):
+    s0, s1, _ = layers()
+    s1 = s1.copy()
+    s1[20:22, 10:12] = -9999.0
+    make_raster("s10.tif", s1)
+    make_raster("s30.tif", s1)
+    with pytest.raises(InputDataError) as err:
+        build_landscape(scenario(make_scenario, FUTURE.format(change="linear")),
+                        stochastic=False)
+    msg = str(err.value)
+    assert "s10.tif" in msg and "suitability.tif" in msg and "study area" in msg
+    assert "[habitat.future #1] suitability" in msg
+
+
+def test_future_layer_out_of_range_and_reprojected(make_scenario, make_raster):
+    """Values beyond 0..1 are refused as in the starting layer; a later layer on a finer grid
+    is aggregated onto the grid like the starting layer (GDAL average resampling through
+    rasterio, the reference library for raster alignment)."""
+    from rasterio.transform import from_origin
+
+    s0, s1, s2 = layers()
+    bad = np.where(s1 == -9999.0, -9999.0, 1.5)
+    make_raster("s10.tif", bad)
+    make_raster("s30.tif", s2)
+    with pytest.raises(InputDataError, match="values must lie in 0..1"):
+        build_landscape(scenario(make_scenario, FUTURE.format(change="linear")),
+                        stochastic=False)
+    # the layer of year 10 at 15 m cells: averaged onto the 30 m grid, as the starting layer
+    # would be (each grid cell covers four equal source cells, so the average is exact)
+    fine = np.kron(s1, np.ones((2, 2)))
+    make_raster("s10.tif", fine, transform=from_origin(500_000.0, 4_000_000.0, 15.0, 15.0))
+    act = actions_of(scenario(make_scenario, FUTURE.format(change="step")))
+    inside = s0 != -9999.0
+    np.testing.assert_allclose(act.capacity_for_year(10)[inside],
+                               K1 * s1.astype(np.float32)[inside], rtol=1e-6)
+    assert any("s10.tif" in n and "average" in n for n in act.landscape.notes)
+
+
+def test_future_years_must_increase(make_scenario, make_raster):
+    s0, s1, s2 = layers()
+    make_raster("s10.tif", s1)
+    make_raster("s30.tif", s2)
+    text = FUTURE.format(change="linear").replace("year = 30", "year = 5")
+    with pytest.raises(ScenarioError, match=r"\[habitat\] future: the years \[10, 5\] must"):
+        scenario(make_scenario, text)
+    with pytest.raises(ScenarioError, match="suitability_series or"):
+        scenario(make_scenario, 'suitability_series = "s10.tif"\n'
+                 + FUTURE.format(change="linear"))
+
+
+def test_reserve_and_habitat_loss_act_on_each_years_layer(make_scenario, make_raster):
+    """A reserve multiplies the capacity of every year's layer and is exempt from habitat
+    loss; habitat loss lowers each year's layer outside it (arithmetic of the action rules)."""
+    s0, s1, s2 = layers()
+    make_raster("s10.tif", s1)
+    make_raster("s30.tif", s2)
+    reserve = np.zeros(s0.shape)
+    reserve[5:20, 5:25] = 1.0
+    make_raster("reserve.tif", reserve)
+    make_raster("loss.tif", np.ones(s0.shape))
+    actions = """
+[[action]]
+kind = "reserve"
+area = "reserve.tif"
+capacity_multiplier = 1.5
+[[action]]
+kind = "habitat_loss"
+area = "loss.tif"
+target_suitability = 0.1
+start_year = 20
+"""
+    plain = actions_of(scenario(make_scenario, FUTURE.format(change="linear")))
+    plan = actions_of(scenario(make_scenario, FUTURE.format(change="linear"), actions,
+                               name="plan.toml"))
+    inside = s0 != -9999.0
+    res = reserve > 0
+    for year in (0, 15, 19, 20, 35):
+        k0, k1 = plain.capacity_for_year(year), plan.capacity_for_year(year)
+        np.testing.assert_allclose(k1[res], 1.5 * k0[res], rtol=1e-14)
+        out = inside & ~res
+        if year < 20:
+            np.testing.assert_array_equal(k1[out], k0[out])
+        else:
+            np.testing.assert_allclose(k1[out], np.minimum(k0[out], K1 * 0.1),
+                                       rtol=1e-14)
