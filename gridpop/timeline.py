@@ -49,6 +49,8 @@ def read_layer(source: Source, grid: Grid, mask: np.ndarray, first: Path, file: 
                ) -> tuple[np.ndarray, str]:
     """A later layer aligned onto the grid, NaN outside the study area, and how it was read.
 
+    ``mask`` is the starting layer's study area: its cells with a value (not NaN).
+
     Raises
     ------
     InputDataError
@@ -58,7 +60,7 @@ def read_layer(source: Source, grid: Grid, mask: np.ndarray, first: Path, file: 
     """
     layer = align_raster(source.path, grid, kind="continuous", file=file,
                          section=source.section, key=source.key, band=source.band)
-    inside = np.isfinite(layer.data)
+    inside = ~np.isnan(layer.data)
     if not np.array_equal(inside, mask):
         only_new, only_first = int((inside & ~mask).sum()), int((mask & ~inside).sum())
         raise InputDataError(

@@ -105,7 +105,8 @@ def test_series_band_k_is_year_k_minus_1(make_scenario, make_raster):
     inside = s0 != -9999.0
     for year, s in ((0, s0), (1, s1), (2, s2), (25, s2)):
         got = act.capacity_for_year(year)
-        np.testing.assert_array_equal(got[inside], K1 * s.astype(np.float32).astype(np.float64)[inside])
+        want = K1 * s.astype(np.float32).astype(np.float64)
+        np.testing.assert_array_equal(got[inside], want[inside])
 
 
 def test_series_band_1_must_be_the_starting_layer(make_scenario, make_raster):
@@ -295,7 +296,7 @@ def test_shifting_habitat_critical_speed_is_the_spread_speed(tmp_path):
             years = int(width / c_star) + 40
             run = 0
 
-            def persists(c, width=width, years=years):
+            def persists(c, width=width, years=years, widths=widths):
                 nonlocal run
                 run += 1
                 folder = tmp_path / f"w{widths}_{run}"

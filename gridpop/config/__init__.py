@@ -39,11 +39,11 @@ from .sections import (
     OUTPUT_RASTERS,
     RESPONSES,
     SECTIONS,
+    Change,
     DispersalConfig,
+    DispersalFuture,
     DispersalMethod,
     Edge,
-    Change,
-    DispersalFuture,
     GridConfig,
     GrowthConfig,
     GrowthModel,
@@ -60,13 +60,13 @@ from .sections import (
 )
 
 __all__ = [
-    "ACTION_KINDS", "ARRAY_SECTIONS", "CHANGES", "DISPERSAL_METHODS", "DISTURBANCE_KINDS", "EDGES",
-    "FIRE_SIZES", "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED",
-    "RESPONSES", "SECTIONS",
-    "ActionConfig", "BarrierConfig", "Change", "DispersalFuture", "HabitatFuture", "CorridorConfig", "DispersalConfig", "DispersalMethod",
+    "ACTION_KINDS", "ARRAY_SECTIONS", "CHANGES", "DISPERSAL_METHODS", "DISTURBANCE_KINDS",
+    "EDGES", "FIRE_SIZES", "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED",
+    "RESPONSES", "SECTIONS", "ActionConfig", "BarrierConfig", "Change", "DispersalFuture",
+    "HabitatFuture", "CorridorConfig", "DispersalConfig", "DispersalMethod",
     "DisturbanceConfig", "Edge", "FireConfig", "FireSize", "FloodConfig", "GridConfig",
-    "GrowthConfig", "GrowthModel", "HabitatConfig", "HabitatLossConfig", "InitialConfig", "Kernel",
-    "Key", "OutputConfig", "OutputRaster", "PlanConfig", "Recovery", "ReserveConfig",
+    "GrowthConfig", "GrowthModel", "HabitatConfig", "HabitatLossConfig", "InitialConfig",
+    "Kernel", "Key", "OutputConfig", "OutputRaster", "PlanConfig", "Recovery", "ReserveConfig",
     "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario", "Trend",
     "load_scenario", "reference_markdown", "template_toml",
 ]

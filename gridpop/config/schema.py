@@ -8,6 +8,7 @@ table that validation, the reference and the template work from.
 
 from __future__ import annotations
 
+import builtins
 import dataclasses
 import types
 import typing
@@ -93,7 +94,7 @@ class Key:
     high_open: bool = False
     example: object = None
     changing: bool = False  # also accepts a Trend
-    table: type | None = None  # type "tables": the dataclass of each table
+    table: builtins.type | None = None  # type "tables": the dataclass of each table
 
     def allowed(self) -> str:
         if self.choices:
