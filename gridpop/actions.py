@@ -158,6 +158,21 @@ class Actions:
             self._last = (key, last)
         return last
 
+    def totals(self, years) -> list[tuple[int, float, float]]:
+        """``(year, total K of the year's suitability layer alone, total K with the actions)``
+        for some years, for ``gridpop check``."""
+        out = []
+        for year in years:
+            k = self.capacity_for_year(year)
+            s = self._schedule
+            if s is None or s.base.timeline is None:
+                alone = self.landscape.capacity if s is None else s.base.capacity
+            else:
+                timeline = s.base.timeline
+                alone = _k(timeline.at(timeline.key(year)), 1.0, s.base, s.habitat)
+            out.append((year, float(alone.sum()), float(k.sum())))
+        return out
+
 
 def _product(shape, pairs) -> np.ndarray | None:
     """Cell-wise product of (cells, factor) pairs; None when every factor is 1."""

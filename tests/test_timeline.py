@@ -317,3 +317,80 @@ def test_shifting_habitat_critical_speed_is_the_spread_speed(tmp_path):
     for c in found.values():
         assert c == pytest.approx(c_star, rel=0.10)
     assert found[20] == pytest.approx(found[40], rel=0.05)
+
+
+RUN = """
+[run]
+years = 12
+replicates = 3
+seed = 4
+batch_size = 2
+
+[habitat]
+suitability = "{suitability}"
+capacity_per_ha = 30.0
+change = "linear"
+[[habitat.future]]
+year = 6
+suitability = "s6.tif"
+
+[growth]
+rate = 0.5
+stochastic = {stochastic}
+
+[dispersal]
+fraction = 0.2
+mean_distance_m = 60.0
+"""
+
+FIRE_LOSS = """
+[[disturbance]]
+kind = "fire"
+return_interval_years = {{ start = 4, end = 2 }}
+mortality = 0.5
+capacity_loss = 0.5
+recovery_years = 3.0
+"""
+
+
+def test_run_writes_capacity_per_year_and_check_describes_it(make_scenario, make_raster,
+                                                              tmp_path):
+    """capacity.tif holds one band per year (band k = year k-1): without disturbance the
+    capacity of the year itself, with fires that remove capacity the mean over replicates of
+    what they left (each replicate's capacity never exceeds the layer's, and fires lower the
+    mean). gridpop check prints the total capacity at the layers' years and the last year."""
+    import rasterio
+
+    import gridpop
+    from gridpop.simulation.check import describe
+    from gridpop.simulation.model import build_model
+
+    s0, s1, _ = layers()
+    make_raster("s6.tif", s1)
+    plain = load_scenario(make_scenario(RUN.replace("{stochastic}", "false"), "plain.toml"))
+    out = gridpop.run(plain, tmp_path / "plain")
+    model = build_model(plain, build_landscape(plain, stochastic=False))
+    with rasterio.open(out / "capacity.tif") as src:
+        assert src.count == 12 and src.descriptions[6] == "year 6"
+        for t in (0, 3, 6, 11):
+            np.testing.assert_allclose(src.read(t + 1, masked=True).filled(np.nan),
+                                       np.where(model.landscape.mask,
+                                                model.actions.capacity_for_year(t), np.nan),
+                                       rtol=1e-6)
+    text = "\n".join(describe(plain, model))
+    assert "habitat through time (linear change between the layers)" in text
+    for t in (0, 6, 11):
+        k = model.actions.capacity_for_year(t).sum()
+        assert f"  year {t}: {k:,.1f}" in text
+
+    burnt = load_scenario(make_scenario(RUN.replace("{stochastic}", "true") + FIRE_LOSS,
+                                        "fire.toml"))
+    out = gridpop.run(burnt, tmp_path / "fire")
+    with rasterio.open(out / "capacity.tif") as src:
+        mean = src.read(masked=True).filled(np.nan)
+    layer = np.stack([model.actions.capacity_for_year(t) for t in range(12)])
+    inside = np.broadcast_to(model.landscape.mask, mean.shape)
+    assert np.all(mean[inside] <= layer[inside] * (1 + 1e-6) + 1e-9)
+    assert mean[inside].sum() < 0.95 * layer[inside].sum()
+    assert "return interval 4 in year 0 to 2 in the last year" in "\n".join(
+        describe(burnt, build_model(burnt, build_landscape(burnt, stochastic=True))))

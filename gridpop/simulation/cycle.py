@@ -247,6 +247,8 @@ class Replicate:
                                                     stochastic=m.growth.stochastic)
             dist_deaths = effects.deaths
             k = effects.capacity
+            if "sum_k" in sink.acc:
+                sink.acc["sum_k"][year] += k
         movement = m.movement
         retention = movement.mover.retention(k) if movement is not None else NO_RETENTION
         counted = retention.own.shape[0] > 0  # the growth pass counts the retention

@@ -138,6 +138,8 @@ class Model:
             acc.update({f"n_{kind}": np.int32 for kind in self.disturbance_kinds})
         if self.walk is not None:
             acc["visits"] = np.float64
+        if self.landscape.timeline is not None and self.regime is not None:
+            acc["sum_k"] = np.float64  # capacity of year t (after disturbance) at index t
         return acc
 
     @functools.cached_property
