@@ -329,6 +329,8 @@ batch_size = 2
 [habitat]
 suitability = "{suitability}"
 capacity_per_ha = 30.0
+response = "threshold"
+threshold = 0.5
 change = "linear"
 [[habitat.future]]
 year = 6
@@ -377,6 +379,13 @@ def test_run_writes_capacity_per_year_and_check_describes_it(make_scenario, make
                                        np.where(model.landscape.mask,
                                                 model.actions.capacity_for_year(t), np.nan),
                                        rtol=1e-6)
+    from gridpop.report.plots import plan_cells, read_run
+
+    cells = plan_cells(read_run(out))  # the maps' habitat: first and last years
+    assert cells is not None and cells.first is not None
+    np.testing.assert_array_equal(cells.first, model.actions.capacity_for_year(0) > 0)
+    np.testing.assert_array_equal(cells.habitat, model.actions.capacity_for_year(11) > 0)
+    assert (cells.first != cells.habitat).any()
     text = "\n".join(describe(plain, model))
     assert "habitat through time (linear change between the layers)" in text
     for t in (0, 6, 11):
