@@ -154,6 +154,41 @@ def test_future_layer_out_of_range_and_reprojected(make_scenario, make_raster):
     assert any("s10.tif" in n and "average" in n for n in act.landscape.notes)
 
 
+def test_cli_check_exits_2_naming_both_files(make_scenario, make_raster, capsys):
+    """Layers whose study areas differ: gridpop check exits 2 with one message naming both."""
+    from gridpop.cli import main
+
+    s0, s1, _ = layers()
+    s1[30:33, 2:4] = -9999.0
+    make_raster("s10.tif", s1)
+    make_raster("s30.tif", s1)
+    path = make_scenario(BASE.replace("{habitat}", FUTURE.format(change="step"))
+                         .replace("{more}", ""))
+    assert main(["check", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "s10.tif" in err and "suitability.tif" in err and "Traceback" not in err
+
+
+@pytest.mark.parametrize(("value", "message"), [
+    ("{ start = 30, end = 0.5 }", "is not allowed"),
+    ("{ start = 30 }", "is not allowed"),
+    ("[[0, 30], [10]]", "is not allowed"),
+    ("[[10, 30], [5, 15]]", "The years must increase"),
+])
+def test_changing_return_interval_is_checked(make_scenario, value, message):
+    """Each value of a change over the run is checked against the key's bounds."""
+    value = value.replace("{", "{{").replace("}", "}}")  # make_scenario formats the text
+    fire = f"""
+[[disturbance]]
+kind = "fire"
+return_interval_years = {value}
+mortality = 0.5
+"""
+    with pytest.raises(ScenarioError, match=message) as err:
+        load_scenario(make_scenario(BASE.replace("{habitat}", "").replace("{more}", fire)))
+    assert "[disturbance #1 (fire)] return_interval_years" in str(err.value)
+
+
 def test_future_years_must_increase(make_scenario, make_raster):
     s0, s1, s2 = layers()
     make_raster("s10.tif", s1)
@@ -403,3 +438,56 @@ def test_run_writes_capacity_per_year_and_check_describes_it(make_scenario, make
     assert mean[inside].sum() < 0.95 * layer[inside].sum()
     assert "return interval 4 in year 0 to 2 in the last year" in "\n".join(
         describe(burnt, build_model(burnt, build_landscape(burnt, stochastic=True))))
+
+
+WALK = """
+[dispersal]
+method = "walk"
+fraction = 0.3
+resistance = "r0.tif"
+walk_length = 20
+
+[[dispersal.future]]
+year = 12
+resistance = "r12.tif"
+"""
+
+
+def test_walk_resistance_of_later_years(make_scenario, make_raster):
+    """[[dispersal.future]]: the walk's permeability (1 / resistance) follows the year's
+    resistance layer, interpolated as [habitat] change says (step here: the new layer from
+    its year on); a layer that leaves cells without a value where the first has one is
+    refused, naming both files."""
+    from gridpop.simulation.model import build_model
+
+    s0, _, _ = layers()
+    inside = s0 != -9999.0
+    r0 = np.where(inside, 2.0, -9999.0)
+    r12 = np.where(inside, 8.0, -9999.0)
+    r12[10:14, 30] = np.inf  # a road built in year 12
+    make_raster("r0.tif", r0)
+    make_raster("r12.tif", r12)
+    sc = scenario(make_scenario, 'change = "step"', "stochastic = false\n" + WALK)
+    walk = build_model(sc, build_landscape(sc, stochastic=False)).walk
+    assert walk is not None and walk.by_year is not None
+    np.testing.assert_array_equal(walk.by_year(11), walk.permeability)
+    np.testing.assert_array_equal(walk.by_year(11)[inside], 0.5)
+    late = walk.by_year(12)
+    assert np.all(late[10:14, 30] == 0.0)
+    rest = inside.copy()
+    rest[10:14, 30] = False
+    np.testing.assert_array_equal(late[rest], 1 / 8.0)
+    np.testing.assert_array_equal(walk.by_year(30), late)
+    from gridpop.rng import YearStreams  # the walk moves over the layer of the year it is given
+
+    model = build_model(sc, build_landscape(sc, stochastic=False))
+    leaving = np.where(model.capacity > 0, 5.0, 0.0)
+    visits = {y: model.walk.move(leaving, model.capacity, YearStreams(1, 0, y), {}).visits
+              for y in (11, 12)}
+    assert visits[11][10:14, 30].sum() > 0 and visits[12][10:14, 30].sum() == 0
+
+    r12[20, 20] = -9999.0
+    make_raster("r12.tif", r12)
+    sc = scenario(make_scenario, 'change = "step"', "stochastic = false\n" + WALK, "b.toml")
+    with pytest.raises(InputDataError, match="r12.tif.*r0.tif"):
+        build_model(sc, build_landscape(sc, stochastic=False))
