@@ -44,7 +44,8 @@ capacity (a cell hit again keeps the larger share, 1 - (1 - L)(1 - capacity_loss
 shrinks linearly to 0 over ``recovery_years`` or by exp(-t / recovery_years). Tables act in
 order, each on the abundance the previous left. Time since fire is 0 in a cell's burn year,
 then 1, 2, ...; -1 for cells not burned since the run started. Year t is the step from census
-year t to t + 1.
+year t to t + 1. A return interval or period that changes over the run (a Trend) gives each year
+the value of that year: ignition rates scale by ln(1 - 1/RI(t)) / ln(1 - 1/RI(0)).
 
 References
 ----------
