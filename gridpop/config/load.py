@@ -98,7 +98,7 @@ def check_value(file: Path | str, section: str, key: Key, value: object) -> Any:
     if key.type == "tables":
         if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
             raise ScenarioError(f"{bad} Write [[{section}.{key.name}]] above each entry.")
-        return tuple(value)  # each table is checked by parse_section
+        return tuple(value)  # each table is checked by _tables
     if key.type == "bool":
         if not isinstance(value, bool):
             raise ScenarioError(bad)
