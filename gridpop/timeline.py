@@ -10,8 +10,8 @@ year t to t + 1, the numbering of :meth:`gridpop.actions.Actions.capacity_for_ye
 Memory stays flat in the number of years: besides the starting layer a timeline holds at most
 two layers, the pair that brackets the year asked for, and reads the next one when the year
 passes it (a replicate walks through the years in order). Every layer is aligned onto the grid
-like the starting layer (:func:`gridpop.io.rasters.align_raster`: reprojection, resampling,
-nodata) and must cover the same study area.
+like the starting layer (:func:`gridpop.io.rasters.align_raster`: read block window by block
+window, reprojection, resampling, nodata) and must cover the same study area.
 """
 
 from __future__ import annotations

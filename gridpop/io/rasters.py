@@ -196,6 +196,16 @@ def _resampling(kind: str, coarser: bool) -> Resampling:
     return Resampling.average if coarser else Resampling.bilinear
 
 
+def _read_band(src, band: int) -> np.ndarray:
+    """One band as float64, NaN where nodata, read block window by block window into the result
+    (no whole-band temporaries of the file's type and mask)."""
+    out = np.empty((src.height, src.width))
+    for _, w in src.block_windows(band):
+        rows, cols = w.toslices()
+        out[rows, cols] = src.read(band, window=w, masked=True).astype(np.float64).filled(np.nan)
+    return out
+
+
 def align_raster(path: Path, grid: Grid, *, kind: str, file: Path, section: str,
                  key: str, band: int | None = None) -> Layer:
     """Resample a single-band raster, or one band of a multi-band raster, onto the grid.
@@ -235,7 +245,7 @@ def align_raster(path: Path, grid: Grid, *, kind: str, file: Path, section: str,
     name = Path(path).name
     with _open(path, loc) as src:
         _check_crs(src, loc, band)
-        data = src.read(band or 1, masked=True).astype(np.float64).filled(np.nan)
+        data = _read_band(src, band or 1)
         src_crs, src_transform = src.crs, src.transform
         src_bounds = src.bounds
     if not np.isfinite(data).any():
