@@ -491,3 +491,31 @@ def test_walk_resistance_of_later_years(make_scenario, make_raster):
     sc = scenario(make_scenario, 'change = "step"', "stochastic = false\n" + WALK, "b.toml")
     with pytest.raises(InputDataError, match="r12.tif.*r0.tif"):
         build_model(sc, build_landscape(sc, stochastic=False))
+
+
+def test_timeline_holds_two_layers_and_reads_each_once_per_pass():
+    """Memory flat in years: walking the years in order, each later layer is read once and no
+    more than two are held at a time (linear: the bracketing pair; step: one)."""
+    from pathlib import Path
+
+    from gridpop.timeline import Source, Timeline
+
+    reads = []
+
+    def read(source):
+        reads.append(source.year)
+        return np.full((2, 3), float(source.year))
+
+    sources = tuple(Source(y, Path(f"l{y}.tif"), None, "habitat", "suitability")
+                    for y in (5, 10, 20, 30))
+    for change in ("linear", "step"):
+        reads.clear()
+        tl = Timeline(np.zeros((2, 3)), sources, change, read)
+        for year in range(40):
+            value = tl.at(tl.key(year))
+            assert len(tl._held) <= (2 if change == "linear" else 1)
+            want = np.interp(year, [0, 5, 10, 20, 30], [0, 5, 10, 20, 30])
+            if change == "step":
+                want = max(y for y in (0, 5, 10, 20, 30) if y <= year)
+            np.testing.assert_allclose(value, want, rtol=1e-15)
+        assert reads == [5, 10, 20, 30]
