@@ -23,10 +23,9 @@ from pathlib import Path
 
 import numpy as np
 
+from .config import CHANGES
 from .errors import InputDataError, where_layer
 from .io.rasters import Grid, align_raster
-
-CHANGES = ("linear", "step")
 
 
 @dataclass(frozen=True)
@@ -138,8 +137,3 @@ class Timeline:
         if i not in self._held:
             self._held[i] = self.read(self.sources[i - 1])
         return self._held[i]
-
-    def layers(self):
-        """Every later layer once, in order, as ``(source, layer)``: one held at a time."""
-        for s in self.sources:
-            yield s, self.read(s)
