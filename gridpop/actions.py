@@ -83,13 +83,17 @@ class _Schedule:
     changes: tuple[_Change, ...]
     multiplier: np.ndarray
 
-    def key(self, year: int) -> tuple[float, ...]:
-        """Fractions done of the scheduled changes in a year: equal keys, equal capacity."""
-        return tuple(c.fraction(year) for c in self.changes if c.scheduled)
+    def key(self, year: int) -> tuple:
+        """The habitat's key of the year (:meth:`Timeline.key`, with a timeline) and the
+        fractions done of the scheduled changes: equal keys, equal capacity."""
+        done = tuple(c.fraction(year) for c in self.changes if c.scheduled)
+        timeline = self.base.timeline
+        return done if timeline is None else (timeline.key(year), *done)
 
     def suitability(self, key) -> np.ndarray:
         it = iter(key)
-        s = self.base.suitability.copy()
+        timeline = self.base.timeline
+        s = self.base.suitability.copy() if timeline is None else timeline.at(next(it)).copy()
         for c in self.changes:
             c.apply(s, next(it) if c.scheduled else 1.0)
         return s
@@ -155,6 +159,21 @@ class Actions:
             self._last = (key, last)
         return last
 
+    def totals(self, years) -> list[tuple[int, float, float]]:
+        """``(year, total K of the year's suitability layer alone, total K with the actions)``
+        for some years, for ``gridpop check``."""
+        out = []
+        for year in years:
+            k = self.capacity_for_year(year)
+            s = self._schedule
+            if s is None or s.base.timeline is None:
+                alone = self.landscape.capacity if s is None else s.base.capacity
+            else:
+                timeline = s.base.timeline
+                alone = _k(timeline.at(timeline.key(year)), 1.0, s.base, s.habitat)
+            out.append((year, float(alone.sum()), float(k.sum())))
+        return out
+
 
 def _product(shape, pairs) -> np.ndarray | None:
     """Cell-wise product of (cells, factor) pairs; None when every factor is 1."""
@@ -189,7 +208,7 @@ def apply_actions(scenario, landscape: Landscape) -> Actions:
         An area layer that cannot be read.
     """
     configs = scenario.actions
-    if not configs:
+    if not configs and landscape.timeline is None:
         return Actions(landscape, (), (), None, None, None, None)
     grid, shape, mask = landscape.grid, landscape.grid.shape, landscape.mask
     read = [read_cells(c.area, grid, file=scenario.path, section=c.label, key="area",
@@ -215,7 +234,7 @@ def apply_actions(scenario, landscape: Landscape) -> Actions:
                                            minlength=labelled.n + 1))
     changed = Landscape(grid=grid, mask=mask, suitability=schedule.suitability(schedule.key(0)),
                         capacity=k0, patches=patches, initial=landscape.initial,
-                        notes=landscape.notes)
+                        notes=landscape.notes, timeline=landscape.timeline)
 
     barriers = [(cells, 1.0 - c.crossing_mortality) for c, cells in pairs if c.kind == "barrier"]
     barrier = None
@@ -223,7 +242,7 @@ def apply_actions(scenario, landscape: Landscape) -> Actions:
         survive = _product(shape, barriers)
         barrier = np.zeros(shape) if survive is None else 1.0 - survive
     reserves = [(c, cells) for c, cells in pairs if c.kind == "reserve"]
-    scheduled = any(x.scheduled for x in schedule.changes)
+    scheduled = any(x.scheduled for x in schedule.changes) or landscape.timeline is not None
     return Actions(
         landscape=changed,
         notes=tuple(_notes(configs, read, changes, landscape, scenario.habitat, reserved)),

@@ -44,7 +44,8 @@ capacity (a cell hit again keeps the larger share, 1 - (1 - L)(1 - capacity_loss
 shrinks linearly to 0 over ``recovery_years`` or by exp(-t / recovery_years). Tables act in
 order, each on the abundance the previous left. Time since fire is 0 in a cell's burn year,
 then 1, 2, ...; -1 for cells not burned since the run started. Year t is the step from census
-year t to t + 1.
+year t to t + 1. A return interval or period that changes over the run (a Trend) gives each year
+the value of that year: ignition rates scale by ln(1 - 1/RI(t)) / ln(1 - 1/RI(0)).
 
 References
 ----------
@@ -66,7 +67,7 @@ import numpy as np
 
 from . import rng
 from ._jit import njit
-from .config import FIRE_SIZES, RECOVERY
+from .config import FIRE_SIZES, RECOVERY, Trend
 from .errors import InputDataError, where
 from .io.rasters import align_raster
 from .io.vectors import read_cells
@@ -320,11 +321,21 @@ class _Fire(_Table):
     exponent: float
     spread: np.ndarray
     shape: tuple[int, int]
+    interval: Trend | None = None  # a return interval that changes over the run
+    run_years: int = 1
+
+    def rate_of(self, year: int) -> np.ndarray:
+        """Ignition rates of a year: ``rate`` (computed with the year-0 return interval) scaled
+        by ln(1 - 1/RI(year)) / ln(1 - 1/RI(0))."""
+        if self.interval is None:
+            return self.rate
+        ri0, ri = self.interval.at(0, self.run_years), self.interval.at(year, self.run_years)
+        return self.rate * (math.log1p(-1.0 / ri) / math.log1p(-1.0 / ri0))
 
     def footprint(self, seed, replicate, year, index):
         fire_of = np.zeros(self.shape[0] * self.shape[1], np.int32)
         key = _table_key(seed, replicate, year, rng.STREAM_FIRE, index)
-        count = _burn_year(key, self.rate, self.ptr, self.cells, self.cumw, self.size_code,
+        count = _burn_year(key, self.rate_of(year), self.ptr, self.cells, self.cumw, self.size_code,
                            self.fraction_cells, self.mean_cells, self.lo_cells, self.hi_cells,
                            self.exponent, self.spread, self.shape[1], self.shape[0], fire_of)
         return fire_of, count
@@ -336,6 +347,8 @@ class _Flood(_Table):
     zones: tuple[np.ndarray, ...] | None  # flat bool, nested (zone k includes zones < k)
     terrain: np.ndarray | None  # flat, NaN outside the study area
     stages: np.ndarray | None
+    period: Trend | None = None  # a return period that changes over the run (one magnitude)
+    run_years: int = 1
 
     def return_period(self, seed, replicate, year, index) -> float:
         """The year's return period T = 1/u (one uniform shared by every cell)."""
@@ -343,12 +356,14 @@ class _Flood(_Table):
 
     def footprint(self, seed, replicate, year, index):
         t = self.return_period(seed, replicate, year, index)
-        if t < self.periods[0]:
+        periods = self.periods if self.period is None else \
+            np.array([self.period.at(year, self.run_years)])
+        if t < periods[0]:
             return None, 0
         if self.zones is not None:
-            hit = self.zones[int(np.searchsorted(self.periods, t, side="right")) - 1]
+            hit = self.zones[int(np.searchsorted(periods, t, side="right")) - 1]
         else:
-            stage = np.interp(math.log(t), np.log(self.periods), self.stages)
+            stage = np.interp(math.log(t), np.log(periods), self.stages)
             hit = self.terrain < stage
         return hit.astype(np.int32), int(hit.any())
 
@@ -497,7 +512,7 @@ def _effects(c) -> dict:
                 recovery_years=c.recovery_years)
 
 
-def _fire(c, landscape: Landscape, actions, file) -> tuple[_Fire, list[str]]:
+def _fire(c, landscape: Landscape, actions, file, run_years: int) -> tuple[_Fire, list[str]]:
     grid, labels = landscape.grid, landscape.patches.labels
     patches = landscape.patches
     notes = []
@@ -536,8 +551,10 @@ def _fire(c, landscape: Landscape, actions, file) -> tuple[_Fire, list[str]]:
     size = expected_size(c.size_distribution, area, fraction=c.size_fraction,
                          mean_ha=c.mean_size_ha, min_ha=c.min_size_ha, max_ha=c.max_size_ha,
                          exponent=c.size_exponent)
+    interval = c.return_interval_years if isinstance(c.return_interval_years, Trend) else None
+    ri0 = interval.at(0, run_years) if interval is not None else c.return_interval_years
     rate = np.zeros(patches.n + 1)
-    rate[1:] = ignition_rate(c.return_interval_years, hazard_mean[1:], area, size)
+    rate[1:] = ignition_rate(ri0, hazard_mean[1:], area, size)
     fraction_cells = c.size_fraction * cells_per_patch.astype(np.float64)
 
     if c.size_distribution == "fraction":
@@ -547,26 +564,35 @@ def _fire(c, landscape: Landscape, actions, file) -> tuple[_Fire, list[str]]:
     else:
         sizes = (f"power-law sizes ~ s^-{c.size_exponent:g} from {c.min_size_ha:g} to "
                  f"{c.max_size_ha:g} ha")
-    notes.append(f"[{c.label}] return interval {c.return_interval_years:g} years, {sizes}; "
+    ri = f"{ri0:g}" if interval is None else interval.describe()
+    notes.append(f"[{c.label}] return interval {ri} years, {sizes}; "
                  f"{int(np.count_nonzero(rate))} of {patches.n} patches can ignite, "
-                 f"{rate.sum():.4g} ignitions per year expected; "
+                 f"{rate.sum():.4g} ignitions per year expected"
+                 f"{' in year 0' if interval is not None else ''}; "
                  f"{int(np.count_nonzero(spread))} burnable cells")
     fire = _Fire(**_effects(c), rate=rate, ptr=ptr, cells=cand, cumw=cumw,
                  size_code=SIZES[c.size_distribution], fraction_cells=fraction_cells,
                  mean_cells=(c.mean_size_ha or 0.0) / ha, lo_cells=(c.min_size_ha or 0.0) / ha,
                  hi_cells=(c.max_size_ha or 0.0) / ha, exponent=c.size_exponent or 0.0,
-                 spread=spread, shape=grid.shape)
+                 spread=spread, shape=grid.shape, interval=interval, run_years=run_years)
     return fire, notes
 
 
-def _flood(c, landscape: Landscape, file) -> tuple[_Flood, list[str]]:
+def _flood(c, landscape: Landscape, file, run_years: int) -> tuple[_Flood, list[str]]:
     grid, mask = landscape.grid, landscape.mask
     ha = grid.cell_area_ha
-    periods = np.asarray(c.return_period_years, dtype=np.float64)
-    aep = ", ".join(f"{1 / t:.4g}" for t in periods)
-    notes = [f"[{c.label}] return periods {', '.join(f'{t:g}' for t in periods)} years "
-             f"(annual exceedance probability {aep}), regional: one draw per year for every "
-             f"patch"]
+    period = c.return_period_years if isinstance(c.return_period_years, Trend) else None
+    periods = np.asarray(c.return_period_years if period is None else period.values[:1],
+                         dtype=np.float64)
+    if period is None:
+        aep = ", ".join(f"{1 / t:.4g}" for t in periods)
+        notes = [f"[{c.label}] return periods {', '.join(f'{t:g}' for t in periods)} years "
+                 f"(annual exceedance probability {aep}), regional: one draw per year for "
+                 f"every patch"]
+    else:
+        notes = [f"[{c.label}] return period {period.describe()} years (annual exceedance "
+                 f"probability 1 / return period of the year), regional: one draw per year for "
+                 f"every patch"]
     zones = terrain = stages = None
     if c.zone is not None:
         zone_cells: list[np.ndarray] = []
@@ -591,7 +617,7 @@ def _flood(c, landscape: Landscape, file) -> tuple[_Flood, list[str]]:
         counts = ", ".join(f"{int((terrain < s).sum())} cells below {s:g}" for s in stages)
         notes.append(f"[{c.label}] terrain: {counts}; {layer.note}")
     return _Flood(**_effects(c), periods=periods, zones=zones, terrain=terrain,
-                  stages=stages), notes
+                  stages=stages, period=period, run_years=run_years), notes
 
 
 def build_regime(scenario, landscape: Landscape, actions=None) -> Regime | None:
@@ -624,9 +650,9 @@ def build_regime(scenario, landscape: Landscape, actions=None) -> Regime | None:
     for c in configs:
         table: _Fire | _Flood
         if c.kind == "fire":
-            table, lines = _fire(c, landscape, actions, scenario.path)
+            table, lines = _fire(c, landscape, actions, scenario.path, scenario.run.years)
         else:
-            table, lines = _flood(c, landscape, scenario.path)
+            table, lines = _flood(c, landscape, scenario.path, scenario.run.years)
         tables.append(table)
         notes += lines
     return Regime(notes=tuple(notes), tables=tuple(tables),

@@ -17,14 +17,16 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 from scipy import ndimage
 
 from .config import RESPONSES
 from .errors import InputDataError, ScenarioError, where_layer
-from .io.rasters import Grid, align_raster, load_grid
+from .io.rasters import Grid, align_raster, band_count, load_grid
 from .io.vectors import read_points
+from .timeline import Source, Timeline, read_layer
 
 
 def capacity(suitability: np.ndarray, *, capacity_per_ha: float, cell_area_ha: float,
@@ -137,6 +139,9 @@ class Landscape:
         Individuals per cell in year 0; 0 outside the study area and in matrix.
     notes : tuple of str
         What was read, resampled and dropped, for ``gridpop check``.
+    timeline : Timeline or None
+        Suitability of later years ([[habitat.future]], suitability_series); None: suitability
+        stays that of year 0 (but for actions).
     """
 
     grid: Grid
@@ -146,10 +151,77 @@ class Landscape:
     patches: Patches
     initial: np.ndarray
     notes: tuple[str, ...]
+    timeline: Timeline | None = None
 
 
 SUITABILITY_TOLERANCE = 1e-9
 """Round-off allowed beyond 0..1 after resampling; such values are clipped to 0..1."""
+
+
+def _in_range(suit: np.ndarray, mask: np.ndarray, loc: str) -> np.ndarray:
+    """Suitability clipped to 0..1 inside the study area, NaN outside; values beyond 0..1 by
+    more than round-off are an error."""
+    lo, hi = suit[mask].min(), suit[mask].max()
+    if lo < -SUITABILITY_TOLERANCE or hi > 1 + SUITABILITY_TOLERANCE:
+        raise InputDataError(f"{loc}: values must lie in 0..1 (nodata or NaN outside the study "
+                             f"area); found min {lo:g}, max {hi:g}.")
+    return np.where(mask, np.clip(suit, 0.0, 1.0), np.nan)
+
+
+@dataclass(frozen=True, eq=False)
+class FutureSuitability:
+    """Reads a later suitability layer for a :class:`Timeline`: aligned, the starting layer's
+    study area, values in 0..1."""
+
+    file: Path
+    grid: Grid
+    mask: np.ndarray
+    first: Path
+
+    def __call__(self, source: Source) -> np.ndarray:
+        data, _ = self.read(source)
+        return data
+
+    def read(self, source: Source) -> tuple[np.ndarray, str]:
+        data, note = read_layer(source, self.grid, self.mask, self.first, self.file)
+        loc = where_layer(self.file, source.section, source.key, source.path)
+        return _in_range(data, self.mask, f"{loc} {source.describe()}"), note
+
+
+def _timeline(scenario, grid: Grid, suit: np.ndarray, mask: np.ndarray
+              ) -> tuple[Timeline | None, list[str]]:
+    """The suitability of later years, every layer read and checked once; notes."""
+    hab, file = scenario.habitat, scenario.path
+    if hab.suitability_series is not None:
+        path = hab.suitability_series
+        n = band_count(path, file=file, section="habitat", key="suitability_series")
+        sources = tuple(Source(b - 1, path, b, "habitat", "suitability_series")
+                        for b in range(1, n + 1))
+        band1, rest = sources[0], sources[1:]
+    elif hab.future:
+        sources = tuple(Source(f.year, f.suitability, None, f"habitat.future #{i}",
+                               "suitability") for i, f in enumerate(hab.future, 1))
+        band1, rest = None, sources
+    else:
+        return None, []
+    read = FutureSuitability(file, grid, mask, hab.suitability)
+    notes = []
+    if band1 is not None:
+        first, note = read.read(band1)
+        if not np.allclose(first[mask], suit[mask], rtol=0.0, atol=1e-6):
+            raise InputDataError(
+                f"{where_layer(file, 'habitat', 'suitability_series', band1.path)}: band 1 is "
+                f"the layer of year 0 and must equal the starting layer "
+                f"{hab.suitability.name}; they differ by up to "
+                f"{np.abs(first - suit)[mask].max():g}.")
+        notes.append(f"suitability series {band1.path.name}: {n} bands, years 0 to {n - 1}")
+    timeline = Timeline(suit, rest, hab.change, read)
+    for source in rest:
+        _, note = read.read(source)
+        notes.append(f"future: {note}")
+    if not rest:
+        return None, notes
+    return timeline, notes
 
 
 def _initial(scenario, grid: Grid, k: np.ndarray) -> tuple[np.ndarray, str]:
@@ -196,15 +268,11 @@ def build_landscape(scenario, *, stochastic: bool) -> Landscape:
     layer = align_raster(hab.suitability, grid, kind="continuous", file=scenario.path,
                          section="habitat", key="suitability")
     notes.append(layer.note)
-    suit = layer.data
-    mask = np.isfinite(suit)
-    lo, hi = suit[mask].min(), suit[mask].max()
-    if lo < -SUITABILITY_TOLERANCE or hi > 1 + SUITABILITY_TOLERANCE:
-        raise InputDataError(
-            f"{where_layer(scenario.path, 'habitat', 'suitability', hab.suitability)}: "
-            "values must lie "
-            f"in 0..1 (nodata or NaN outside the study area); found min {lo:g}, max {hi:g}.")
-    suit = np.where(mask, np.clip(suit, 0.0, 1.0), np.nan)
+    mask = np.isfinite(layer.data)
+    suit = _in_range(layer.data, mask,
+                     where_layer(scenario.path, 'habitat', 'suitability', hab.suitability))
+    timeline, future_notes = _timeline(scenario, grid, suit, mask)
+    notes += future_notes
 
     k = capacity(suit, capacity_per_ha=hab.capacity_per_ha, cell_area_ha=grid.cell_area_ha,
                  response=hab.response, threshold=hab.threshold, exponent=hab.exponent)
@@ -228,4 +296,5 @@ def build_landscape(scenario, *, stochastic: bool) -> Landscape:
         initial = rounded
     notes.append(note + f"; {initial.sum():.6g} individuals in year 0")
     return Landscape(grid=grid, mask=mask, suitability=suit, capacity=k, patches=patches,
-                     initial=np.ascontiguousarray(initial, dtype=np.float64), notes=tuple(notes))
+                     initial=np.ascontiguousarray(initial, dtype=np.float64), notes=tuple(notes),
+                     timeline=timeline)

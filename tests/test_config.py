@@ -100,6 +100,9 @@ def test_key_types_follow_the_annotations():
     assert key("dispersal", "mean_distance_m") == ("float", ())
     assert key("output", "rasters") == ("strlist", config.OUTPUT_RASTERS)
     assert key("disturbance", "return_period_years", "flood") == ("floatlist", ())
+    assert key("disturbance", "return_interval_years", "fire") == ("float", ())
+    assert key("habitat", "future") == ("tables", ())
+    assert key("habitat", "change") == ("str", config.CHANGES)
     assert key("disturbance", "zone", "flood") == ("pathlist", ())
     assert key("disturbance", "recovery", "fire") == ("str", config.RECOVERY)
 
@@ -108,7 +111,8 @@ def test_choice_tuples_are_the_literal_choices_used_by_the_keys():
     pairs = {config.GROWTH_MODELS: config.GrowthModel, config.KERNELS: config.Kernel,
              config.EDGES: config.Edge, config.DISPERSAL_METHODS: config.DispersalMethod,
              config.RESPONSES: config.Response, config.OUTPUT_RASTERS: config.OutputRaster,
-             config.FIRE_SIZES: config.FireSize, config.RECOVERY: config.Recovery}
+             config.FIRE_SIZES: config.FireSize, config.RECOVERY: config.Recovery,
+             config.CHANGES: config.Change}
     used = {k.choices for _, keys in config.SECTIONS.values() for k in keys}
     used |= {k.choices for _, kinds in config.ARRAY_SECTIONS.values()
              for _, keys in kinds.values() for k in keys}

@@ -92,6 +92,32 @@ def test_plans_are_the_base_case_plus_actions():
     assert len(descriptions) == 1 + len(PLANS) and "" not in descriptions
 
 
+def test_drier_future_is_each_plan_with_shrinking_fens(gen, capsys):
+    """scenarios/demo/drier/ holds every plan under the drier future: the same scenario but for
+    a linear change to suitability_dry_40.tif in the last year, in which the fens keep two
+    thirds of their habitat cells (within one fen cell per fen of 2/3; an invented projection)
+    and nothing else changes; gridpop check passes on each."""
+    for name in ("base", *PLANS):
+        now, dry = _scenario(name), gridpop.load_scenario(DEMO / "drier" / f"{name}.toml")
+        a = parameters(now)
+        b = json.loads(json.dumps(parameters(dry)).replace("/drier/../", "/"))
+        assert b["habitat"].pop("future") == [
+            {"year": now.run.years - 1, "suitability": str(DEMO / "data" /
+                                                           "suitability_dry_40.tif")}]
+        a["habitat"].pop("future")
+        assert a == b, name
+        assert cli_main(["check", str(DEMO / "drier" / f"{name}.toml")]) == 0
+        capsys.readouterr()
+    yy, xx = np.mgrid[0:gen.NY, 0:gen.NX]
+    near = np.zeros((gen.NY, gen.NX), bool)
+    for cx, cy, r in gen.FENS:
+        near |= (yy - cy) ** 2 + (xx - cx) ** 2 <= (2.5 * r) ** 2
+    s0, s1 = gen.suitability(), gen.suitability(gen.DRY_FEN_SCALE)
+    h0, h1 = np.nan_to_num(s0) >= gen.THRESHOLD, np.nan_to_num(s1) >= gen.THRESHOLD
+    assert abs((h1 & near).sum() - 2 / 3 * (h0 & near).sum()) <= len(gen.FENS)
+    np.testing.assert_array_equal(s0[~near], s1[~near])
+
+
 def test_reserve_layouts_have_equal_area():
     """The two reserve layouts protect the same number of cells (100 ha), inside the study
     area."""

@@ -567,3 +567,59 @@ def test_flood_zone_raster_in_another_crs(tmp_path):
 def test_no_disturbance_gives_no_regime(tmp_path):
     _, _, regime = build(tmp_path, blocks(2), "")
     assert regime is None
+
+
+@pytest.mark.parametrize("ri", ["{ start = 30, end = 15 }", "[[0, 30], [39, 15]]"])
+def test_fire_return_interval_halving_over_the_run(tmp_path, ri):
+    """A return interval falling linearly from 30 to 15 years over a 40-year run: with
+    whole-patch burns each patch burns in year t with probability 1/RI(t) (Van Wagner 1978,
+    Can. J. For. Res. 8:220, the fire cycle applied year by year, from memory for pages). Per
+    year the fraction of the 100 patches x 60 replicates burned lies within 4 binomial standard
+    errors of 1/RI(t), and what is left after subtracting 1/RI(t) has no trend (a fitted slope
+    within 4 standard errors of 0); both ways of writing the change are accepted."""
+    years, reps = 40, 60
+    _, landscape, regime = build(tmp_path, blocks(10), FIRE.format(ri=ri), years=years)
+    labels = landscape.patches.labels
+    burned = np.zeros(years)
+    for rep in range(reps):
+        for t, e in enumerate(run_years(regime, landscape, years, seed=5, replicate=rep)):
+            burned[t] += len(np.unique(labels[e.burned]))
+    n = 100 * reps
+    p = 1.0 / (30.0 + (15.0 - 30.0) * np.arange(years) / (years - 1))
+    frac = burned / n
+    se = np.sqrt(p * (1 - p) / n)
+    assert np.all(np.abs(frac - p) < 4 * se), np.c_[frac, p]
+    assert frac[-10:].mean() > 1.6 * frac[:10].mean()  # nearly doubled (2 - 0.35 expected)
+    fit = stats.linregress(np.arange(years), frac - p)
+    assert abs(fit.slope) < 4 * fit.stderr + 1e-12
+    notes = " ".join(regime.notes)
+    assert "return interval 30" in notes and "15" in notes
+
+
+def test_flood_return_period_that_changes(tmp_path):
+    """A flood return period falling from 50 to 10 years: the year floods with probability
+    1/T(t), the annual exceedance probability of that year's return period (Chow, Maidment and
+    Mays 1988, Applied Hydrology); one draw per replicate-year, 4 binomial standard errors over
+    the first and last 10 years. Several magnitudes cannot change (one zone needed)."""
+    zone = np.ones((6, 6))
+    years, reps = 30, 800
+    _, landscape, regime = build(
+        tmp_path, np.full((6, 6), 0.8), FLOOD.format(t="{ start = 50, end = 10 }"),
+        years=years, layers={"zone.tif": zone})
+    flooded = np.zeros(years)
+    for rep in range(reps):
+        for t, e in enumerate(run_years(regime, landscape, years, seed=2, replicate=rep)):
+            flooded[t] += bool(e.flooded.any())
+    p = 1.0 / (50.0 + (10.0 - 50.0) * np.arange(years) / (years - 1))
+    for part in (slice(0, 10), slice(-10, None)):
+        n = reps * 10
+        expected = p[part].mean()
+        assert abs(flooded[part].sum() / n - expected) < 4 * math.sqrt(expected / n)
+    with pytest.raises(ScenarioError, match="needs a single magnitude"):
+        build(tmp_path, np.full((6, 6), 0.8), """
+        [[disturbance]]
+        kind = "flood"
+        return_period_years = [[0, 50], [20, 10]]
+        zone = ["zone.tif", "zone.tif"]
+        mortality = 0.5
+        """, layers={"zone.tif": zone}, name="two.toml")

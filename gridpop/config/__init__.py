@@ -29,8 +29,9 @@ from .kinds import (
     RestorationConfig,
 )
 from .load import Scenario, load_scenario
-from .schema import REQUIRED, Key
+from .schema import REQUIRED, Key, Trend
 from .sections import (
+    CHANGES,
     DENSITY_ACTS_ON,
     DISPERSAL_METHODS,
     EDGES,
@@ -41,14 +42,17 @@ from .sections import (
     SECTIONS,
     SEX_SYSTEMS,
     SURVIVORSHIPS,
+    Change,
     DensityActsOn,
     DispersalConfig,
+    DispersalFuture,
     DispersalMethod,
     Edge,
     GridConfig,
     GrowthConfig,
     GrowthModel,
     HabitatConfig,
+    HabitatFuture,
     InitialConfig,
     Kernel,
     OutputConfig,
@@ -64,15 +68,15 @@ from .sections import (
 )
 
 __all__ = [
-    "ACTION_KINDS", "ARRAY_SECTIONS", "DENSITY_ACTS_ON", "DISPERSAL_METHODS",
-    "DISTURBANCE_KINDS", "EDGES",
-    "FIRE_SIZES", "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED",
-    "RESPONSES", "SECTIONS", "SEX_SYSTEMS", "SURVIVORSHIPS",
-    "ActionConfig", "BarrierConfig", "CorridorConfig", "DispersalConfig", "DispersalMethod",
-    "DisturbanceConfig", "Edge", "FireConfig", "FireSize", "FloodConfig", "GridConfig",
-    "GrowthConfig", "GrowthModel", "HabitatConfig", "HabitatLossConfig", "InitialConfig", "Kernel",
-    "Key", "OutputConfig", "OutputRaster", "PlanConfig", "Recovery", "ReserveConfig",
+    "ACTION_KINDS", "ARRAY_SECTIONS", "CHANGES", "DENSITY_ACTS_ON", "DISPERSAL_METHODS",
+    "DISTURBANCE_KINDS", "EDGES", "FIRE_SIZES", "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS",
+    "RECOVERY", "REQUIRED", "RESPONSES", "SECTIONS", "SEX_SYSTEMS", "SURVIVORSHIPS",
+    "ActionConfig", "BarrierConfig", "Change", "CorridorConfig", "DensityActsOn",
+    "DispersalConfig", "DispersalFuture", "DispersalMethod", "DisturbanceConfig", "Edge",
+    "FireConfig", "FireSize", "FloodConfig", "GridConfig", "GrowthConfig", "GrowthModel",
+    "HabitatConfig", "HabitatFuture", "HabitatLossConfig", "InitialConfig", "Kernel", "Key",
+    "OutputConfig", "OutputRaster", "PlanConfig", "Recovery", "ReserveConfig",
     "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario", "SexConfig",
-    "SexSystem", "StagesConfig", "Survivorship", "DensityActsOn",
+    "SexSystem", "StagesConfig", "Survivorship", "Trend",
     "load_scenario", "reference_markdown", "template_toml",
 ]

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal, get_args
 
-from .schema import Key, doc_of, key, keys_of
+from .schema import Key, Trend, doc_of, key, keys_of
 
 FireSize = Literal["fraction", "exponential", "power_law"]
 Recovery = Literal["linear", "exponential"]
@@ -57,11 +57,11 @@ class FireConfig:
 
     label: str
     kind: Literal["fire"]
-    return_interval_years: float = key(doc="Fire cycle of a patch at hazard 1: the mean number "
-                                       "of years for fires to burn an area equal to the patch "
-                                       "(so the long-run fraction burned per year is 1 / "
-                                       "return_interval_years).", unit="years", low=1,
-                                       low_open=True, example=50.0)
+    return_interval_years: float | Trend = key(
+        doc="Fire cycle of a patch at hazard 1: the mean number of years for fires to burn an "
+        "area equal to the patch (so the long-run fraction burned per year is 1 / "
+        "return_interval_years). May change over the run (a year's fires follow that year's "
+        "value).", unit="years", low=1, low_open=True, example=50.0)
     size_distribution: FireSize = key("fraction", doc="Fire size: fraction (a fixed fraction of "
                                       "the ignition patch), exponential (mean mean_size_ha) or "
                                       "power_law (density ~ size^-size_exponent between "
@@ -100,9 +100,10 @@ class FloodConfig:
 
     label: str
     kind: Literal["flood"]
-    return_period_years: tuple[float, ...] = key(doc="Return period of each flood magnitude, "
-                                                 "increasing (e.g. [10, 100]).", unit="years",
-                                                 low=1, low_open=True, example=[10.0, 100.0])
+    return_period_years: tuple[float, ...] | Trend = key(
+        doc="Return period of each flood magnitude, increasing (e.g. [10, 100]). May change "
+        "over the run with a single magnitude (one zone or stage).", unit="years", low=1,
+        low_open=True, example=[10.0, 100.0])
     zone: tuple[Path, ...] | None = key(None, doc="Flood-zone layer of each magnitude: a raster "
                                         "(cells > 0 flood) or a polygon file. Give zone or "
                                         "terrain.", example=["flood10.gpkg", "flood100.gpkg"])

@@ -30,7 +30,7 @@ from .kinds import (
     ReleaseConfig,
     RemovalConfig,
 )
-from .schema import REQUIRED, Key
+from .schema import REQUIRED, Key, Trend, keys_of
 from .sections import (
     SECTION_CLASSES,
     SECTIONS,
@@ -101,6 +101,13 @@ def check_value(file: Path | str, section: str, key: Key, value: object) -> Any:
     of numbers as float, a list as a tuple; paths not yet resolved)."""
     loc = where(file, section, key.name)
     bad = f"{loc} = {value!r} is not allowed; expected {key.allowed()}."
+    if key.changing and (isinstance(value, dict) or (isinstance(value, list) and value
+                                                     and isinstance(value[0], list))):
+        return _trend(file, section, key, value, bad)
+    if key.type == "tables":
+        if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
+            raise ScenarioError(f"{bad} Write [[{section}.{key.name}]] above each entry.")
+        return tuple(value)  # each table is checked by _tables
     if key.type == "bool":
         if not isinstance(value, bool):
             raise ScenarioError(bad)
@@ -155,6 +162,25 @@ def check_value(file: Path | str, section: str, key: Key, value: object) -> Any:
     return value
 
 
+def _trend(file: Path | str, section: str, key: Key, value: dict | list, bad: str) -> Trend:
+    """``{ start = a, end = b }`` or ``[[year, value], ...]`` as a :class:`Trend`, each value
+    checked against the key's bounds."""
+    one = dataclasses.replace(key, type="float", changing=False)
+    if isinstance(value, dict):
+        if set(value) != {"start", "end"}:
+            raise ScenarioError(bad)
+        values = tuple(check_value(file, section, one, value[k]) for k in ("start", "end"))
+        return Trend((0.0, 1.0), values, over_run=True)
+    if not all(isinstance(p, list) and len(p) == 2 for p in value):
+        raise ScenarioError(bad)
+    years = tuple(check_value(file, section, dataclasses.replace(one, low=0, high=None,
+                                                                 low_open=False), p[0])
+                  for p in value)
+    if any(b <= a for a, b in zip(years, years[1:], strict=False)):
+        raise ScenarioError(f"{bad} The years must increase.")
+    return Trend(years, tuple(check_value(file, section, one, p[1]) for p in value))
+
+
 def _resolve_path(file: Path, section: str, key: str, value: str) -> Path:
     p = Path(value).expanduser()
     if not p.is_absolute():
@@ -174,6 +200,8 @@ def _values(file: Path, section: str, keys: tuple[Key, ...], table: dict[str, ob
             value = check_value(file, section, key, table[key.name])
             if key.type == "path":
                 value = _resolve_path(file, section, key.name, str(value))
+            elif key.type == "tables":
+                value = _tables(file, f"{section}.{key.name}", key, value)
             elif key.type == "pathlist":
                 value = tuple(_resolve_path(file, section, key.name, v) for v in value)
         elif key.default is REQUIRED:
@@ -183,6 +211,22 @@ def _values(file: Path, section: str, keys: tuple[Key, ...], table: dict[str, ob
             value = key.default
         values[key.name] = value
     return values
+
+
+def _tables(file: Path, name: str, key: Key, tables: tuple[dict, ...]) -> tuple[Any, ...]:
+    """The tables ``[[name]]`` of a key of type "tables", each checked as a section of its own
+    (``[name #i]`` in messages)."""
+    assert key.table is not None
+    keys = keys_of(key.table)
+    known = {k.name: k for k in keys}
+    out = []
+    for i, table in enumerate(tables, 1):
+        label = f"{name} #{i}"
+        for k in table:
+            if k not in known:
+                raise ScenarioError(_unknown(file, label, k, known))
+        out.append(key.table(**_values(file, label, keys, table)))
+    return tuple(out)
 
 
 def parse_section(file: Path, section: str, table: object) -> SectionConfig:
@@ -210,6 +254,14 @@ def _cross_checks(file: Path, s: Scenario) -> Scenario:
     if disp.fraction > 0 and disp.method == "kernel" and disp.mean_distance_m is None:
         raise ScenarioError(f"{where(file, 'dispersal', 'mean_distance_m')} is required when "
                             f"fraction = {disp.fraction:g} > 0.")
+    _future_checks(file, s.habitat.future, "habitat")
+    _future_checks(file, disp.future, "dispersal")
+    if s.habitat.future and s.habitat.suitability_series is not None:
+        raise ScenarioError(f"{where(file, 'habitat', 'suitability_series')}: give either "
+                            f"suitability_series or [[habitat.future]] tables, not both.")
+    if disp.future and (disp.method != "walk" or disp.resistance is None):
+        raise ScenarioError(f"{where(file, 'dispersal', 'future')}: resistance layers of later "
+                            f"years need method = \"walk\" and a resistance raster.")
     if s.grid.template is None:
         s = dataclasses.replace(s, grid=dataclasses.replace(s.grid, template=s.habitat.suitability))
     if s.stages is not None:
@@ -319,6 +371,13 @@ def _stage_checks(file: Path, s: Scenario) -> Scenario:
     return dataclasses.replace(s, stages=st, growth=growth)
 
 
+def _future_checks(file: Path, future: tuple, section: str) -> None:
+    years = [f.year for f in future]
+    if any(b <= a for a, b in zip(years, years[1:], strict=False)):
+        raise ScenarioError(f"{where(file, section, 'future')}: the years {years} must "
+                            f"increase.")
+
+
 def _fire_checks(file: Path, c: FireConfig) -> None:
     needs = {"fraction": ("size_fraction",), "exponential": ("mean_size_ha",),
              "power_law": ("min_size_ha", "max_size_ha", "size_exponent")}
@@ -340,7 +399,8 @@ def _fire_checks(file: Path, c: FireConfig) -> None:
 
 
 def _flood_checks(file: Path, c: FloodConfig) -> None:
-    t = c.return_period_years
+    t = (c.return_period_years.values[0],) if isinstance(c.return_period_years, Trend) \
+        else c.return_period_years
     if any(b <= a for a, b in zip(t, t[1:], strict=False)):
         raise ScenarioError(f"{where(file, c.label, 'return_period_years')} = {list(t)}: "
                             f"return periods must increase.")
@@ -354,6 +414,10 @@ def _flood_checks(file: Path, c: FloodConfig) -> None:
         raise ScenarioError(f"{where(file, c.label, 'stage_m')} is required with terrain: one "
                             f"water level per return period.")
     if len(given) != len(t):
+        if isinstance(c.return_period_years, Trend):
+            raise ScenarioError(f"{where(file, c.label, 'return_period_years')}: a return "
+                                f"period that changes over the run needs a single magnitude "
+                                f"(one {name}); {len(given)} given.")
         raise ScenarioError(f"{where(file, c.label, name)}: {len(given)} values for "
                             f"{len(t)} return periods {list(t)}; give one per return period.")
     if c.stage_m is not None and any(b < a for a, b in zip(c.stage_m, c.stage_m[1:],

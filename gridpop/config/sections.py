@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Literal, get_args
+from typing import Any, Literal, get_args
 
 from .schema import Key, doc_of, key, keys_of
 
@@ -18,6 +18,7 @@ Kernel = Literal["gaussian", "exponential", "2dt"]
 Edge = Literal["absorbing", "reflecting"]
 DispersalMethod = Literal["kernel", "walk"]
 Response = Literal["linear", "threshold", "power"]
+Change = Literal["linear", "step"]
 OutputRaster = Literal["abundance", "occupancy", "colonised"]
 DensityActsOn = Literal["fecundity", "survival", "all"]
 Survivorship = Literal["weibull"]
@@ -29,6 +30,7 @@ KERNELS: tuple[Kernel, ...] = get_args(Kernel)
 EDGES: tuple[Edge, ...] = get_args(Edge)
 DISPERSAL_METHODS: tuple[DispersalMethod, ...] = get_args(DispersalMethod)
 RESPONSES: tuple[Response, ...] = get_args(Response)
+CHANGES: tuple[Change, ...] = get_args(Change)
 OUTPUT_RASTERS: tuple[OutputRaster, ...] = get_args(OutputRaster)
 STAGE_RASTER = "abundance_"
 """[output] rasters also takes ``abundance_<stage>``, a stage of [stages]."""
@@ -58,12 +60,37 @@ class GridConfig:
                                 "Defaults to the suitability raster.", example="suitability.tif")
 
 
+def _year() -> Any:
+    return key(doc="Year from which the layer holds (year t is the step from census year t to "
+               "t + 1); the layers of a list in increasing year.", unit="year", low=1,
+               example=15)
+
+
+@dataclass(frozen=True, kw_only=True)
+class HabitatFuture:
+    """A suitability layer of a later year ([[habitat.future]])."""
+
+    year: int = _year()
+    suitability: Path = key(doc="Habitat-suitability raster of that year, read like the "
+                            "starting layer; the same study area.", example="suit_2040.tif")
+
+
+@dataclass(frozen=True, kw_only=True)
+class DispersalFuture:
+    """A resistance layer of a later year ([[dispersal.future]])."""
+
+    year: int = _year()
+    resistance: Path = key(doc="Resistance raster of that year, read like [dispersal] "
+                           "resistance; the same study area.", example="resistance_2040.tif")
+
+
 @dataclass(frozen=True, kw_only=True)
 class HabitatConfig:
-    """Habitat suitability and carrying capacity."""
+    """Habitat suitability and carrying capacity, and how suitability changes over the years."""
 
     suitability: Path = key(doc="Habitat-suitability raster, values 0..1; nodata or NaN marks "
-                            "cells outside the study area.", example="suitability.tif")
+                            "cells outside the study area. The starting layer (year 0).",
+                            example="suitability.tif")
     capacity_per_ha: float = key(doc="Carrying capacity at suitability 1.",
                                  unit="individuals/ha", low=0, example=2.0)
     response: Response = key("linear", doc="How suitability s maps to capacity: linear "
@@ -71,6 +98,15 @@ class HabitatConfig:
                              "(K ~ s^exponent).")
     threshold: float = key(0.5, doc="Cut-off for the threshold response.", low=0, high=1)
     exponent: float = key(2.0, doc="Exponent of the power response.", low=0, low_open=True)
+    change: Change = key("linear", doc="Suitability between the years of the layers: linear "
+                         "(interpolated per cell) or step (each layer holds until the next).")
+    future: tuple[HabitatFuture, ...] = key((), doc="Layers of later years, [[habitat.future]] "
+                                            "tables with year and suitability; after the last "
+                                            "year its layer holds.")
+    suitability_series: Path | None = key(None, doc="A multi-band raster in place of the future "
+                                          "list: band k is the layer of year k-1 (band 1 the "
+                                          "starting layer, the same values), the last band "
+                                          "holds after its year.", example="suitability_series.tif")
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -211,6 +247,10 @@ class DispersalConfig:
                                  "0).", low=0, low_open=True)
     heading_bias: float = key(0.0, doc="Walk: heading bias kappa, how strongly a walker keeps "
                               "its last direction (correlated random walk; 0 = none).", low=0)
+    future: tuple[DispersalFuture, ...] = key((), doc="Walk: resistance layers of later years, "
+                                              "[[dispersal.future]] tables with year and "
+                                              "resistance (interpolated as [habitat] change "
+                                              "says); needs resistance.")
 
 
 @dataclass(frozen=True, kw_only=True)

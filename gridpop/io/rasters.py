@@ -102,12 +102,23 @@ def _open(path: Path, loc: str):
         raise InputDataError(f"{loc}: not a raster GDAL can read ({exc}).") from None
 
 
-def _check_crs(src, loc: str) -> None:
+def _check_crs(src, loc: str, band: int | None = None) -> None:
+    """A CRS, and a single band (``band`` None) or at least ``band`` bands."""
     if src.crs is None:
         raise InputDataError(f"{loc}: the raster has no CRS. Assign one, e.g. "
                              f"`gdal_edit.py -a_srs EPSG:XXXX {src.name}`.")
-    if src.count != 1:
+    if band is None and src.count != 1:
         raise InputDataError(f"{loc}: the raster has {src.count} bands; expected a single band.")
+    if band is not None and src.count < band:
+        raise InputDataError(f"{loc}: the raster has {src.count} bands; band {band} asked for.")
+
+
+def band_count(path: Path, *, file: Path, section: str, key: str) -> int:
+    """Number of bands of a raster (which must have a CRS)."""
+    loc = where_layer(file, section, key, path)
+    with _open(path, loc) as src:
+        _check_crs(src, loc, band=1)
+        return src.count
 
 
 def _utm_hint(crs: rasterio.crs.CRS, bounds) -> str:
@@ -185,9 +196,19 @@ def _resampling(kind: str, coarser: bool) -> Resampling:
     return Resampling.average if coarser else Resampling.bilinear
 
 
+def _read_band(src, band: int) -> np.ndarray:
+    """One band as float64, NaN where nodata, read block window by block window into the result
+    (no whole-band temporaries of the file's type and mask)."""
+    out = np.empty((src.height, src.width))
+    for _, w in src.block_windows(band):
+        rows, cols = w.toslices()
+        out[rows, cols] = src.read(band, window=w, masked=True).astype(np.float64).filled(np.nan)
+    return out
+
+
 def align_raster(path: Path, grid: Grid, *, kind: str, file: Path, section: str,
-                 key: str) -> Layer:
-    """Resample a single-band raster onto the grid.
+                 key: str, band: int | None = None) -> Layer:
+    """Resample a single-band raster, or one band of a multi-band raster, onto the grid.
 
     Parameters
     ----------
@@ -203,6 +224,9 @@ def align_raster(path: Path, grid: Grid, *, kind: str, file: Path, section: str,
         so totals are preserved.
     file, section, key
         Scenario file and key the path came from, for messages.
+    band : int, optional
+        The band to read (1 = the first) of a multi-band raster; not given: the raster must
+        have a single band.
 
     Returns
     -------
@@ -220,8 +244,8 @@ def align_raster(path: Path, grid: Grid, *, kind: str, file: Path, section: str,
     loc = where_layer(file, section, key, path)
     name = Path(path).name
     with _open(path, loc) as src:
-        _check_crs(src, loc)
-        data = src.read(1, masked=True).astype(np.float64).filled(np.nan)
+        _check_crs(src, loc, band)
+        data = _read_band(src, band or 1)
         src_crs, src_transform = src.crs, src.transform
         src_bounds = src.bounds
     if not np.isfinite(data).any():

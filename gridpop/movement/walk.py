@@ -85,6 +85,7 @@ Oecologia 56:234-238 (from memory).
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import NamedTuple
 
@@ -592,7 +593,7 @@ class Walk:
     Attributes
     ----------
     permeability : (ny, nx) float64 ndarray
-        With barriers that cannot be crossed already set to 0.
+        With barriers that cannot be crossed already set to 0 (year 0 when it changes).
     entry_survival : (ny, nx) float64 ndarray or None
         Survival of entering barrier cells that can be crossed with a mortality.
     full_capacity : float
@@ -603,6 +604,8 @@ class Walk:
         Patch labels, 0 = no patch; ``n_patches`` patches.
     stochastic : bool
         Whole walkers (each on its own walk) or expected numbers.
+    by_year : callable or None
+        ``by_year(year)``: the permeability of a year when resistance changes over time.
     """
 
     permeability: np.ndarray
@@ -612,6 +615,7 @@ class Walk:
     labels: np.ndarray
     n_patches: int
     stochastic: bool
+    by_year: Callable[[int], np.ndarray] | None = None  # permeability of a year, if it changes
 
     def quality(self, k: np.ndarray) -> np.ndarray:
         return np.clip(k / self.full_capacity, 0.0, 1.0) if self.full_capacity > 0 \
@@ -623,11 +627,12 @@ class Walk:
     def move(self, leaving: np.ndarray, k: np.ndarray, streams: YearStreams,
              work: dict[str, np.ndarray]) -> Moved:
         q = self.quality(k)
+        perm = self.permeability if self.by_year is None else self.by_year(streams.year)
         if self.stochastic:
-            return disperse_walk_stochastic(leaving, self.permeability, q, self.labels,
+            return disperse_walk_stochastic(leaving, perm, q, self.labels,
                                             self.n_patches, self.params,
                                             streams.key(rng.STREAM_WALK),
                                             entry_survival=self.entry_survival)
-        return disperse_walk_deterministic(leaving, self.permeability, q, self.labels,
+        return disperse_walk_deterministic(leaving, perm, q, self.labels,
                                            self.n_patches, self.params,
                                            entry_survival=self.entry_survival)

@@ -151,6 +151,32 @@ def _walk_dispersal(d: dict, actions: list[dict]) -> str:
     return " ".join(out)
 
 
+def _value(v) -> str:
+    """A number, or a value that changes over the run (a Trend as read)."""
+    if not isinstance(v, dict):
+        return fmt(v)
+    if v["over_run"]:
+        return (f"{v['values'][0]:g} in year 0 changing linearly to {v['values'][1]:g} in the "
+                "last year")
+    return "; ".join(f"{b:g} in year {a:g}" for a, b in zip(v["years"], v["values"],
+                                                            strict=True)) + ", linear in between"
+
+
+def _habitat_change(hab: dict) -> str:
+    """The sentence on suitability layers of later years; empty without them."""
+    change = ("interpolated linearly per cell between the given years" if hab["change"] ==
+              "linear" else "each layer holding until the next")
+    if hab["suitability_series"]:
+        return (f" Suitability changes year by year: band k of {hab['suitability_series']} is "
+                "the layer of year k-1, the last band holding after it.")
+    if hab["future"]:
+        years = ", ".join(str(f["year"]) for f in hab["future"])
+        return (f" Suitability changes over the years: layers of years {years} "
+                f"({change}), the last holding after its year; actions act on each year's "
+                "layer.")
+    return ""
+
+
 def _disturbance(tables: list[dict], actions: list[dict]) -> str:
     if not tables:
         return "None: no fires or floods are simulated."
@@ -162,7 +188,7 @@ def _disturbance(tables: list[dict], actions: list[dict]) -> str:
                      else "leaves its capacity."))
         if t["kind"] == "fire":
             out.append(
-                f"Fire (return interval {t['return_interval_years']:g} years at hazard 1"
+                f"Fire (return interval {_value(t['return_interval_years'])} years at hazard 1"
                 + (f", hazard raster {t['hazard']}" if t["hazard"] else "")
                 + f"; sizes {FIRE_SIZE[t['size_distribution']].format(**t)}): ignitions in each "
                 "patch are Poisson events scaled so that about the patch's area burns once per "
@@ -172,7 +198,7 @@ def _disturbance(tables: list[dict], actions: list[dict]) -> str:
         else:
             where = (f"the nested zones {fmt(t['zone'])}" if t["zone"] else
                      f"the cells of {t['terrain']} below stages {fmt(t['stage_m'])} m")
-            out.append(f"Flood (return periods {fmt(t['return_period_years'])} years): one draw "
+            out.append(f"Flood (return periods {_value(t['return_period_years'])} years): one draw "
                        f"a year for the whole landscape decides whether and how far {where} "
                        f"flood. It {effect}")
     kinds = {t["kind"] for t in tables}
@@ -209,11 +235,13 @@ def assumptions(params: dict) -> list[tuple[str, str]]:
         "genetics; all individuals are alike. A cell's carrying capacity K is "
         f"{hab['capacity_per_ha']:g} individuals/ha at suitability 1, "
         f"{RESPONSE[hab['response']].format(**hab)}; cells with capacity 0 are matrix, where "
-        f"nobody breeds or settles. Density dependence acts within each cell only. {start}"
+        f"nobody breeds or settles.{_habitat_change(hab)} Density dependence acts within each "
+        f"cell only. {start}"
         + (", the same in every plan (the base landscape's)." if actions else "."))
     steps = (["environmental variation"] * env
-             + ["the year's habitat changes"] * any(c["kind"] in ("restoration", "habitat_loss")
-                                                    for c in actions)
+             + ["the year's habitat changes"] * (any(c["kind"] in ("restoration", "habitat_loss")
+                                                     for c in actions)
+                                                 or bool(_habitat_change(hab)))
              + [" and ".join(sorted({f"{t['kind']}s" for t in tables}))] * bool(tables)
              + ["survival and births"] + ["dispersal"] * moves + ["census"])
     cycle = (f"From one census to the next: {'; '.join(steps)}. Abundance is counted once a "

@@ -54,7 +54,8 @@ CAPTIONS = {
     "occupancy": "Fraction of replicates in which each cell is occupied in the final year. "
                  "Cells occupied in no replicate show the habitat of the last year (light "
                  "green) apart from the matrix (light grey); outlines: the cells of the plan's "
-                 "actions and the focus areas. Actions the same in every plan or covering the "
+                 "actions, the focus areas and, when suitability changes over time, the "
+                 "habitat of year 0 (dotted blue). Actions the same in every plan or covering the "
                  "whole study area are named above the legend instead of drawn.",
     "colonisation": "Median year in which each cell is first occupied; cells not occupied in "
                     "at least half of the replicates show the habitat of the last year (light "

@@ -68,8 +68,9 @@ _DASHES = ("-", "--", "-.", ":")
 ACTION_STYLE: dict[str, tuple[str, Any]] = {
     "reserve": ("#CC79A7", "-"), "corridor": ("#D55E00", "--"), "barrier": ("#000000", ":"),
     "restoration": ("#009E73", "-."), "habitat_loss": ("#E69F00", (0, (5, 1, 1, 1))),
-    "release": ("#56B4E9", "-"), "removal": ("#0072B2", ":"), "focus": ("#FFFFFF", "-")}
-"""Outline colour and line style per action kind (and the focus areas) on the maps."""
+    "release": ("#56B4E9", "-"), "removal": ("#0072B2", ":"), "focus": ("#FFFFFF", "-"),
+    "habitat in year 0": ("#F0E442", (0, (1, 1)))}
+"""Outline colour and line style on the maps: action kinds, focus areas, habitat of year 0."""
 
 DPI = 110
 
@@ -382,12 +383,13 @@ def relative(path, base: Path) -> str:
 
 @dataclass(frozen=True, eq=False)
 class PlanCells:
-    """A plan's landscape rebuilt from its scenario on the run's grid: the habitat of the run's
-    last year (capacity > 0, without disturbance) and each action as ``(kind, area file relative
-    to the scenario, cells)``, in the scenario's order."""
+    """A plan's landscape rebuilt on the run's grid: the habitat (capacity > 0, no disturbance)
+    of the last year, of year 0 when suitability changes over time (``first``, else None), and
+    each action as ``(kind, area file relative to the scenario, cells)``, in order."""
 
     habitat: np.ndarray
     actions: tuple[tuple[str, str, np.ndarray], ...]
+    first: np.ndarray | None = None
 
 
 def plan_cells(plan: Plan) -> PlanCells | None:
@@ -411,9 +413,9 @@ def plan_cells(plan: Plan) -> PlanCells | None:
                       "habitat and no action areas.", stacklevel=2)
         return None
     habitat = actions.capacity_for_year(int(plan.summary["years"]) - 1) > 0
-    configs = scenario.actions
-    return PlanCells(habitat, tuple((c.kind, relative(c.area, path.parent), cells)
-                                    for c, cells in zip(configs, actions.areas, strict=True)))
+    first = actions.capacity_for_year(0) > 0 if actions.landscape.timeline is not None else None
+    return PlanCells(habitat, tuple((c.kind, relative(c.area, path.parent), cells) for c, cells
+                                    in zip(scenario.actions, actions.areas, strict=True)), first)
 
 
 def footprint(cells: np.ndarray, layer: MapLayer) -> gpd.GeoDataFrame:
@@ -594,6 +596,8 @@ def _maps(plans: list[Plan], compare_dir: Path | None = None) -> list[tuple[str,
         study = ~np.ma.getmaskarray(final.values)
         habitat = pc.habitat if pc is not None else None
         lines = focus_outlines(plan, final.crs) + lines  # actions drawn over focus areas
+        if pc is not None and pc.first is not None:
+            lines.append(("habitat in year 0", footprint(pc.first, final)))
         occ.append((plan.name, MapLayer(_without_zero(final), final.extent, final.crs, study,
                                         habitat), lines))
         first = read_band(plan.folder / "colonisation_year.tif", 1)
@@ -639,10 +643,10 @@ def plot_run(run_dir, manifest: dict | None = None) -> list[Path]:
 
     risk.png (quasi-extinction risk with intervals; colonisation for a focus area that starts
     below the threshold), abundance.png (median, 5-95 % band and a few replicates),
-    occupancy.png (final-year occupancy probability), colonisation.png (median colonisation
-    year), both maps over the habitat of the last year with the footprints of the plan's actions
-    and its focus areas, and ledger.png (births, deaths, disturbance deaths, net movement per
-    year). ``manifest`` stands for run.json (a working folder, drawn before it is published).
+    occupancy.png (final-year occupancy), colonisation.png (median colonisation year), both over
+    the habitat of the last year (and of year 0, outlined, when it changes) with the action
+    footprints and focus areas, and ledger.png (births, deaths, disturbance deaths, movement).
+    ``manifest`` stands for run.json (a working folder, drawn before it is published).
     """
     run_dir = Path(run_dir)
     return _write(run_dir, _figures([read_run(run_dir, manifest)]))

@@ -64,6 +64,7 @@ def describe(scenario, model: Model) -> list[str]:
     else:
         lines.append("dispersal: none (fraction = 0)")
     lines += [f"action {note}" for note in model.actions.notes]
+    lines += _through_time(scenario, model)
     if model.regime is not None:
         lines += [f"disturbance {note}" for note in model.regime.notes]
     plan = model.plan
@@ -91,3 +92,21 @@ def stage_lines(scenario, mode: str) -> list[str]:
     lines.append("  transitions: " + "; ".join(" ".join(f"{x:g}" for x in r) for r in t))
     lines.append("  fecundity: " + "; ".join(" ".join(f"{x:g}" for x in r) for r in f))
     return lines + [f"  {line}" for line in matrices.describe(names, t, f)]
+
+
+def _through_time(scenario, model: Model) -> list[str]:
+    """Total capacity at the years with a suitability layer (and the last year), of the layer
+    alone and with this plan's actions."""
+    timeline = model.landscape.timeline
+    if timeline is None:
+        return []
+    last = model.plan.years - 1
+    years = sorted({y for y in timeline.years if y <= last} | {last})
+    lines = [f"habitat through time ({scenario.habitat.change} change between the layers): "
+             f"total capacity by year"]
+    for year, alone, with_plan in model.actions.totals(years):
+        line = f"  year {year}: {alone:,.1f}"
+        if scenario.actions:
+            line += f"; with this plan's actions {with_plan:,.1f} ({with_plan - alone:+,.1f})"
+        lines.append(line)
+    return lines

@@ -369,6 +369,8 @@ class Replicate:
             effects = self.effects = self._disturb(year, k)
             dist_deaths = effects.deaths
             k = effects.capacity
+            if "sum_k" in sink.acc:
+                sink.acc["sum_k"][year] += k
         if m.management is not None:
             self.ledger[t, :, N_FIELDS:N_FIELDS + 2] = np.stack(m.management.apply(
                 self.n, k, year, streams, m.growth.stochastic), axis=1)

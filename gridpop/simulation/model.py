@@ -13,6 +13,7 @@ from __future__ import annotations
 import contextlib
 import functools
 from dataclasses import dataclass
+from pathlib import Path
 from typing import NamedTuple
 
 import numpy as np
@@ -23,7 +24,7 @@ from ..analysis.summary import FocusCensus, focus_census
 from ..demography import MODEL_CODES, EnvironmentalNoise
 from ..disturbance import Regime, build_regime
 from ..errors import InputDataError, ScenarioError, where, where_layer
-from ..io.rasters import align_raster
+from ..io.rasters import Grid, align_raster
 from ..landscape import Landscape
 from ..management import Management, build_management
 from ..movement import Mover
@@ -38,6 +39,7 @@ from ..movement.walk import (
     resistance_from_suitability,
 )
 from ..stages import StageRates, one_stage, split_initial, stage_rates
+from ..timeline import Source, Timeline, read_layer
 
 
 @dataclass(frozen=True)
@@ -185,6 +187,8 @@ class Model:
             acc["visits"] = np.float64
         acc.update({f"sum_abundance_{self.growth.life.names[s]}": np.float64
                     for s in self.growth.life.rasters})
+        if self.landscape.timeline is not None and self.regime is not None:
+            acc["sum_k"] = np.float64  # capacity of year t (after disturbance) at index t
         return acc
 
     @functools.cached_property
@@ -294,6 +298,58 @@ def _keys_of(scenario, section: str):
         raise ScenarioError(f"{where(scenario.path, section)} {exc}") from None
 
 
+def _permeability(res, mask, actions: Actions) -> np.ndarray:
+    """Permeability from resistance: NaN outside the study area, the corridors' factors, the
+    impassable barriers at 0 (raises ValueError on bad resistance)."""
+    res = np.where(mask, res, np.nan)
+    if actions.resistance_factor is not None:
+        res = res * actions.resistance_factor
+    perm = permeability_from_resistance(res)
+    if actions.barrier is not None:
+        perm[actions.barrier >= 1.0] = 0.0
+    return np.ascontiguousarray(perm)
+
+
+@dataclass(frozen=True, eq=False)
+class FutureResistance:
+    """Reads a later resistance layer for a :class:`Timeline`: aligned, a value in the cells
+    where the starting resistance layer ``first`` has one, values a permeability can be made
+    of."""
+
+    file: Path
+    first: Path
+    grid: Grid
+    mask: np.ndarray  # the study area
+    has_value: np.ndarray  # the starting resistance layer's cells with a value
+    actions: Actions
+
+    def __call__(self, source: Source) -> np.ndarray:
+        data, _ = read_layer(source, self.grid, self.has_value, self.first, self.file)
+        try:
+            _permeability(data, self.mask, self.actions)
+        except ValueError as exc:
+            loc = where_layer(self.file, source.section, source.key, source.path)
+            raise InputDataError(f"{loc}: {exc}") from None
+        return data
+
+
+@dataclass(eq=False)
+class PermeabilityByYear:
+    """The walk's permeability of each year from a resistance :class:`Timeline`; the last one is
+    reused while the layer does not change."""
+
+    timeline: Timeline
+    mask: np.ndarray
+    actions: Actions
+    _last: tuple = ((-1, -1), None)
+
+    def __call__(self, year: int) -> np.ndarray:
+        key = self.timeline.key(year)
+        if key != self._last[0]:
+            self._last = (key, _permeability(self.timeline.at(key), self.mask, self.actions))
+        return self._last[1]
+
+
 def _walk(scenario, landscape: Landscape, actions: Actions, labels: np.ndarray,
           stochastic: bool) -> Walk:
     """Permeability, barriers and settlement of the walk engine."""
@@ -305,18 +361,24 @@ def _walk(scenario, landscape: Landscape, actions: Actions, labels: np.ndarray,
         with _keys_of(scenario, "dispersal"):
             res = resistance_from_suitability(landscape.suitability, d.resistance_max,
                                               d.resistance_shape)
-    res = np.where(landscape.mask, res, np.nan)
-    if actions.resistance_factor is not None:
-        res = res * actions.resistance_factor
     try:
-        perm = permeability_from_resistance(res)
+        perm = _permeability(res, landscape.mask, actions)
     except ValueError as exc:
         layer = d.resistance or "resistance from suitability"
         raise InputDataError(f"{where_layer(scenario.path, 'dispersal', 'resistance', layer)}: "
                              f"{exc}") from None
+    by_year = None
+    if d.future:
+        read = FutureResistance(scenario.path, d.resistance, grid, landscape.mask,
+                                ~np.isnan(res), actions)
+        sources = tuple(Source(f.year, f.resistance, None, f"dispersal.future #{i}",
+                               "resistance") for i, f in enumerate(d.future, 1))
+        for source in sources:
+            read(source)  # every layer checked once before the run
+        by_year = PermeabilityByYear(Timeline(res, sources, scenario.habitat.change, read),
+                                     landscape.mask, actions)
     entry = None
     if actions.barrier is not None:
-        perm[actions.barrier >= 1.0] = 0.0
         partial = (actions.barrier > 0) & (actions.barrier < 1.0)
         if partial.any():
             entry = np.where(partial, 1.0 - actions.barrier, 1.0)
@@ -325,5 +387,4 @@ def _walk(scenario, landscape: Landscape, actions: Actions, labels: np.ndarray,
                             death_per_resistance=d.death_per_resistance,
                             settle_exponent=d.settle_exponent, heading_bias=d.heading_bias)
     full = scenario.habitat.capacity_per_ha * grid.cell_area_ha
-    return Walk(np.ascontiguousarray(perm), entry, full, params, labels, landscape.patches.n,
-                stochastic)
+    return Walk(perm, entry, full, params, labels, landscape.patches.n, stochastic, by_year)

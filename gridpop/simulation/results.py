@@ -110,6 +110,16 @@ def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
     return ["connectivity.csv", "connectivity.json"]
 
 
+def _capacity_bands(model: Model, totals):
+    """Capacity of years 0 .. years - 1 (of the step from census year t to t + 1): the same in
+    every replicate, or with disturbance the mean over replicates after its losses."""
+    for t in range(model.plan.years):
+        if "sum_k" in totals:
+            yield totals["sum_k"][t] / model.plan.replicates
+        else:
+            yield model.actions.capacity_for_year(t)
+
+
 def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list[str]:
     """Combine batches and write stacks and tables (the batch folders stay, for a resume)."""
     totals = combine(work, model, parts)
@@ -122,6 +132,10 @@ def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list
         write_stack(work / f"{name}.tif", grid, mask,
                     (total[t] / reps for t in range(model.plan.years + 1)), labels)
         files.append(f"{name}.tif")
+    if model.landscape.timeline is not None:
+        write_stack(work / "capacity.tif", grid, mask, _capacity_bands(model, totals),
+                    labels[:-1])
+        files.append("capacity.tif")
     if model.walk is not None:
         files += write_connectivity(work, scenario, model, totals["visits"])
     ledger = np.concatenate([np.load(p / "ledger.npy") for p in parts], axis=0)

@@ -12,6 +12,8 @@ Layers written into scenarios/demo/data/ (all on the 160 x 120 grid of 50 m cell
 its CRS):
 
 - ``suitability.tif``: habitat suitability 0..1 (nodata: a corner outside the study area);
+- ``suitability_dry_40.tif``: the same in year 40 of a drier future (a projection of our own
+  invention): the fens shrink to two thirds of their habitat area, the rest is unchanged;
 - ``resistance.tif``: resistance to walking dispersers (1 in the best wet grassland, 12 to 15 on
   arable land, 3 on the brook's damp banks, 60 on the road except at the bridge);
 - ``fire_hazard.tif``: relative fire hazard of the habitat (drier tussock higher, the brook's
@@ -73,6 +75,9 @@ ROAD_CLEAR_M = 50.0  # the straight corridor stops this far either side of the r
 CORRIDOR_HALF_M = 100.0  # corridors are 200 m wide strips
 ONE_BLOCK = (40, 35, 60, 55)  # column0, row0, column1, row1 of the 1 km square
 SMALL_SITES = [(24, 30), (24, 50), (65, 9), (71, 25)]  # upper-left cells of 500 m squares
+# The drier future: fen radii times this leave two thirds of the fens' habitat cells (282 of 422
+# within 2.5 radii of a fen centre), so the fens shrink by a third.
+DRY_FEN_SCALE = 0.813
 
 
 def xy(col: float, row: float) -> tuple[float, float]:
@@ -100,7 +105,9 @@ def smooth_field(rng, sigma):
     return (f - f.min()) / (f.max() - f.min())
 
 
-def suitability() -> np.ndarray:
+def suitability(fen_scale: float = 1.0) -> np.ndarray:
+    """Habitat suitability; ``fen_scale`` scales the radius of every fen (the fens' habitat area
+    scales with its square)."""
     rng = np.random.default_rng(20261201)
     yy, xx = np.mgrid[0:NY, 0:NX]
     base = 0.05 + 0.15 * smooth_field(rng, 6)  # farmland matrix: poor but not hostile
@@ -109,6 +116,7 @@ def suitability() -> np.ndarray:
     blocks = np.clip(1.6 * np.maximum(west, east), 0, 1)
     fens = np.zeros((NY, NX))
     for cx, cy, r in FENS:
+        r = r * fen_scale
         fens += np.exp(-(((yy - cy) / r) ** 2 + ((xx - cx) / r) ** 2))
     s = np.maximum(base, np.maximum(blocks, np.clip(1.3 * fens, 0, 0.9)))
     s = s * (0.85 + 0.15 * smooth_field(rng, 2))
@@ -173,6 +181,7 @@ def layers() -> dict[str, np.ndarray | gpd.GeoDataFrame]:
                                           (10, 45)]])
     return {
         "suitability.tif": s,
+        "suitability_dry_40.tif": suitability(DRY_FEN_SCALE),
         "resistance.tif": resistance,
         "fire_hazard.tif": hazard,
         "flood_10yr.tif": flood10,
