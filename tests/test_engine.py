@@ -290,13 +290,15 @@ def test_serial_and_parallel_variants_agree():
     k = np.where(r.random((ny, nx)) < 0.8, r.uniform(2.0, 20.0, (ny, nx)), 0.0)
     n = np.floor(r.uniform(0.0, 15.0, (ny, nx))) * (k > 0)
     keys = np.array([rng.year_key(5, 1, 2, s) for s in
-                     (rng.STREAM_SURVIVAL, rng.STREAM_BIRTHS, rng.STREAM_EMIGRATION)], np.uint64)
+                     (rng.STREAM_SURVIVAL, rng.STREAM_BIRTHS, rng.STREAM_EMIGRATION,
+                      rng.STREAM_TRANSITION, rng.STREAM_SEX)], np.uint64)
     rates = GrowthRates(demography.MODEL_CODES["ricker"], 0.5, 0.7, 1.0, 0.0, True)
     results = []
     for variant in (grow_pass.serial, grow_pass.parallel):
-        out, lv = np.empty((ny, nx)), np.empty((ny, nx))
-        part = variant(labels, n_patches, n, k, np.full((1, 1), 0.1), out, lv,
-                       rates, Emigration(0.3, 1.0), keys, NO_RETENTION)
+        out, lv = np.empty((1, ny, nx)), np.empty((1, ny, nx))
+        part = variant(labels, n_patches, n[None], k, np.full((1, 1), 0.1), out, lv,
+                       rates, one_stage(), np.array([0.3]), Emigration(0.3, 1.0), keys,
+                       NO_RETENTION)
         results.append((out, lv, part))
     for a, b in zip(*results, strict=True):
         np.testing.assert_array_equal(a, b)

@@ -28,6 +28,7 @@ from gridpop.analysis.summary import parameters
 from gridpop.analysis.summary import plan as plan_of
 from gridpop.errors import InputDataError
 from gridpop.io.results import LEDGER_FIELDS
+from gridpop.report.cartography import nice_length
 from gridpop.report.plots import (
     ACTION_STYLE,
     HABITAT,
@@ -41,7 +42,6 @@ from gridpop.report.plots import (
     ledger_figure,
     ledger_means,
     map_figure,
-    nice_length,
     plan_cells,
     plot_compare,
     plot_run,

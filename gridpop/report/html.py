@@ -27,7 +27,8 @@ from ..config import ARRAY_SECTIONS, SECTIONS
 from ..errors import InputDataError
 from ..io.results import whole_file
 from .assumptions import CAPACITY, CONNECTION, WALK_CAPACITY, assumptions, fmt
-from .plots import Plan, plot_compare, plot_run, read_plans, relative
+from .cartography import relative
+from .plots import Plan, plot_compare, plot_run, read_plans
 
 CAUTIONS = (
     "These results support decisions; they do not replace field data, the advice of the "

@@ -27,14 +27,12 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-import os
 import textwrap
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import affine
 import geopandas as gpd
 import matplotlib.patheffects as pe
 import numpy as np
@@ -49,7 +47,6 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 from matplotlib.ticker import MaxNLocator
-from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
 from ..actions import apply_actions
 from ..analysis.metrics import binomial_interval
@@ -57,6 +54,7 @@ from ..config import load_scenario
 from ..errors import GridpopError, InputDataError, RunStateError
 from ..io.results import LEDGER_FIELDS, whole_file
 from ..landscape import build_landscape
+from .cartography import MapLayer, add_scale_bar, axis_label, crs_label, read_band, relative
 from .stageplots import stage_figures
 
 OKABE_ITO = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000",
@@ -303,84 +301,6 @@ def ledger_figure(plans: list[Plan]) -> Figure:
     return fig
 
 
-def nice_length(width_m: float) -> float:
-    """Scale-bar length: the largest 1, 2 or 5 x 10^k metres not above a fifth of the width."""
-    target = width_m / 5.0
-    k = math.floor(math.log10(target))
-    return max(m * 10.0 ** k for m in (1, 2, 5) if m * 10.0 ** k <= target)
-
-
-def _length_label(metres: float) -> str:
-    return f"{metres / 1000:g} km" if metres >= 1000 else f"{metres:g} m"
-
-
-def add_scale_bar(ax, crs: pyproj.CRS, width_units: float) -> AnchoredSizeBar:
-    """A scale bar in the lower right of a map axis in the projected ``crs``."""
-    per_unit = crs.axis_info[0].unit_conversion_factor  # metres per CRS unit
-    metres = nice_length(width_units * per_unit)
-    bar = AnchoredSizeBar(ax.transData, metres / per_unit, _length_label(metres),
-                          loc="lower right", pad=0.4, borderpad=0.6, sep=4, frameon=True,
-                          size_vertical=width_units / 150, fontproperties={"size": 8})
-    bar.patch.set_alpha(0.8)
-    ax.add_artist(bar)
-    return bar
-
-
-def _axis_label(crs: pyproj.CRS, direction: str, fallback: str) -> str:
-    for a in crs.axis_info:
-        if a.direction.lower() == direction:
-            unit = "m" if a.unit_name == "metre" else a.unit_name
-            return f"{a.name} ({unit})"
-    return fallback
-
-
-def _crs_label(crs: pyproj.CRS) -> str:
-    """The CRS name, with its EPSG code when it has one."""
-    code = crs.to_epsg()
-    return f"{crs.name} (EPSG:{code})" if code else crs.name
-
-
-@dataclass(frozen=True, eq=False)
-class MapLayer:
-    """A raster band on the grid: values (nodata masked), extent, CRS, and optionally the study
-    area (True inside) and the habitat (True where capacity > 0), for telling study-area cells
-    without a value (masked) in habitat from those in the matrix."""
-
-    values: np.ma.MaskedArray
-    extent: tuple[float, float, float, float]
-    crs: pyproj.CRS
-    study: np.ndarray | None = None
-    habitat: np.ndarray | None = None
-
-    @property
-    def transform(self) -> affine.Affine:
-        left, right, bottom, top = self.extent
-        ny, nx = self.values.shape
-        return affine.Affine((right - left) / nx, 0.0, left, 0.0, -(top - bottom) / ny, top)
-
-
-def read_band(path: Path, band: int | None = None) -> MapLayer:
-    """One band of a GeoTIFF (default the last), nodata masked."""
-    if not path.is_file():
-        raise InputDataError(f"{path}: missing; the result folder is incomplete.")
-    with rasterio.open(path) as src:
-        values = src.read(band or src.count, masked=True)
-        return MapLayer(values, rasterio.plot.plotting_extent(src),
-                        pyproj.CRS.from_wkt(src.crs.to_wkt()))
-
-
-def relative(path, base: Path) -> str:
-    """``path`` as written relative to the folder ``base`` (with ``..`` where it lies outside),
-    or its file name when it cannot be (another drive)."""
-    path = Path(path)
-    if not path.is_absolute():
-        return path.as_posix()
-    try:
-        return Path(os.path.relpath(path, base)).as_posix()
-    except ValueError:
-        return path.name
-
-
 @dataclass(frozen=True, eq=False)
 class PlanCells:
     """A plan's landscape rebuilt on the run's grid: the habitat (capacity > 0, no disturbance)
@@ -548,8 +468,8 @@ def map_figure(panels: list[tuple[str, MapLayer, list]], *, cmap: str, vmin: flo
         ax.tick_params(labelsize=7)
         ax.xaxis.set_major_locator(MaxNLocator(4))
         ax.yaxis.set_major_locator(MaxNLocator(5))
-        ax.set_xlabel(_axis_label(crs, "east", "x"), fontsize=8)
-        ax.set_ylabel(_axis_label(crs, "north", "y"), fontsize=8)
+        ax.set_xlabel(axis_label(crs, "east", "x"), fontsize=8)
+        ax.set_ylabel(axis_label(crs, "north", "y"), fontsize=8)
         add_scale_bar(ax, crs, layer.extent[1] - layer.extent[0])
     for ax in axes[len(panels):]:
         ax.set_visible(False)
@@ -570,7 +490,7 @@ def map_figure(panels: list[tuple[str, MapLayer, list]], *, cmap: str, vmin: flo
                    fontsize="small", facecolor="#BFBFBF", framealpha=1.0,
                    title=textwrap.fill(note, int(fig_width * 13)) or None,
                    title_fontsize="small")
-    fig.suptitle(f"{title}\ngrid CRS: {_crs_label(crs)}", fontsize=11)
+    fig.suptitle(f"{title}\ngrid CRS: {crs_label(crs)}", fontsize=11)
     return fig
 
 
