@@ -170,20 +170,24 @@ def _initial(scenario, grid: Grid, k: np.ndarray) -> tuple[np.ndarray, str]:
     return init.fraction_of_capacity * k, f"initial: {init.fraction_of_capacity:g} x K"
 
 
-def build_landscape(scenario, *, stochastic: bool) -> Landscape:
-    """Build the grid, capacity, patches and initial abundance of a scenario.
+@dataclass(frozen=True, eq=False)
+class Habitat:
+    """The grid and the suitability aligned to it (NaN outside the study area), with notes."""
 
-    Parameters
-    ----------
-    scenario : gridpop.config.Scenario
-    stochastic : bool
-        Round the initial abundance to whole individuals.
+    grid: Grid
+    mask: np.ndarray
+    suitability: np.ndarray
+    notes: tuple[str, ...]
+
+
+def read_habitat(scenario) -> Habitat:
+    """Read the template and the suitability of a scenario and align them (the file part of
+    :func:`build_landscape`, which scenarios that differ only in numbers can share).
 
     Raises
     ------
     InputDataError
-        Any problem with the template, suitability or initial layers (see :func:`load_grid`,
-        :func:`align_raster`, :func:`read_points`), or suitability outside 0..1.
+        See :func:`build_landscape`.
     """
     hab = scenario.habitat
     if scenario.grid.template == hab.suitability:
@@ -205,6 +209,31 @@ def build_landscape(scenario, *, stochastic: bool) -> Landscape:
             "values must lie "
             f"in 0..1 (nodata or NaN outside the study area); found min {lo:g}, max {hi:g}.")
     suit = np.where(mask, np.clip(suit, 0.0, 1.0), np.nan)
+    return Habitat(grid, mask, suit, tuple(notes))
+
+
+def build_landscape(scenario, *, stochastic: bool, habitat: Habitat | None = None) -> Landscape:
+    """Build the grid, capacity, patches and initial abundance of a scenario.
+
+    Parameters
+    ----------
+    scenario : gridpop.config.Scenario
+    stochastic : bool
+        Round the initial abundance to whole individuals.
+    habitat : Habitat, optional
+        The scenario's template and suitability as read by :func:`read_habitat` (read here when
+        not given).
+
+    Raises
+    ------
+    InputDataError
+        Any problem with the template, suitability or initial layers (see :func:`load_grid`,
+        :func:`align_raster`, :func:`read_points`), or suitability outside 0..1.
+    """
+    hab = scenario.habitat
+    if habitat is None:
+        habitat = read_habitat(scenario)
+    grid, mask, suit, notes = habitat.grid, habitat.mask, habitat.suitability, list(habitat.notes)
 
     k = capacity(suit, capacity_per_ha=hab.capacity_per_ha, cell_area_ha=grid.cell_area_ha,
                  response=hab.response, threshold=hab.threshold, exponent=hab.exponent)

@@ -29,6 +29,7 @@ from .kinds import (
     RestorationConfig,
 )
 from .load import Scenario, load_scenario
+from .parameters import apply_parameters, check_parameters
 from .schema import REQUIRED, Key
 from .sections import (
     DISPERSAL_METHODS,
@@ -54,15 +55,27 @@ from .sections import (
     RiskConfig,
     RunConfig,
 )
+from .uncertainty import (
+    DESIGNS,
+    DISTRIBUTIONS,
+    Design,
+    Distribution,
+    ParameterRange,
+    UncertaintyConfig,
+    parse_uncertainty,
+)
 
 __all__ = [
-    "ACTION_KINDS", "ARRAY_SECTIONS", "DISPERSAL_METHODS", "DISTURBANCE_KINDS", "EDGES",
+    "ACTION_KINDS", "ARRAY_SECTIONS", "DESIGNS", "DISPERSAL_METHODS", "DISTRIBUTIONS",
+    "DISTURBANCE_KINDS", "EDGES",
     "FIRE_SIZES", "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED",
     "RESPONSES", "SECTIONS",
-    "ActionConfig", "BarrierConfig", "CorridorConfig", "DispersalConfig", "DispersalMethod",
+    "ActionConfig", "BarrierConfig", "CorridorConfig", "Design", "DispersalConfig",
+    "DispersalMethod", "Distribution", "ParameterRange", "UncertaintyConfig",
     "DisturbanceConfig", "Edge", "FireConfig", "FireSize", "FloodConfig", "GridConfig",
     "GrowthConfig", "GrowthModel", "HabitatConfig", "HabitatLossConfig", "InitialConfig", "Kernel",
     "Key", "OutputConfig", "OutputRaster", "PlanConfig", "Recovery", "ReserveConfig",
     "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario",
-    "load_scenario", "reference_markdown", "template_toml",
+    "apply_parameters", "check_parameters", "load_scenario", "parse_uncertainty",
+    "reference_markdown", "template_toml",
 ]
