@@ -10,8 +10,9 @@
 - :func:`prcc`: partial rank correlation coefficients with bootstrap intervals (Marino et al.
   2008); :func:`sobol_indices` and :func:`morris_indices`: SALib's analyses.
 - :func:`pairwise_ranking`: for each ordered pair of plans, the fraction of parameter sets in
-  which the first has the lower risk (a tie counts half) with a Wilson score interval, and the
-  one-split rule (:func:`one_split`) that best predicts which plan wins.
+  which the first has the lower risk (a tie counts half) with a Wilson score interval (its
+  lower end counting ties as losses, its upper end as wins), and the one-split rule
+  (:func:`one_split`) that best predicts which plan wins.
 
 References
 ----------
@@ -38,6 +39,7 @@ from scipy import stats
 from scipy.stats import qmc
 
 from ..config import ParameterRange, UncertaintyConfig
+from .metrics import binomial_interval
 
 MORRIS_LEVELS = 4
 N_BOOT = 1000
@@ -197,15 +199,6 @@ def sensitivity_rows(design: Design, plan: str, output: str, y: np.ndarray, *,
     return rows
 
 
-def wilson_interval(p: float, n: int, confidence: float = 0.95) -> tuple[float, float]:
-    """Wilson score interval of a proportion ``p`` observed in ``n`` trials (Wilson 1927)."""
-    z = float(stats.norm.ppf(0.5 + confidence / 2))
-    den = 1 + z * z / n
-    centre = (p + z * z / (2 * n)) / den
-    half = z / den * math.sqrt(max(p * (1 - p), 0.0) / n + z * z / (4 * n * n))
-    return max(0.0, centre - half), min(1.0, centre + half)
-
-
 @dataclass(frozen=True)
 class Split:
     """A one-split rule: sets with ``parameter <= threshold`` against the others; the mean
@@ -253,7 +246,9 @@ RANKING_COLUMNS = ("first", "second", "sets", "first_better", "first_better_lo",
 def pairwise_ranking(design: Design, risk: dict[str, np.ndarray], *,
                      confidence: float = 0.95) -> list[dict]:
     """Rows of ranking.csv: for each ordered pair of plans, the fraction of parameter sets in
-    which the first has the lower risk (a tie counts half), its Wilson interval, the number of
+    which the first has the lower risk (a tie counts half), its Wilson interval (lower end with
+    the ties counted as losses, upper end as wins: it covers every way of breaking them), the
+    number of
     ties and the one-split rule that best predicts the winner (:func:`one_split`; empty when one
     plan wins everywhere)."""
     rows = []
@@ -261,13 +256,15 @@ def pairwise_ranking(design: Design, risk: dict[str, np.ndarray], *,
         for b, rb in risk.items():
             if a == b:
                 continue
+            wins, ties = int((ra < rb).sum()), int((ra == rb).sum())
             score = (ra < rb) + 0.5 * (ra == rb)
             p = float(score.mean())
-            lo, hi = wilson_interval(p, design.n, confidence)
+            lo, _ = binomial_interval(wins, design.n, confidence)
+            _, hi = binomial_interval(wins + ties, design.n, confidence)
             rule = one_split(design.values, design.names, score)
             rows.append({
                 "first": a, "second": b, "sets": design.n, "first_better": p,
-                "first_better_lo": lo, "first_better_hi": hi, "ties": int((ra == rb).sum()),
+                "first_better_lo": lo, "first_better_hi": hi, "ties": ties,
                 "flip_parameter": rule.parameter if rule else None,
                 "flip_threshold": rule.threshold if rule else None,
                 "first_better_below": rule.below if rule else None,

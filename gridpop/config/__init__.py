@@ -29,7 +29,7 @@ from .kinds import (
     RestorationConfig,
 )
 from .load import Scenario, load_scenario
-from .parameters import apply_parameters, check_parameters
+from .parameters import apply_parameters, check_parameters, load_study
 from .schema import REQUIRED, Key
 from .sections import (
     DISPERSAL_METHODS,
@@ -76,6 +76,6 @@ __all__ = [
     "GrowthConfig", "GrowthModel", "HabitatConfig", "HabitatLossConfig", "InitialConfig", "Kernel",
     "Key", "OutputConfig", "OutputRaster", "PlanConfig", "Recovery", "ReserveConfig",
     "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario",
-    "apply_parameters", "check_parameters", "load_scenario", "parse_uncertainty",
+    "apply_parameters", "check_parameters", "load_scenario", "load_study", "parse_uncertainty",
     "reference_markdown", "template_toml",
 ]

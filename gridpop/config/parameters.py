@@ -4,15 +4,23 @@ a plan with one set of values (:func:`apply_parameters`), validated as when load
 from __future__ import annotations
 
 import dataclasses
+import tomllib
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from ..errors import ScenarioError, where
 from .kinds import ARRAY_SECTIONS
-from .load import KIND_CHECKS, Scenario, cross_checks
+from .load import KIND_CHECKS, Scenario, cross_checks, load_scenario
 from .schema import Key
 from .sections import SECTIONS
-from .uncertainty import PARAMETERS, UNCERTAIN_SECTIONS, UncertaintyConfig
+from .uncertainty import (
+    PARAMETERS,
+    SECTION,
+    UNCERTAIN_SECTIONS,
+    UncertaintyConfig,
+    parse_uncertainty,
+)
 from .values import check_value
 
 
@@ -45,7 +53,7 @@ def _targets(scenario: Scenario, name: str) -> tuple[list[Target], str | None]:
             i = int(which) - 1
             if not 0 <= i < len(tables):
                 return [], f"the plan has {len(tables)} [[{array}]] tables, no number {which}"
-            idx = (i,)
+            idx: tuple[int, ...] = (i,)
         elif which in kinds:
             idx = tuple(i for i, t in enumerate(tables) if t.kind == which)
             if not idx:
@@ -111,7 +119,7 @@ def apply_parameters(scenario: Scenario, values: dict[str, float]) -> Scenario:
                 scenario = scenario.replace(t.section, **{t.key.name: value})
                 continue
             attr = "actions" if t.section == "action" else "disturbances"
-            tables = list(getattr(scenario, attr))
+            tables: list[Any] = list(getattr(scenario, attr))
             for i in t.tables:
                 old = tables[i]
                 new = dataclasses.replace(old, **{t.key.name: check_value(
@@ -119,5 +127,51 @@ def apply_parameters(scenario: Scenario, values: dict[str, float]) -> Scenario:
                 if new.kind in KIND_CHECKS:
                     KIND_CHECKS[new.kind](scenario.path, new)
                 tables[i] = new
-            scenario = dataclasses.replace(scenario, **{attr: tuple(tables)})
+            changed: dict[str, Any] = {attr: tuple(tables)}
+            scenario = dataclasses.replace(scenario, **changed)
     return cross_checks(scenario.path, scenario)
+
+
+def load_study(paths) -> tuple[list[Scenario], UncertaintyConfig, Path]:
+    """The plans and the ``[uncertainty]`` section of ``gridpop sensitivity A.toml [B.toml ...]``.
+
+    A file whose only section is ``[uncertainty]`` gives the design and is not a plan; a plan
+    file may hold the section too. Every ``[uncertainty]`` given must be the same (the design
+    is drawn once for all plans). Returns the plans, the section and the first file that holds
+    it; the parameters are checked against the plans (:func:`check_parameters`).
+
+    Raises
+    ------
+    ScenarioError
+        No plan, no ``[uncertainty]`` section, two different ones, or any error of loading a
+        plan or checking a parameter.
+    """
+    plans, found = [], []
+    for path in paths:
+        file = Path(path).expanduser().resolve()
+        try:
+            raw = tomllib.loads(file.read_text(encoding="utf-8")) if file.is_file() else None
+        except (tomllib.TOMLDecodeError, UnicodeDecodeError):
+            raw = None  # load_scenario says what is wrong
+        if raw is not None and list(raw) == [SECTION]:
+            found.append((file, parse_uncertainty(file, raw[SECTION])))
+            continue
+        s = load_scenario(file)
+        plans.append(s)
+        if s.uncertainty is not None:
+            found.append((file, s.uncertainty))
+    if not plans:
+        raise ScenarioError(f"{', '.join(map(str, paths))}: no plan among the files (a file "
+                            f"holding only [{SECTION}] is the design, not a plan).")
+    if not found:
+        raise ScenarioError(f"{', '.join(str(s.path) for s in plans)}: no [{SECTION}] section; "
+                            "give the uncertain parameters in one of the files (docs/scenario.md"
+                            f", [{SECTION}]).")
+    (file, u), *others = found
+    for other, v in others:
+        if v != u:
+            raise ScenarioError(f"{file} and {other}: the [{SECTION}] sections differ; the "
+                                "design is drawn once for every plan, so give it once or the "
+                                "same in each file.")
+    check_parameters(file, u, plans)
+    return plans, u, file
