@@ -144,8 +144,12 @@ def _parameter(file, name: str, spec: object) -> ParameterRange:
                        and math.isfinite(v) for v in args)):
         raise ScenarioError(bad)
     a = tuple(float(v) for v in args)
-    ok = {"uniform": a[0] < a[-1], "triangular": a[0] <= a[1] <= a[2] and a[0] < a[2],
-          "lognormal": a[0] > 0 and a[-1] > 0}[dist]
+    if dist == "uniform":
+        ok = a[0] < a[1]
+    elif dist == "triangular":
+        ok = a[0] <= a[1] <= a[2] and a[0] < a[2]
+    else:
+        ok = a[0] > 0 and a[1] > 0
     if not ok:
         raise ScenarioError(bad)
     return ParameterRange(name, dist, a)

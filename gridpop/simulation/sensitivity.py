@@ -140,7 +140,8 @@ def _prepare(scenarios: list[Scenario], replicates: int | None, years: int | Non
     plans = []
     for s in scenarios:
         over = {k: v for k, v in (("replicates", replicates), ("years", years)) if v is not None}
-        plans.append(s.replace("run", **over) if over else s)
+        s = s.replace("run", **over) if over else s
+        plans.append(s.replace("output", rasters=["occupancy"]))  # as compare wants them
     notes: list[str] = []
     if len(plans) > 1:
         plans, notes = prepare_plans(plans)
