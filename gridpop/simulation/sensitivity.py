@@ -54,6 +54,7 @@ from ..errors import RunStateError
 from ..io.results import check_output, prepare_output, publish, working_folder, write_json
 from ..landscape import Habitat, build_landscape, read_habitat
 from .batches import batch_folder, run_batch
+from .distributed import check_execution
 from .model import build_model
 from .results import write_results
 
@@ -264,11 +265,7 @@ def sensitivity(scenarios: list[Scenario], uncertainty: UncertaintyConfig, out_d
     from tqdm import tqdm
 
     out_dir = Path(out_dir)
-    if workers is not None and scheduler is not None:
-        raise RunStateError("--workers and --scheduler exclude each other: --workers starts a "
-                            "cluster on this machine, --scheduler uses a running one.")
-    if workers is not None and workers < 1:
-        raise RunStateError(f"--workers {workers}: must be 1 or more.")
+    check_execution(workers, scheduler)
     check_output(out_dir, overwrite=overwrite)
     plans, notes = _prepare(list(scenarios), replicates, years)
     first = plans[0]
