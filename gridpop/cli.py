@@ -86,7 +86,8 @@ def cmd_sensitivity(args) -> int:
     if not args.quiet:
         from .report.sensitivity import ranking_sentences, read_csv
 
-        for line in ranking_sentences(read_csv(out / "ranking.csv")):
+        for line in ranking_sentences(read_csv(out / "ranking.csv"),
+                                      [s.path.stem for s in plans]):
             print(line)
         print(f"results written to {out}")
     return 0

@@ -184,10 +184,13 @@ def _fmt(v: str, digits: int = 3) -> str:
     return "-" if not np.isfinite(x) else f"{x:.{digits}g}"
 
 
-def ranking_sentences(ranking: list[dict]) -> list[str]:
-    """One sentence per row of ranking.csv."""
+def ranking_sentences(ranking: list[dict], plans: list[str]) -> list[str]:
+    """One sentence per pair of plans (rows of ranking.csv whose first plan comes first in
+    ``plans``)."""
     out = []
     for r in ranking:
+        if plans.index(r["first"]) > plans.index(r["second"]):
+            continue
         p = _num(r["first_better"])
         text = (f"{r['first']} has a lower risk than {r['second']} in {100 * p:.0f} % of the "
                 f"{r['sets']} parameter sets [{100 * _num(r['first_better_lo']):.0f}, "
@@ -222,9 +225,8 @@ def sensitivity_html(folder) -> str:
         raise InputDataError(f"{folder}: not a complete sensitivity folder.")
     figures = plot_sensitivity(folder, m)
     sens = read_csv(folder / "sensitivity.csv")
-    order = [p["name"] for p in m["plans"]]
-    ranking = [r for r in read_csv(folder / "ranking.csv")
-               if order.index(r["first"]) < order.index(r["second"])]
+    ranking = ranking_sentences(read_csv(folder / "ranking.csv"),
+                                [p["name"] for p in m["plans"]])
     params = _table(["parameter", "distribution", "arguments"],
                     [[p["name"], p["distribution"], ", ".join(f"{a:g}" for a in p["args"])]
                      for p in m["parameters"]])
@@ -238,9 +240,8 @@ def sensitivity_html(folder) -> str:
     sections = [
         ("Plans", plans),
         ("Design and uncertain parameters", f"<p>{_e(design)}</p>\n{params}"),
-        ("Is the ranking robust?", "<ul>" + "".join(f"<li>{_e(t)}</li>" for t in
-                                                   ranking_sentences(ranking)) + "</ul>"
-         if ranking else "<p>One plan: no ranking.</p>"),
+        ("Is the ranking robust?", "<ul>" + "".join(f"<li>{_e(t)}</li>" for t in ranking)
+         + "</ul>" if ranking else "<p>One plan: no ranking.</p>"),
         ("Which parameters drive the risk?",
          _table(["plan", "parameter", "index", "estimate", "interval"], sens_rows)
          + "<p>All outputs (expected minimum, final median, patches occupied, colonisation) "

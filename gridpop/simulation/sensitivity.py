@@ -6,7 +6,9 @@ runs with the first plan's ``[run] seed``, so within a set the plans share their
 (common random numbers, as in :mod:`gridpop.analysis.compare`) and the sets differ only in their
 parameters. The unit of work is one parameter set: its plans run one after the other in the
 same process (in-process, or in one Dask worker), each built from the template and suitability
-read once (:func:`gridpop.landscape.read_habitat`) and from the compiled kernels already loaded.
+read once (:func:`gridpop.landscape.read_habitat`) and from the compiled kernels already loaded;
+only the ledger is summarised (:func:`gridpop.analysis.summary.summarise`, without the
+metapopulation capacity): no stacks, maps or connectivity tables are written per set.
 A finished set writes its rows to ``sets/NNNNN.json`` in the working folder (written aside,
 then renamed: the checkpoint), so a killed run resumes from the sets in place and gives the
 same outputs. The output folder is published only when whole, with ``sensitivity.json``
@@ -48,7 +50,7 @@ from ..analysis.sensitivity import (
     pairwise_ranking,
     sensitivity_rows,
 )
-from ..analysis.summary import focus_census
+from ..analysis.summary import focus_census, summarise
 from ..config import Scenario, UncertaintyConfig, apply_parameters
 from ..errors import RunStateError
 from ..io.results import check_output, prepare_output, publish, working_folder, write_json
@@ -56,7 +58,6 @@ from ..landscape import Habitat, build_landscape, read_habitat
 from .batches import batch_folder, run_batch
 from .distributed import check_execution
 from .model import build_model
-from .results import write_results
 
 MANIFEST = "sensitivity.json"
 CHECKPOINT = "sensitivity_checkpoint.json"
@@ -111,14 +112,16 @@ def run_set(study: Study, index: int, work: Path) -> int:
         model = build_model(s, build_landscape(s, stochastic=s.growth.stochastic,
                                                habitat=habitat))
         tmp = Path(work) / "sets" / f"{index:05d}.{s.path.stem}.{uuid.uuid4().hex[:12]}.tmp"
-        parts = []
-        for b, reps in enumerate(model.plan.batches()):
-            run_batch(model, reps, batch_folder(tmp, b))
-            parts.append(batch_folder(tmp, b))
-        write_results(tmp, s, model, parts)
-        summary = json.loads((tmp / "summary.json").read_text())
+        parts = [batch_folder(tmp, b) for b in range(len(model.plan.batches()))]
+        for part, reps in zip(parts, model.plan.batches(), strict=True):
+            run_batch(model, reps, part)
+        ledger = np.concatenate([np.load(p / "ledger.npy") for p in parts], axis=0)
+        focus = (np.concatenate([np.load(p / "focus.npy") for p in parts], axis=0)
+                 if model.census.focus is not None else None)
+        summary = summarise(s, model, ledger, focus, capacity=False)
         rows.append({"set": index, "plan": s.path.stem,
-                     **outcome_columns(summary, study.focus)})
+                     **{k: None if v is None else float(v)
+                        for k, v in outcome_columns(summary, study.focus).items()}})
         shutil.rmtree(tmp)
     final = set_file(work, index)
     tmp_file = final.with_name(f"{final.name}.{uuid.uuid4().hex[:12]}.tmp")
