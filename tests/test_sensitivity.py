@@ -123,15 +123,22 @@ def test_designs_follow_the_distributions():
 def test_ranking_of_plans_whose_difference_does_not_depend_on_the_parameters():
     """When plan B's risk is plan A's plus a constant, A has the lower risk in every set: the
     fraction is 1 (and 0 the other way), the Wilson interval (Wilson 1927) reaches 1, and no
-    one-split rule can predict a flip."""
+    one-split rule can predict a flip. With the same risk everywhere, the expected minimum
+    decides; the same on both is a tie counted half."""
     params = (ParameterRange("growth.rate", "uniform", (0.1, 0.5)),
               ParameterRange("habitat.capacity_per_ha", "uniform", (10, 30)))
     d = draw_design(UncertaintyConfig(samples=40, seed=3, parameters=params))
     risk_a = 0.8 - d.values[:, 0]
-    ab, ba = pairwise_ranking(d, {"A": risk_a, "B": risk_a + 0.05})
+    low = 100 * d.values[:, 1]
+    ab, ba = pairwise_ranking(d, {"A": risk_a, "B": risk_a + 0.05}, {"A": low, "B": low})
     assert ab["first_better"] == 1.0 and ba["first_better"] == 0.0
     assert ab["first_better_hi"] == 1.0 and ab["first_better_lo"] > 0.9
-    assert ab["flip_parameter"] is None and ab["ties"] == 0
+    assert ab["flip_parameter"] is None and ab["ties"] == 0 and ab["same_risk"] == 0
+    ab, _ = pairwise_ranking(d, {"A": risk_a, "B": risk_a}, {"A": low + 1, "B": low})
+    assert ab["first_better"] == 1.0 and ab["same_risk"] == 40 and ab["ties"] == 0
+    ab, _ = pairwise_ranking(d, {"A": risk_a, "B": risk_a}, {"A": low, "B": low})
+    assert ab["first_better"] == 0.5 and ab["ties"] == 40
+    assert (ab["first_better_lo"], ab["first_better_hi"]) == (0.0, 1.0)
 
 
 def test_one_split_finds_the_threshold_where_the_ranking_flips():
@@ -233,7 +240,7 @@ def test_small_run_writes_every_table_and_the_report(make_scenario, tmp_path):
     assert main(["report", str(out)]) == 0
     text = (out / "report.html").read_text()
     assert "Caveats" in text and "data:image/png;base64," in text
-    assert "keep has a lower risk than lose in 100 %" in text
+    assert "keep is better than lose in 100 %" in text
 
 
 def _var_log_uniform(c: float, d: float) -> float:

@@ -10,8 +10,9 @@
 - :func:`prcc`: partial rank correlation coefficients with bootstrap intervals (Marino et al.
   2008); :func:`sobol_indices` and :func:`morris_indices`: SALib's analyses.
 - :func:`pairwise_ranking`: for each ordered pair of plans, the fraction of parameter sets in
-  which the first has the lower risk (a tie counts half) with a Wilson score interval (its
-  lower end counting ties as losses, its upper end as wins), and the one-split rule
+  which the first is better (lower risk; the same risk: higher expected minimum abundance; a
+  tie on both counts half) with a Wilson score interval (its lower end counting ties as
+  losses, its upper end as wins), and the one-split rule
   (:func:`one_split`) that best predicts which plan wins.
 
 References
@@ -239,32 +240,39 @@ def one_split(x: np.ndarray, names, score: np.ndarray) -> Split | None:
 
 
 RANKING_COLUMNS = ("first", "second", "sets", "first_better", "first_better_lo",
-                   "first_better_hi", "ties", "flip_parameter", "flip_threshold",
+                   "first_better_hi", "same_risk", "ties", "flip_parameter", "flip_threshold",
                    "first_better_below", "first_better_above", "rule_accuracy")
 
 
-def pairwise_ranking(design: Design, risk: dict[str, np.ndarray], *,
-                     confidence: float = 0.95) -> list[dict]:
+def pairwise_ranking(design: Design, risk: dict[str, np.ndarray],
+                     minimum: dict[str, np.ndarray], *, confidence: float = 0.95) -> list[dict]:
     """Rows of ranking.csv: for each ordered pair of plans, the fraction of parameter sets in
-    which the first has the lower risk (a tie counts half), its Wilson interval (lower end with
-    the ties counted as losses, upper end as wins: it covers every way of breaking them), the
-    number of
-    ties and the one-split rule that best predicts the winner (:func:`one_split`; empty when one
-    plan wins everywhere)."""
+    which the first is better, its Wilson interval (lower end with the ties counted as losses,
+    upper end as wins: it covers every way of breaking them), the sets with the same risk, the
+    ties, and the one-split rule that best predicts the winner (:func:`one_split`; empty when
+    one plan wins everywhere).
+
+    Better means a lower risk; with the same risk, a higher expected minimum abundance (the
+    order of :func:`gridpop.analysis.compare.rank`); the same on both is a tie and counts half.
+    """
     rows = []
     for a, ra in risk.items():
         for b, rb in risk.items():
             if a == b:
                 continue
-            wins, ties = int((ra < rb).sum()), int((ra == rb).sum())
-            score = (ra < rb) + 0.5 * (ra == rb)
-            p = float(score.mean())
+            ma, mb = minimum[a], minimum[b]
+            same = ra == rb
+            win = (ra < rb) | (same & (ma > mb))
+            tie = same & (ma == mb)
+            score = win + 0.5 * tie
+            wins, ties = int(win.sum()), int(tie.sum())
             lo, _ = binomial_interval(wins, design.n, confidence)
             _, hi = binomial_interval(wins + ties, design.n, confidence)
             rule = one_split(design.values, design.names, score)
             rows.append({
-                "first": a, "second": b, "sets": design.n, "first_better": p,
-                "first_better_lo": lo, "first_better_hi": hi, "ties": ties,
+                "first": a, "second": b, "sets": design.n, "first_better": float(score.mean()),
+                "first_better_lo": lo, "first_better_hi": hi, "same_risk": int(same.sum()),
+                "ties": ties,
                 "flip_parameter": rule.parameter if rule else None,
                 "flip_threshold": rule.threshold if rule else None,
                 "first_better_below": rule.below if rule else None,

@@ -3,7 +3,7 @@
 :func:`plot_sensitivity` draws into ``plots/``: ``tornado.png`` (the sensitivity of the risk to
 each parameter, per plan, with intervals), ``risk_by_parameter.png`` (each set's risk against
 each parameter, per plan, with a running median as smoother) and ``ranking_matrix.png`` (for
-each ordered pair of plans the fraction of sets in which the row plan has the lower risk).
+each ordered pair of plans the fraction of sets in which the row plan is better).
 :func:`write_sensitivity_report` writes the self-contained HTML report with the tables, the
 figures and the caveats.
 """
@@ -38,8 +38,9 @@ CAPTIONS = {
                "first-order index and the dark bar the total index.",
     "risk_by_parameter": "Risk of each parameter set against each parameter, one colour per "
                          "plan; the line is a running median over neighbouring sets.",
-    "ranking_matrix": "Fraction of parameter sets in which the row plan has a lower risk than "
-                      "the column plan (a tie counts half), with its interval.",
+    "ranking_matrix": "Fraction of parameter sets in which the row plan is better than the "
+                      "column plan (lower risk; the same risk: higher expected minimum "
+                      "abundance; a tie on both counts half), with its interval.",
 }
 
 
@@ -142,7 +143,7 @@ def ranking_figure(ranking: list[dict], manifest: dict) -> Figure:
     ax.set_xticks(range(n), plans, rotation=30, ha="right")
     ax.set_yticks(range(n), plans)
     ax.set_xlabel("second plan")
-    ax.set_ylabel("first plan (row) has the lower risk")
+    ax.set_ylabel("first plan (row) is better")
     fig.colorbar(im, ax=ax, label="fraction of parameter sets")
     return fig
 
@@ -192,9 +193,10 @@ def ranking_sentences(ranking: list[dict], plans: list[str]) -> list[str]:
         if plans.index(r["first"]) > plans.index(r["second"]):
             continue
         p = _num(r["first_better"])
-        text = (f"{r['first']} has a lower risk than {r['second']} in {100 * p:.0f} % of the "
+        text = (f"{r['first']} is better than {r['second']} in {100 * p:.0f} % of the "
                 f"{r['sets']} parameter sets [{100 * _num(r['first_better_lo']):.0f}, "
-                f"{100 * _num(r['first_better_hi']):.0f} %]")
+                f"{100 * _num(r['first_better_hi']):.0f} %]; the same risk in "
+                f"{r['same_risk']} sets, decided by the expected minimum")
         if r["flip_parameter"]:
             text += (f"; the best single predictor of the winner is {r['flip_parameter']}: "
                      f"at or below {_fmt(r['flip_threshold'], 4)} the first is better in "

@@ -20,8 +20,8 @@ same outputs. The output folder is published only when whole, with ``sensitivity
   occupied patches at the horizon, colonisation probability of each focus area;
 - ``sensitivity.csv``: per plan, output and parameter the sensitivity index and its interval
   (:func:`gridpop.analysis.sensitivity.sensitivity_rows`);
-- ``ranking.csv``: per ordered pair of plans the fraction of sets in which the first has the
-  lower risk, with the rule that best predicts a flip
+- ``ranking.csv``: per ordered pair of plans the fraction of sets in which the first is better
+  (lower risk, then higher expected minimum), with the rule that best predicts a flip
   (:func:`gridpop.analysis.sensitivity.pairwise_ranking`);
 - ``plots/``: the tornado chart, risk against each parameter and the ranking matrix.
 """
@@ -69,10 +69,10 @@ CAVEATS = (
     "Each set's outcomes are estimated from a finite number of replicates; with common random "
     "numbers across sets this noise is shared rather than independent, but it still blurs small "
     "indices and flips between plans of nearly equal risk.",
-    "The ranking fraction counts parameter sets, each drawn from the ranges given (a tie counts "
-    "half); it is a share of the plausible parameter space under those ranges, not a "
-    "probability that a plan is better in the field. Sobol and Morris designs are not simple "
-    "random samples, so their fractions and intervals are approximate.",
+    "The ranking fraction counts parameter sets, each drawn from the ranges given; it is a "
+    "share of the plausible parameter space under those ranges, not a probability that a plan "
+    "is better in the field. Sobol and Morris designs are not simple random samples, so their "
+    "fractions and intervals are approximate.",
     "The flip rule is a single threshold on one parameter, the best of all parameters and "
     "thresholds on these sets; it points to where the ranking changes, and other parameters "
     "may matter jointly.",
@@ -231,6 +231,7 @@ def _analyse(work: Path, study: Study, rows: list[dict], confidence: float, seed
                                         confidence=confidence, seed=seed)]
     _write_csv(work / "sensitivity.csv", SENSITIVITY_COLUMNS, sens)
     ranking = pairwise_ranking(design, {n: table[n]["risk"] for n in study.names},
+                               {n: table[n]["expected_minimum"] for n in study.names},
                                confidence=confidence)
     _write_csv(work / "ranking.csv", RANKING_COLUMNS, ranking)
     return ["samples.csv", "results.csv", "sensitivity.csv", "ranking.csv"]
@@ -327,7 +328,9 @@ def sensitivity(scenarios: list[Scenario], uncertainty: UncertaintyConfig, out_d
         "pairing": ("Every set of every plan runs with seed "
                     f"{first.run.seed}: within a set the plans share their random numbers, "
                     "and the sets differ only in their parameters."),
-        "ties": "In ranking.csv a set in which both plans have the same risk counts half.",
+        "ties": ("In ranking.csv a plan is better in a set when its risk is lower or, with the "
+                 "same risk, its expected minimum abundance is higher (as in compare); a set "
+                 "with both the same counts half."),
         "execution": {"mode": ("in-process" if client is None else "local cluster"
                                if workers is not None else "scheduler"),
                       "workers": workers, "resumed_sets": len(done)},
