@@ -103,6 +103,7 @@ def main() -> None:
         start = time.perf_counter()
         sensitivity(plans, u, folder / "sens", workers=2, plots=False)
         t_sens = time.perf_counter() - start
+        print(f"sensitivity: {t_sens:.1f} s", flush=True)
         t_sep, cpu_sep = separate_runs(folder, sets, years, reps)
     result = {"sets": sets, "plans": len(PLANS), "years": years, "replicates": reps,
               "sensitivity_workers_2_s": round(t_sens, 2),

@@ -1,8 +1,9 @@
 """Figures and the HTML report of a SENSITIVITY folder (``gridpop sensitivity``).
 
-:func:`plot_sensitivity` draws into ``plots/``: ``tornado.png`` (the sensitivity of the risk to
-each parameter, per plan, with intervals), ``risk_by_parameter.png`` (each set's risk against
-each parameter, per plan, with a running median as smoother) and ``ranking_matrix.png`` (for
+:func:`plot_sensitivity` draws into ``plots/``: ``tornado.png`` (the sensitivity of the risk and
+of the expected minimum abundance to each parameter, per plan, with intervals),
+``risk_by_parameter.png`` (each set's risk against each parameter, per plan, with a running
+median as smoother) and ``ranking_matrix.png`` (for
 each ordered pair of plans the fraction of sets in which the row plan is better).
 :func:`write_sensitivity_report` writes the self-contained HTML report with the tables, the
 figures and the caveats.
@@ -33,9 +34,10 @@ TORNADO_INDEX = {"latin-hypercube": "prcc", "sobol": "ST", "morris": "mu_star"}
 
 CAPTIONS = {
     "tornado": "Sensitivity of the risk (probability of falling below the quasi-extinction "
-               "threshold by the horizon) to each uncertain parameter, per plan, largest first; "
-               "whiskers: the interval of the index. For Sobol designs the pale bar is the "
-               "first-order index and the dark bar the total index.",
+               "threshold by the horizon, top) and of the expected minimum abundance (bottom) "
+               "to each uncertain parameter, per plan, largest first; whiskers: the interval "
+               "of the index. For Sobol designs the pale bar is the first-order index and the "
+               "dark bar the total index.",
     "risk_by_parameter": "Risk of each parameter set against each parameter, one colour per "
                          "plan; the line is a running median over neighbouring sets.",
     "ranking_matrix": "Fraction of parameter sets in which the row plan is better than the "
@@ -63,37 +65,45 @@ def running_median(x: np.ndarray, y: np.ndarray, window: int) -> tuple[np.ndarra
     return xs, med
 
 
+TORNADO_OUTPUTS = {"risk": "risk", "expected_minimum": "expected minimum"}
+
+
 def tornado_figure(sens: list[dict], manifest: dict) -> Figure:
+    """One panel per output (rows: risk, expected minimum) and plan (columns)."""
     index = TORNADO_INDEX[manifest["design"]]
     plans = [p["name"] for p in manifest["plans"]]
-    fig = Figure(figsize=(5.0 * len(plans), 0.5 * len(manifest["parameters"]) + 1.8),
+    fig = Figure(figsize=(5.0 * len(plans), 2 * (0.45 * len(manifest["parameters"]) + 1.4)),
                  layout="constrained")
-    axes = fig.subplots(1, len(plans), squeeze=False, sharex=True)[0]
-    for ax, plan in zip(axes, plans, strict=True):
-        rows = {r["parameter"]: r for r in sens if r["plan"] == plan and r["output"] == "risk"
-                and r["index"] == index}
-        first = {r["parameter"]: r for r in sens if r["plan"] == plan and r["output"] == "risk"
-                 and r["index"] == "S1"}
-        names = sorted(rows, key=lambda n: abs(_num(rows[n]["estimate"])))
-        y = np.arange(len(names))
-        est = np.array([_num(rows[n]["estimate"]) for n in names])
-        lo = np.array([_num(rows[n]["lo"]) for n in names])
-        hi = np.array([_num(rows[n]["hi"]) for n in names])
-        ax.barh(y, np.nan_to_num(est), color=OKABE_ITO[0], height=0.6)
-        if first:
-            ax.barh(y, [np.nan_to_num(_num(first[n]["estimate"])) for n in names],
-                    color="#9ecae1", height=0.35)
-        ok = np.isfinite(lo) & np.isfinite(hi)
-        ax.errorbar(np.nan_to_num(est)[ok], y[ok], xerr=[est[ok] - lo[ok], hi[ok] - est[ok]],
-                    fmt="none", ecolor="black", capsize=3, lw=1)
-        ax.axvline(0, color="grey", lw=0.8)
-        ax.set_yticks(y, names)
-        ax.set_title(plan)
-        ax.set_xlabel(INDEX_LABEL[index] + " of the risk")
-        if not rows or not np.isfinite(est).any():
-            ax.text(0.5, 0.5, "risk does not vary over the sets", transform=ax.transAxes,
-                    ha="center", va="center")
+    axes = fig.subplots(len(TORNADO_OUTPUTS), len(plans), squeeze=False, sharex="row")
+    for row, (output, label) in zip(axes, TORNADO_OUTPUTS.items(), strict=True):
+        for ax, plan in zip(row, plans, strict=True):
+            _tornado(ax, [r for r in sens if r["plan"] == plan and r["output"] == output],
+                     index)
+            ax.set_title(f"{plan}: {label}")
+            ax.set_xlabel(INDEX_LABEL[index])
     return fig
+
+
+def _tornado(ax, rows: list[dict], index: str) -> None:
+    main = {r["parameter"]: r for r in rows if r["index"] == index}
+    first = {r["parameter"]: r for r in rows if r["index"] == "S1"}
+    names = sorted(main, key=lambda n: abs(np.nan_to_num(_num(main[n]["estimate"]))))
+    y = np.arange(len(names))
+    est = np.array([_num(main[n]["estimate"]) for n in names])
+    lo = np.array([_num(main[n]["lo"]) for n in names])
+    hi = np.array([_num(main[n]["hi"]) for n in names])
+    ax.barh(y, np.nan_to_num(est), color=OKABE_ITO[0], height=0.6)
+    if first and index == "ST":
+        ax.barh(y, [np.nan_to_num(_num(first[n]["estimate"])) for n in names],
+                color="#9ecae1", height=0.35)
+    ok = np.isfinite(lo) & np.isfinite(hi) & np.isfinite(est)
+    ax.errorbar(est[ok], y[ok], xerr=[est[ok] - lo[ok], hi[ok] - est[ok]], fmt="none",
+                ecolor="black", capsize=3, lw=1)
+    ax.axvline(0, color="grey", lw=0.8)
+    ax.set_yticks(y, names)
+    if not np.isfinite(est).any():
+        ax.text(0.5, 0.5, "does not vary over the sets", transform=ax.transAxes,
+                ha="center", va="center")
 
 
 def risk_by_parameter_figure(samples: list[dict], results: list[dict], manifest: dict
