@@ -71,8 +71,30 @@ def cmd_compare(args) -> int:
     return 0
 
 
+def cmd_sensitivity(args) -> int:
+    from .config import load_study
+    from .simulation.sensitivity import sensitivity
+
+    plans, uncertainty, _ = load_study(args.scenarios)
+    show = not args.quiet and sys.stderr.isatty()
+    out = sensitivity(plans, uncertainty, args.out, overwrite=args.overwrite, progress=show,
+                      workers=args.workers, scheduler=args.scheduler, resume=args.resume,
+                      replicates=args.replicates, years=args.years)
+    if not args.quiet:
+        from .report.sensitivity import ranking_sentences, read_csv
+
+        for line in ranking_sentences(read_csv(out / "ranking.csv"),
+                                      [s.path.stem for s in plans]):
+            print(line)
+        print(f"results written to {out}")
+    return 0
+
+
 def cmd_report(args) -> int:
-    from .report.html import write_report
+    if (Path(args.dir) / "sensitivity.json").is_file():
+        from .report.sensitivity import write_sensitivity_report as write_report
+    else:
+        from .report.html import write_report
 
     print(f"report written to {write_report(args.dir, args.out)}")
     return 0
@@ -142,9 +164,27 @@ def parser() -> argparse.ArgumentParser:
                      "the same --out, keeping its finished plans and batches")
     p.set_defaults(func=cmd_compare)
 
-    p = sub.add_parser("report", help="write a self-contained HTML report of a run or "
-                       "compare folder")
-    p.add_argument("dir", metavar="RUN_OR_COMPARE_DIR")
+    p = sub.add_parser("sensitivity", help="run plans under the parameter sets of an "
+                       "[uncertainty] design; sensitivity indices and ranking robustness")
+    p.add_argument("scenarios", nargs="+", metavar="SCENARIO",
+                   help="plan files; [uncertainty] in one of them or in a file of its own")
+    p.add_argument("--out", required=True, help="output folder")
+    p.add_argument("--years", type=int, help="override [run] years")
+    p.add_argument("--replicates", type=int, help="override [run] replicates")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
+    p.add_argument("--workers", type=int, metavar="N", help="run parameter sets on a local "
+                   "Dask cluster of N worker processes (default: in this process)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="run parameter sets on the Dask "
+                   "cluster at ADDRESS; the output folder must be on a filesystem its workers "
+                   "share")
+    p.add_argument("--resume", action="store_true", help="continue an interrupted analysis "
+                   "into the same --out, keeping its finished parameter sets")
+    p.set_defaults(func=cmd_sensitivity)
+
+    p = sub.add_parser("report", help="write a self-contained HTML report of a run, compare "
+                       "or sensitivity folder")
+    p.add_argument("dir", metavar="RESULT_DIR")
     p.add_argument("--out", metavar="FILE", help="report file (default DIR/report.html)")
     p.set_defaults(func=cmd_report)
 

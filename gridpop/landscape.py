@@ -242,20 +242,24 @@ def _initial(scenario, grid: Grid, k: np.ndarray) -> tuple[np.ndarray, str]:
     return init.fraction_of_capacity * k, f"initial: {init.fraction_of_capacity:g} x K"
 
 
-def build_landscape(scenario, *, stochastic: bool) -> Landscape:
-    """Build the grid, capacity, patches and initial abundance of a scenario.
+@dataclass(frozen=True, eq=False)
+class Habitat:
+    """The grid and the suitability aligned to it (NaN outside the study area), with notes."""
 
-    Parameters
-    ----------
-    scenario : gridpop.config.Scenario
-    stochastic : bool
-        Round the initial abundance to whole individuals.
+    grid: Grid
+    mask: np.ndarray
+    suitability: np.ndarray
+    notes: tuple[str, ...]
+
+
+def read_habitat(scenario) -> Habitat:
+    """Read the template and the suitability of a scenario and align them (the file part of
+    :func:`build_landscape`, which scenarios that differ only in numbers can share).
 
     Raises
     ------
     InputDataError
-        Any problem with the template, suitability or initial layers (see :func:`load_grid`,
-        :func:`align_raster`, :func:`read_points`), or suitability outside 0..1.
+        See :func:`build_landscape`.
     """
     hab = scenario.habitat
     if scenario.grid.template == hab.suitability:
@@ -271,6 +275,31 @@ def build_landscape(scenario, *, stochastic: bool) -> Landscape:
     mask = np.isfinite(layer.data)
     suit = _in_range(layer.data, mask,
                      where_layer(scenario.path, 'habitat', 'suitability', hab.suitability))
+    return Habitat(grid, mask, suit, tuple(notes))
+
+
+def build_landscape(scenario, *, stochastic: bool, habitat: Habitat | None = None) -> Landscape:
+    """Build the grid, capacity, patches and initial abundance of a scenario.
+
+    Parameters
+    ----------
+    scenario : gridpop.config.Scenario
+    stochastic : bool
+        Round the initial abundance to whole individuals.
+    habitat : Habitat, optional
+        The scenario's template and suitability as read by :func:`read_habitat` (read here when
+        not given).
+
+    Raises
+    ------
+    InputDataError
+        Any problem with the template, suitability or initial layers (see :func:`load_grid`,
+        :func:`align_raster`, :func:`read_points`), or suitability outside 0..1.
+    """
+    hab = scenario.habitat
+    if habitat is None:
+        habitat = read_habitat(scenario)
+    grid, mask, suit, notes = habitat.grid, habitat.mask, habitat.suitability, list(habitat.notes)
     timeline, future_notes = _timeline(scenario, grid, suit, mask)
     notes += future_notes
 

@@ -56,9 +56,14 @@ def test_data_regenerate_byte_identical(tmp_path, gen):
 
 def test_every_demo_scenario_passes_check(capsys):
     """`gridpop check` exits 0 on the base case and every plan and reads the 160 x 120 grid of
-    50 m cells."""
-    paths = sorted(DEMO.glob("*.toml"))
+    50 m cells; uncertainty.toml (only [uncertainty]: the design of gridpop sensitivity) is a
+    valid design for every plan."""
+    from gridpop.config import load_study
+
+    paths = sorted(p for p in DEMO.glob("*.toml") if p.stem != "uncertainty")
     assert {p.stem for p in paths} == {"base", *PLANS}
+    plans, design, _ = load_study([DEMO / "uncertainty.toml", *paths])
+    assert len(plans) == len(paths) and design.samples == 32
     for path in paths:
         assert cli_main(["check", str(path)]) == 0, path.name
         out = capsys.readouterr().out

@@ -148,26 +148,34 @@ def _difference(d: dict) -> tuple[float, float, float]:
     return d["mean_difference"], d["lo"], d["hi"]
 
 
+def outcome_columns(summary: dict, focus_names) -> dict:
+    """A plan's outcomes from its summary.json: risk at the horizon, expected minimum abundance,
+    final median abundance, occupied patches and colonisation of each focus area (None where
+    the plan has no such focus area); shared by the comparison and the sensitivity analysis."""
+    out = {"risk": summary["risk"]["ever_below"][-1],
+           "expected_minimum": summary["expected_minimum"]["estimate"],
+           "final_median": summary["final_abundance"]["p50"],
+           "patches_occupied": summary["occupied_patches"]["mean"][-1]}
+    for t in focus_names:
+        col = summary["colonisation"].get(t)
+        out[f"colonisation_{t}"] = col["probability"][-1] if col else None
+    return out
+
+
 def _row(name, run_dir, summary, diffs, focus_names) -> dict:
     risk, em = summary["risk"], summary["expected_minimum"]
     cap = summary["metapopulation_capacity"]
     row = {"plan": name, "description": summary["plan"]["description"],
-           "risk": risk["ever_below"][-1], "risk_lo": risk["ever_below_lo"][-1],
-           "risk_hi": risk["ever_below_hi"][-1]}
+           **outcome_columns(summary, focus_names),
+           "risk_lo": risk["ever_below_lo"][-1], "risk_hi": risk["ever_below_hi"][-1]}
     row["risk_difference"], row["risk_difference_lo"], row["risk_difference_hi"] = (
         _difference(diffs["quasi_extinct"]))
     row["risk_mcnemar_p"] = diffs["quasi_extinct"]["mcnemar_p"]
-    row.update(expected_minimum=em["estimate"], expected_minimum_lo=em["lo"],
-               expected_minimum_hi=em["hi"])
+    row.update(expected_minimum_lo=em["lo"], expected_minimum_hi=em["hi"])
     (row["expected_minimum_difference"], row["expected_minimum_difference_lo"],
      row["expected_minimum_difference_hi"]) = _difference(diffs["minimum"])
-    row["final_median"] = summary["final_abundance"]["p50"]
     row["final_difference"], row["final_difference_lo"], row["final_difference_hi"] = (
         _difference(diffs["final"]))
-    row["patches_occupied"] = summary["occupied_patches"]["mean"][-1]
-    for t in focus_names:
-        col = summary["colonisation"].get(t)
-        row[f"colonisation_{t}"] = col["probability"][-1] if col else None
     row["metapopulation_capacity"] = cap["lambda_M"] if cap else None
     row["folder"] = str(run_dir)
     return row

@@ -200,8 +200,10 @@ def plan(scenario) -> dict:
                         for c in scenario.actions]}
 
 
-def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray | None) -> dict:
-    """The content of summary.json.
+def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray | None, *,
+              capacity: bool = True) -> dict:
+    """The content of summary.json (without the metapopulation capacity when ``capacity`` is
+    false: with the walk method it needs the expected walk from every patch).
 
     Parameters
     ----------
@@ -237,7 +239,8 @@ def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray |
             out["colonisation"][name] = {"year": list(range(steps)), "probability": col[:, q]}
         out["focus_areas"] = {"file": str(risk.focus_areas), "name_field": risk.focus_name_field,
                           "names": list(names)}
-    out.update(metapopulation_capacity=_capacity(scenario, model, out["notes"]),
+    out.update(metapopulation_capacity=_capacity(scenario, model, out["notes"]) if capacity
+               else None,
                parameters=parameters(scenario), plan=plan(scenario), cautions=CAUTIONS)
     return out
 

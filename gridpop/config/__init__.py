@@ -29,6 +29,7 @@ from .kinds import (
     RestorationConfig,
 )
 from .load import Scenario, load_scenario
+from .parameters import apply_parameters, check_parameters, load_study
 from .schema import REQUIRED, Key, Trend
 from .sections import (
     CHANGES,
@@ -66,17 +67,28 @@ from .sections import (
     StagesConfig,
     Survivorship,
 )
+from .uncertainty import (
+    DESIGNS,
+    DISTRIBUTIONS,
+    Design,
+    Distribution,
+    ParameterRange,
+    UncertaintyConfig,
+    parse_uncertainty,
+)
 
 __all__ = [
-    "ACTION_KINDS", "ARRAY_SECTIONS", "CHANGES", "DENSITY_ACTS_ON", "DISPERSAL_METHODS",
-    "DISTURBANCE_KINDS", "EDGES", "FIRE_SIZES", "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS",
-    "RECOVERY", "REQUIRED", "RESPONSES", "SECTIONS", "SEX_SYSTEMS", "SURVIVORSHIPS",
-    "ActionConfig", "BarrierConfig", "Change", "CorridorConfig", "DensityActsOn",
-    "DispersalConfig", "DispersalFuture", "DispersalMethod", "DisturbanceConfig", "Edge",
-    "FireConfig", "FireSize", "FloodConfig", "GridConfig", "GrowthConfig", "GrowthModel",
+    "ACTION_KINDS", "ARRAY_SECTIONS", "CHANGES", "DENSITY_ACTS_ON", "DESIGNS",
+    "DISPERSAL_METHODS", "DISTRIBUTIONS", "DISTURBANCE_KINDS", "EDGES", "FIRE_SIZES",
+    "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED", "RESPONSES",
+    "SECTIONS", "SEX_SYSTEMS", "SURVIVORSHIPS",
+    "ActionConfig", "BarrierConfig", "Change", "CorridorConfig", "DensityActsOn", "Design",
+    "DispersalConfig", "DispersalFuture", "DispersalMethod", "Distribution", "DisturbanceConfig",
+    "Edge", "FireConfig", "FireSize", "FloodConfig", "GridConfig", "GrowthConfig", "GrowthModel",
     "HabitatConfig", "HabitatFuture", "HabitatLossConfig", "InitialConfig", "Kernel", "Key",
-    "OutputConfig", "OutputRaster", "PlanConfig", "Recovery", "ReserveConfig",
+    "OutputConfig", "OutputRaster", "ParameterRange", "PlanConfig", "Recovery", "ReserveConfig",
     "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario", "SexConfig",
-    "SexSystem", "StagesConfig", "Survivorship", "Trend",
-    "load_scenario", "reference_markdown", "template_toml",
+    "SexSystem", "StagesConfig", "Survivorship", "Trend", "UncertaintyConfig",
+    "apply_parameters", "check_parameters", "load_scenario", "load_study", "parse_uncertainty",
+    "reference_markdown", "template_toml",
 ]

@@ -8,6 +8,21 @@ import textwrap
 from .kinds import ARRAY_SECTIONS
 from .schema import REQUIRED, Key
 from .sections import SECTIONS
+from .uncertainty import ARGUMENTS, DOC, KEYS, PARAMETERS, SECTION
+
+UNCERTAINTY_EXAMPLE = (
+    '"growth.rate" = { uniform = [0.2, 0.5] }',
+    '"dispersal.mean_distance_m" = { triangular = [200, 400, 900] }   # min, mode, max',
+    '"habitat.capacity_per_ha" = { lognormal = [2.0, 0.3] }           # median, sd of log',
+    '"action.barrier.crossing_mortality" = { uniform = [0.8, 1.0] }   # every barrier',
+)
+PARAMETER_NAMES = (
+    'Each line of [uncertainty.parameters] names a number key: "section.key" (sections habitat, '
+    'initial, growth, dispersal), "action.KIND.key" or "disturbance.KIND.key" (every table of '
+    'that kind) or "action.N.key" / "disturbance.N.key" (the N-th table, from 1), and gives one '
+    "distribution. The range must lie inside the key's allowed values. Only gridpop sensitivity "
+    "reads this section; gridpop run and compare ignore it."
+)
 
 
 def _toml_value(v: object) -> str:
@@ -66,6 +81,11 @@ def template_toml() -> str:
             block.append(f"kind = {_toml_value(kind)}")
             block += _key_lines(keys)
             lines += ["# " + line for line in block] + [""]
+    block = [f"[{SECTION}]"] + ["# " + line for line in textwrap.wrap(DOC, 96)]
+    block += _key_lines(KEYS) + ["", f"[{PARAMETERS}]"]
+    block += ["# " + line for line in textwrap.wrap(PARAMETER_NAMES, 96)]
+    block += list(UNCERTAINTY_EXAMPLE)
+    lines += ["# " + line for line in block] + [""]
     return "\n".join(lines)
 
 
@@ -91,4 +111,8 @@ def reference_markdown() -> str:
                 f"{', '.join(f'`{k!r}`' for k in kinds)}; the other keys depend on the kind.", ""]
         for kind, (kind_doc, keys) in kinds.items():
             out += [f"### kind = \"{kind}\"", "", kind_doc, ""] + _key_table(keys) + [""]
+    out += [f"## [{SECTION}]", "", DOC, ""] + _key_table(KEYS) + [""]
+    out += [f"### [{PARAMETERS}]", "", PARAMETER_NAMES, "", "| distribution | arguments |",
+            "|---|---|"] + [f"| `{d}` | {a} |" for d, a in ARGUMENTS.items()]
+    out += ["", "```toml", f"[{PARAMETERS}]", *UNCERTAINTY_EXAMPLE, "```", ""]
     return "\n".join(out)

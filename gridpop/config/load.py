@@ -48,6 +48,9 @@ from .sections import (
     SexConfig,
     StagesConfig,
 )
+from .uncertainty import SECTION as UNCERTAINTY
+from .uncertainty import UncertaintyConfig, parse_uncertainty
+from .values import check_value, not_known, unknown_key
 
 
 @dataclass(frozen=True)
@@ -70,6 +73,7 @@ class Scenario:
     sex: SexConfig = SexConfig()
     disturbances: tuple[DisturbanceConfig, ...] = ()
     actions: tuple[ActionConfig, ...] = ()
+    uncertainty: UncertaintyConfig | None = None  # [uncertainty]: gridpop sensitivity only
 
     def replace(self, section: str, **values: object) -> Scenario:
         """A copy with some keys of one section changed (values are validated)."""
@@ -77,108 +81,10 @@ class Scenario:
         checked = {}
         for name, value in values.items():
             if name not in keys:
-                raise ScenarioError(_unknown(self.path, section, name, keys))
+                raise ScenarioError(unknown_key(self.path, section, name, keys))
             checked[name] = check_value(self.path, section, keys[name], value)
         new = dataclasses.replace(getattr(self, section), **checked)
         return dataclasses.replace(self, **{section: new})
-
-
-def _unknown(file: Path | str, section: str, name: str, known: dict[str, Key]) -> str:
-    guess = difflib.get_close_matches(name, list(known), n=1)
-    hint = f"; did you mean {guess[0]!r}?" if guess else ""
-    return (f"{where(file, section)}: unknown key {name!r}{hint} "
-            f"Known keys: {', '.join(known)}.")
-
-
-def _not_known(loc: str, value: object, choices: tuple[str, ...], expected: str) -> ScenarioError:
-    guess = difflib.get_close_matches(str(value), choices, n=1)
-    hint = f" (did you mean {guess[0]!r}?)" if guess else ""
-    return ScenarioError(f"{loc} = {value!r} is not known{hint}; {expected}.")
-
-
-def check_value(file: Path | str, section: str, key: Key, value: object) -> Any:
-    """The value of one key, checked against its type, choices and bounds (a number or list
-    of numbers as float, a list as a tuple; paths not yet resolved)."""
-    loc = where(file, section, key.name)
-    bad = f"{loc} = {value!r} is not allowed; expected {key.allowed()}."
-    if key.changing and (isinstance(value, dict) or (isinstance(value, list) and value
-                                                     and isinstance(value[0], list))):
-        return _trend(file, section, key, value, bad)
-    if key.type == "tables":
-        if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
-            raise ScenarioError(f"{bad} Write [[{section}.{key.name}]] above each entry.")
-        return tuple(value)  # each table is checked by _tables
-    if key.type == "bool":
-        if not isinstance(value, bool):
-            raise ScenarioError(bad)
-        return value
-    if key.type == "floatlist" and isinstance(value, str):
-        if value in key.choices:
-            return value
-        raise ScenarioError(bad)
-    if key.type == "floatmatrix":
-        if not isinstance(value, list) or not value or not all(
-                isinstance(row, list) and row for row in value):
-            raise ScenarioError(bad)
-        one = dataclasses.replace(key, type="float")
-        return tuple(tuple(check_value(file, section, one, v) for v in row) for row in value)
-    if key.type == "floatlist":
-        items = value if isinstance(value, list) else [value]
-        if not items:
-            raise ScenarioError(bad)
-        one = dataclasses.replace(key, type="float", choices=())
-        return tuple(check_value(file, section, one, v) for v in items)
-    if key.type == "pathlist":
-        items = value if isinstance(value, list) else [value]
-        if not items or not all(isinstance(v, str) and v for v in items):
-            raise ScenarioError(bad)
-        return tuple(items)
-    if key.type == "strlist":
-        if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
-            raise ScenarioError(bad)
-        for v in value:
-            if key.choices and v not in key.choices and not (
-                    key.name == "rasters" and v.startswith(STAGE_RASTER)):
-                raise ScenarioError(f"{loc}: {v!r} is not known; expected {key.allowed()}.")
-        return tuple(value)
-    if key.type in ("str", "path"):
-        if not isinstance(value, str) or not value:
-            raise ScenarioError(bad)
-        if key.choices and value not in key.choices:
-            raise _not_known(loc, value, key.choices, f"expected {key.allowed()}")
-        return value
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise ScenarioError(bad)
-    if key.type == "float":
-        value = float(value)
-        if not math.isfinite(value):
-            raise ScenarioError(bad)
-    elif not isinstance(value, int):
-        raise ScenarioError(bad)
-    if key.low is not None and (value < key.low or (key.low_open and value == key.low)):
-        raise ScenarioError(bad)
-    if key.high is not None and (value > key.high or (key.high_open and value == key.high)):
-        raise ScenarioError(bad)
-    return value
-
-
-def _trend(file: Path | str, section: str, key: Key, value: dict | list, bad: str) -> Trend:
-    """``{ start = a, end = b }`` or ``[[year, value], ...]`` as a :class:`Trend`, each value
-    checked against the key's bounds."""
-    one = dataclasses.replace(key, type="float", changing=False)
-    if isinstance(value, dict):
-        if set(value) != {"start", "end"}:
-            raise ScenarioError(bad)
-        values = tuple(check_value(file, section, one, value[k]) for k in ("start", "end"))
-        return Trend((0.0, 1.0), values, over_run=True)
-    if not all(isinstance(p, list) and len(p) == 2 for p in value):
-        raise ScenarioError(bad)
-    years = tuple(check_value(file, section, dataclasses.replace(one, low=0, high=None,
-                                                                 low_open=False), p[0])
-                  for p in value)
-    if any(b <= a for a, b in zip(years, years[1:], strict=False)):
-        raise ScenarioError(f"{bad} The years must increase.")
-    return Trend(years, tuple(check_value(file, section, one, p[1]) for p in value))
 
 
 def _resolve_path(file: Path, section: str, key: str, value: str) -> Path:
@@ -224,7 +130,7 @@ def _tables(file: Path, name: str, key: Key, tables: tuple[dict, ...]) -> tuple[
         label = f"{name} #{i}"
         for k in table:
             if k not in known:
-                raise ScenarioError(_unknown(file, label, k, known))
+                raise ScenarioError(unknown_key(file, label, k, known))
         out.append(key.table(**_values(file, label, keys, table)))
     return tuple(out)
 
@@ -237,11 +143,11 @@ def parse_section(file: Path, section: str, table: object) -> SectionConfig:
         raise ScenarioError(f"{where(file, section)} must be a table ([{section}]).")
     for name in table:
         if name not in known:
-            raise ScenarioError(_unknown(file, section, name, known))
+            raise ScenarioError(unknown_key(file, section, name, known))
     return SECTION_CLASSES[section](**_values(file, section, keys, table))
 
 
-def _cross_checks(file: Path, s: Scenario) -> Scenario:
+def cross_checks(file: Path, s: Scenario) -> Scenario:
     init = s.initial
     given = [k for k in ("fraction_of_capacity", "raster", "points")
              if getattr(init, k) is not None]
@@ -460,14 +366,14 @@ def parse_tables(file: Path, name: str, raw: object) -> tuple[Any, ...]:
         if kind is None:
             raise ScenarioError(f"{loc} is required; known kinds: {known}.")
         if kind not in kinds:
-            raise _not_known(loc, kind, tuple(kinds), f"known kinds: {known}")
+            raise not_known(loc, kind, tuple(kinds), f"known kinds: {known}")
         label = f"{name} #{i} ({kind})"
         keys = kinds[kind][1]
         body = {k: v for k, v in table.items() if k != "kind"}
         names = {k.name: k for k in keys}
         for key in body:
             if key not in names:
-                raise ScenarioError(_unknown(file, label, key, names))
+                raise ScenarioError(unknown_key(file, label, key, names))
         config = KIND_CLASSES[name][kind](label=label, kind=kind,
                                           **_values(file, label, keys, body))
         if kind in KIND_CHECKS:
@@ -493,7 +399,7 @@ def load_scenario(path: str | Path) -> Scenario:
         raw = tomllib.loads(raw_bytes.decode("utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ScenarioError(f"{file}: not a valid TOML file: {exc}") from None
-    known = list(SECTIONS) + list(ARRAY_SECTIONS)
+    known = list(SECTIONS) + list(ARRAY_SECTIONS) + [UNCERTAINTY]
     for name in raw:
         if name not in known:
             guess = difflib.get_close_matches(name, known, n=1)
@@ -513,10 +419,12 @@ def load_scenario(path: str | Path) -> Scenario:
     sections: dict[str, Any] = {name: parse_section(file, name, raw.get(name, {}))
                                 for name in SECTIONS if name != "stages" or name in raw}
     scenario = Scenario(path=file, sha256=hashlib.sha256(raw_bytes).hexdigest(), **sections)
-    scenario = _cross_checks(file, scenario)
+    scenario = cross_checks(file, scenario)
     scenario = dataclasses.replace(
         scenario, disturbances=parse_tables(file, "disturbance", raw.get("disturbance", [])),
-        actions=parse_tables(file, "action", raw.get("action", [])))
+        actions=parse_tables(file, "action", raw.get("action", [])),
+        uncertainty=(parse_uncertainty(file, raw[UNCERTAINTY]) if UNCERTAINTY in raw
+                     else None))
     _managed_stages(file, scenario)
     return scenario
 

@@ -31,6 +31,20 @@ WORKER_ENV = {"NUMBA_NUM_THREADS": "1", "OMP_NUM_THREADS": "1"}
 """Environment of local worker processes: one thread each, the processes give the parallelism."""
 
 
+def check_execution(workers: int | None, scheduler: str | None) -> None:
+    """Refuse ``--workers`` with ``--scheduler`` and a worker count below 1.
+
+    Raises
+    ------
+    RunStateError
+    """
+    if workers is not None and scheduler is not None:
+        raise RunStateError("--workers and --scheduler exclude each other: --workers starts a "
+                            "cluster on this machine, --scheduler uses a running one.")
+    if workers is not None and workers < 1:
+        raise RunStateError(f"--workers {workers}: must be 1 or more.")
+
+
 @contextmanager
 def cluster_client(*, workers: int | None = None, scheduler: str | None = None):
     """A ``distributed.Client`` on a new local cluster or on an existing scheduler.

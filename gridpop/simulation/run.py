@@ -20,7 +20,6 @@ import numba
 
 from .. import _jit
 from .._version import __version__
-from ..errors import RunStateError
 from ..io.results import (
     CHECKPOINT,
     check_output,
@@ -39,6 +38,7 @@ from .batches import (
     run_checkpointed_batch,
     run_identity,
 )
+from .distributed import check_execution
 from .model import build_model
 from .resources import check_room, ensure_space, footprint
 from .results import write_results
@@ -93,11 +93,7 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
     started = time.time()
     out_dir = Path(out_dir)
     local = workers is None and scheduler is None
-    if workers is not None and scheduler is not None:
-        raise RunStateError("--workers and --scheduler exclude each other: --workers starts a "
-                            "cluster on this machine, --scheduler uses a running one.")
-    if workers is not None and workers < 1:
-        raise RunStateError(f"--workers {workers}: must be 1 or more.")
+    check_execution(workers, scheduler)
     check_output(out_dir, overwrite=overwrite)
     model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
     connectivity = _connectivity_in_background(model)
