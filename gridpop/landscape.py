@@ -200,10 +200,13 @@ def build_landscape(scenario, *, stochastic: bool) -> Landscape:
     mask = np.isfinite(suit)
     lo, hi = suit[mask].min(), suit[mask].max()
     if lo < -SUITABILITY_TOLERANCE or hi > 1 + SUITABILITY_TOLERANCE:
+        hint = (" They look like percentages: divide the raster by 100."
+                if lo >= 0 and hi <= 100 else "")
         raise InputDataError(
             f"{where_layer(scenario.path, 'habitat', 'suitability', hab.suitability)}: "
             "values must lie "
-            f"in 0..1 (nodata or NaN outside the study area); found min {lo:g}, max {hi:g}.")
+            f"in 0..1 (nodata or NaN outside the study area); found min {lo:g}, max {hi:g}."
+            + hint)
     suit = np.where(mask, np.clip(suit, 0.0, 1.0), np.nan)
 
     k = capacity(suit, capacity_per_ha=hab.capacity_per_ha, cell_area_ha=grid.cell_area_ha,

@@ -148,6 +148,14 @@ class DispersalConfig:
                               "its last direction (correlated random walk; 0 = none).", low=0)
 
 
+KERNEL_KEYS = ("kernel", "mean_distance_m", "tail", "max_distance_m", "edge")
+"""[dispersal] keys that only the kernel method reads."""
+
+WALK_KEYS = ("resistance", "resistance_max", "resistance_shape", "walk_length",
+             "death_per_resistance", "settle_exponent", "heading_bias")
+"""[dispersal] keys that only the walk method reads."""
+
+
 @dataclass(frozen=True, kw_only=True)
 class OutputConfig:
     """What to write."""

@@ -35,6 +35,7 @@ from ..movement.walk import (
     permeability_from_resistance,
     resistance_from_suitability,
 )
+from .pitfalls import warn
 
 
 @dataclass(frozen=True)
@@ -156,7 +157,9 @@ class Model:
 
 def build_model(scenario, base: Landscape) -> Model:
     """Apply the scenario's actions to its base landscape and convert its user units (metres,
-    hectares, years) to cell units on the grid: the one place where this happens."""
+    hectares, years) to cell units on the grid: the one place where this happens. Warns
+    (:class:`gridpop.errors.ScenarioWarning`) where the model is probably not what the user
+    meant (:mod:`gridpop.simulation.pitfalls`)."""
     actions = apply_actions(scenario, base)
     landscape = actions.landscape
     g, d, grid = scenario.growth, scenario.dispersal, landscape.grid
@@ -190,7 +193,7 @@ def build_model(scenario, base: Landscape) -> Model:
     r = scenario.run
     rates = GrowthRates(MODEL_CODES[g.model], g.rate, g.survival, g.theta,
                         g.allee_density * grid.cell_area_ha, g.stochastic)
-    return Model(
+    model = Model(
         plan=RunPlan(r.years, r.replicates, r.seed, r.batch_size),
         growth=Growth(rates, env),
         movement=movement,
@@ -201,6 +204,8 @@ def build_model(scenario, base: Landscape) -> Model:
         initial=np.ascontiguousarray(landscape.initial, dtype=np.float64),
         actions=actions, regime=build_regime(scenario, landscape, actions),
     )
+    warn(scenario, model)
+    return model
 
 
 @contextlib.contextmanager
