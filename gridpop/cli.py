@@ -47,15 +47,39 @@ def cmd_run(args) -> int:
     scenario = _scenario_with_overrides(args)
     out = _out_dir(args, scenario)
     show = not args.quiet and sys.stderr.isatty()
-    run(scenario, out, overwrite=args.overwrite, progress=show, workers=args.workers,
-        scheduler=args.scheduler, resume=args.resume, force=args.force)
+    try:
+        run(scenario, out, overwrite=args.overwrite, progress=show, workers=args.workers,
+            scheduler=args.scheduler, resume=args.resume, force=args.force)
+    except KeyboardInterrupt:
+        return _interrupted(args, out)
     if not args.no_plots:
         from .report.plots import plot_run
 
         plot_run(out)
     if not args.quiet:
+        import json
+
+        from .analysis.summary import headline
+
+        print(headline(json.loads((out / "summary.json").read_text())))
         print(f"results written to {out}")
     return 0
+
+
+def _interrupted(args, out: Path) -> int:
+    """Say how to continue an interrupted run (exit code 130, as for any Ctrl-C)."""
+    from .io.results import working_folder
+
+    partial = working_folder(out)
+    if not partial.is_dir():
+        print("gridpop: interrupted", file=sys.stderr)
+        return 130
+    again = ["gridpop", "run", args.scenario, "--out", str(out)]
+    again += [f"--{k} {getattr(args, k)}" for k in ("years", "replicates", "seed")
+              if getattr(args, k) is not None]
+    print(f"gridpop: interrupted; the finished batches are kept in {partial}. "
+          f"`{' '.join(again)} --resume` continues the run.", file=sys.stderr)
+    return 130
 
 
 def cmd_compare(args) -> int:

@@ -241,6 +241,20 @@ def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray |
     return out
 
 
+def _count(v: float) -> str:
+    return f"{v:,.0f}" if v == round(v) else f"{v:,.1f}"
+
+
+def headline(summary: dict) -> str:
+    """One line from a run's summary.json: the risk by the horizon with its interval and the
+    final median abundance (what ``gridpop run`` prints at its end)."""
+    r = summary["risk"]
+    return (f"risk of falling below {_count(summary['quasi_extinction'])} individuals by year "
+            f"{summary['years']}: {r['ever_below'][-1]:.3f} [{r['ever_below_lo'][-1]:.3f}, "
+            f"{r['ever_below_hi'][-1]:.3f}] ({100 * summary['confidence']:g} % interval); final "
+            f"median abundance {_count(summary['final_abundance']['p50'])}")
+
+
 def _write_csv(path: Path, header, rows) -> None:
     with open(path, "w", newline="") as fh:
         w = csv.writer(fh)

@@ -59,8 +59,8 @@ from .sections import (
 
 __all__ = [
     "ACTION_KINDS", "ARRAY_SECTIONS", "DISPERSAL_METHODS", "DISTURBANCE_KINDS", "EDGES",
-    "FIRE_SIZES", "GROWTH_MODELS", "KERNEL_KEYS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED",
-    "RESPONSES", "SECTIONS", "WALK_KEYS",
+    "FIRE_SIZES", "GROWTH_MODELS", "KERNEL_KEYS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY",
+    "REQUIRED", "RESPONSES", "SECTIONS", "WALK_KEYS",
     "ActionConfig", "BarrierConfig", "CorridorConfig", "DispersalConfig", "DispersalMethod",
     "DisturbanceConfig", "Edge", "FireConfig", "FireSize", "FloodConfig", "GridConfig",
     "GrowthConfig", "GrowthModel", "HabitatConfig", "HabitatLossConfig", "InitialConfig", "Kernel",
