@@ -30,14 +30,15 @@ def _out_dir(args, scenario) -> Path:
 
 def cmd_check(args) -> int:
     from .landscape import build_landscape
-    from .simulation.check import describe
+    from .simulation.check import describe, merged_lines
     from .simulation.model import build_model
     from .simulation.resources import footprint_lines
 
     scenario = _scenario_with_overrides(args)
     model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
     print("\n".join(describe(scenario, model)
-                    + footprint_lines(scenario, model, _out_dir(args, scenario))))
+                    + footprint_lines(scenario, model, _out_dir(args, scenario))
+                    + merged_lines(scenario)))
     return 0
 
 

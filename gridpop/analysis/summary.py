@@ -183,10 +183,11 @@ def _capacity(scenario, model, notes: list[str]) -> dict | None:
 
 
 def parameters(scenario) -> dict:
-    """The scenario as read: every section, then the ``[[disturbance]]`` and ``[[action]]``
-    tables as lists; paths as absolute path strings."""
+    """The scenario as read: every section (``[plan] extends`` left out), then the
+    ``[[disturbance]]`` and ``[[action]]`` tables as lists; paths as absolute path strings."""
     out: dict[str, Any] = {name: dataclasses.asdict(getattr(scenario, name))
                            for name in SECTIONS}
+    del out["plan"]["extends"]  # how the file is written, not a parameter: merged in already
     out["disturbance"] = [dataclasses.asdict(c) for c in scenario.disturbances]
     out["action"] = [dataclasses.asdict(c) for c in scenario.actions]
     return json.loads(json.dumps(out, default=str))

@@ -28,7 +28,7 @@ from .kinds import (
     ReserveConfig,
     RestorationConfig,
 )
-from .load import Scenario, load_scenario
+from .load import Scenario, load_scenario, merged_toml
 from .schema import REQUIRED, Key
 from .sections import (
     DISPERSAL_METHODS,
@@ -66,5 +66,5 @@ __all__ = [
     "GrowthConfig", "GrowthModel", "HabitatConfig", "HabitatLossConfig", "InitialConfig", "Kernel",
     "Key", "OutputConfig", "OutputRaster", "PlanConfig", "Recovery", "ReserveConfig",
     "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario",
-    "load_scenario", "reference_markdown", "template_toml",
+    "load_scenario", "merged_toml", "reference_markdown", "template_toml",
 ]

@@ -189,6 +189,11 @@ class PlanConfig:
 
     description: str = key("", doc="One line on the plan (e.g. \"two corridors between the north "
                            "blocks\").")
+    extends: Path | None = key(None, doc="Base scenario this file adds to or changes: its "
+                               "tables are merged key by key (this file's values win) and its "
+                               "[[disturbance]] and [[action]] lists come first, this file's "
+                               "appended. Paths in each file are relative to that file.",
+                               example="base.toml")
 
 
 SectionConfig = (RunConfig | GridConfig | HabitatConfig | InitialConfig | GrowthConfig

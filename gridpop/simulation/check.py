@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import math
 
+from ..config import merged_toml
 from .model import Model
 
 
@@ -59,3 +60,13 @@ def describe(scenario, model: Model) -> list[str]:
     plan = model.plan
     lines.append(f"run: {plan.years} years x {plan.replicates} replicates, seed {plan.seed}")
     return lines
+
+
+def merged_lines(scenario) -> list[str]:
+    """With ``[plan] extends``: the merged scenario as one TOML file, indented (the last part
+    of ``gridpop check``); otherwise nothing."""
+    if scenario.plan.extends is None:
+        return []
+    return ([f"extends {scenario.plan.extends.name}: the merged scenario, as one file (tables "
+             "merged key by key, [[disturbance]] and [[action]] appended):"]
+            + [f"  {line}" if line else "" for line in merged_toml(scenario.path).splitlines()])
