@@ -30,7 +30,7 @@ def _out_dir(args, scenario) -> Path:
 
 def cmd_check(args) -> int:
     from .landscape import build_landscape
-    from .simulation.check import describe, merged_lines
+    from .simulation.check import describe, merged_lines, runtime_line
     from .simulation.model import build_model
     from .simulation.resources import footprint_lines
 
@@ -38,7 +38,7 @@ def cmd_check(args) -> int:
     model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
     print("\n".join(describe(scenario, model)
                     + footprint_lines(scenario, model, _out_dir(args, scenario))
-                    + merged_lines(scenario)))
+                    + [runtime_line(model)] + merged_lines(scenario)))
     return 0
 
 

@@ -3,10 +3,15 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
+import tempfile
+import time
+from pathlib import Path
 
 from ..config import merged_toml
-from .model import Model
+from .batches import run_batch
+from .model import Model, RunPlan
 
 
 def describe(scenario, model: Model) -> list[str]:
@@ -70,3 +75,36 @@ def merged_lines(scenario) -> list[str]:
     return ([f"extends {scenario.plan.extends.name}: the merged scenario, as one file (tables "
              "merged key by key, [[disturbance]] and [[action]] appended):"]
             + [f"  {line}" if line else "" for line in merged_toml(scenario.path).splitlines()])
+
+
+PROBE_YEARS = 3
+"""Years of replicate 0 the run-time probe of ``gridpop check`` times."""
+
+
+def _duration(seconds: float) -> str:
+    if seconds < 90:
+        return f"{max(seconds, 1):.0f} s"
+    if seconds < 90 * 60:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
+def runtime_line(model: Model) -> str:
+    """An estimate of the run time from a probe: the first years of replicate 0 of the
+    scenario itself, run and timed in this process (after a one-year warm-up that loads or
+    compiles the kernels), scaled to every year and replicate. Nothing is written but a
+    temporary folder."""
+    plan = model.plan
+    years = min(PROBE_YEARS, plan.years)
+    with tempfile.TemporaryDirectory(prefix="gridpop-probe-") as tmp:
+        run_batch(dataclasses.replace(model, plan=RunPlan(1, 1, plan.seed, 1)), range(1),
+                  Path(tmp) / "warm-up")
+        start = time.perf_counter()
+        run_batch(dataclasses.replace(model, plan=RunPlan(years, 1, plan.seed, 1)), range(1),
+                  Path(tmp) / "probe")
+        took = time.perf_counter() - start
+    total = took / years * plan.years * plan.replicates
+    return (f"estimated run time: about {_duration(total)} in this process (a probe ran "
+            f"{years} year{'s' if years > 1 else ''} of replicate 0 in {took:.2g} s; x "
+            f"{plan.years} years x {plan.replicates} replicates; writing the results not "
+            "counted)")
