@@ -13,13 +13,15 @@ from gridpop.simulation.model import build_model
 
 
 class _Clock:
-    """A stand-in for the time module: perf_counter returns the given readings in turn."""
+    """A stand-in for the time module: each perf_counter reading is ``step`` seconds after the
+    one before."""
 
-    def __init__(self, *readings):
-        self.readings = list(readings)
+    def __init__(self, step):
+        self.step, self.now = step, 0.0
 
     def perf_counter(self):
-        return self.readings.pop(0)
+        self.now += self.step
+        return self.now
 
 
 def model_of(path):
@@ -31,23 +33,27 @@ def model_of(path):
 
 def test_estimate_scales_the_probe_to_every_year_and_replicate(make_scenario, monkeypatch,
                                                                 tmp_path):
-    """The probe times PROBE_YEARS years of one replicate: the estimate is that time per
-    year x years x replicates (3 years in 1.5 s -> 0.5 s a year x 40 years x 6 replicates =
-    120 s = 2 min)."""
+    """The probe runs a first year, then more while less than PROBE_SECONDS (3 s) have passed:
+    with a clock reading 0.5 s later at each look, the looks after years 1 to 6 come 0.5, 1,
+    ..., 3 s after the start, so it runs 6 years, and the last reading gives 3.5 s; the
+    estimate is 3.5 s / 6 years x 40 years x 6 replicates = 140 s = 2 min."""
     model = model_of(make_scenario(scenario_text(years=40, replicates=6, fire=True)))
     before = sorted(p.name for p in tmp_path.iterdir())
-    monkeypatch.setattr(check, "time", _Clock(100.0, 101.5))
+    monkeypatch.setattr(check, "time", _Clock(0.5))
     line = check.runtime_line(model)
     assert line.startswith("estimated run time: about 2 min in this process (a probe ran "
-                           "3 years of replicate 0 in 1.5 s; x 40 years x 6 replicates")
+                           "6 years of replicate 0 in 3.5 s; x 40 years x 6 replicates")
     assert sorted(p.name for p in tmp_path.iterdir()) == before  # nothing written here
 
 
-def test_estimate_of_a_run_shorter_than_the_probe(make_scenario, monkeypatch):
+def test_probe_runs_at_least_one_year_and_at_most_all(make_scenario, monkeypatch):
     model = model_of(make_scenario(scenario_text(years=2, replicates=50)))
-    monkeypatch.setattr(check, "time", _Clock(0.0, 0.4))
+    monkeypatch.setattr(check, "time", _Clock(0.1))  # fast: both years in 0.2 s
     line = check.runtime_line(model)
-    assert "about 20 s" in line and "2 years of replicate 0 in 0.4 s" in line
+    assert "about 10 s" in line and "2 years of replicate 0 in 0.2 s" in line
+    monkeypatch.setattr(check, "time", _Clock(10.0))  # slow: one year in 20 s
+    line = check.runtime_line(model)
+    assert "about 33 min" in line and "1 year of replicate 0 in 20 s" in line
 
 
 def test_durations_read_as_a_planner_would():

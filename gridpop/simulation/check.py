@@ -11,6 +11,7 @@ from pathlib import Path
 
 from ..config import merged_toml
 from .batches import run_batch
+from .cycle import BatchSink, Replicate
 from .model import Model, RunPlan
 
 
@@ -77,8 +78,9 @@ def merged_lines(scenario) -> list[str]:
             + [f"  {line}" if line else "" for line in merged_toml(scenario.path).splitlines()])
 
 
-PROBE_YEARS = 3
-"""Years of replicate 0 the run-time probe of ``gridpop check`` times."""
+PROBE_SECONDS = 3.0
+"""How long the run-time probe of ``gridpop check`` runs years of replicate 0 (at least one
+year, at most all of them)."""
 
 
 def _duration(seconds: float) -> str:
@@ -90,21 +92,28 @@ def _duration(seconds: float) -> str:
 
 
 def runtime_line(model: Model) -> str:
-    """An estimate of the run time from a probe: the first years of replicate 0 of the
-    scenario itself, run and timed in this process (after a one-year warm-up that loads or
-    compiles the kernels), scaled to every year and replicate. Nothing is written but a
-    temporary folder."""
+    """An estimate of the run time from a probe: years of replicate 0 of the scenario itself,
+    run in this process for about :data:`PROBE_SECONDS` (after a one-year warm-up that loads or
+    compiles the kernels), the time per year scaled to every year and replicate. Nothing is
+    written but a temporary folder."""
     plan = model.plan
-    years = min(PROBE_YEARS, plan.years)
+    one = dataclasses.replace(model, plan=RunPlan(plan.years, 1, plan.seed, 1))
     with tempfile.TemporaryDirectory(prefix="gridpop-probe-") as tmp:
         run_batch(dataclasses.replace(model, plan=RunPlan(1, 1, plan.seed, 1)), range(1),
                   Path(tmp) / "warm-up")
+        sink = BatchSink(Path(tmp) / "probe", one, range(1))
+        replicate = Replicate(one, 0, sink.ledger[0])
         start = time.perf_counter()
-        run_batch(dataclasses.replace(model, plan=RunPlan(years, 1, plan.seed, 1)), range(1),
-                  Path(tmp) / "probe")
+        replicate.start(sink)
+        years = 0
+        while years < plan.years and (years == 0
+                                      or time.perf_counter() - start < PROBE_SECONDS):
+            years += 1
+            replicate.advance(years, sink)
         took = time.perf_counter() - start
+        del sink, replicate  # release the memory-mapped files before the folder goes
     total = took / years * plan.years * plan.replicates
     return (f"estimated run time: about {_duration(total)} in this process (a probe ran "
             f"{years} year{'s' if years > 1 else ''} of replicate 0 in {took:.2g} s; x "
             f"{plan.years} years x {plan.replicates} replicates; writing the results not "
-            "counted)")
+            "counted; the first years may cost more or less than later ones)")
