@@ -50,13 +50,10 @@ def cmd_run(args) -> int:
     show = not args.quiet and sys.stderr.isatty()
     try:
         run(scenario, out, overwrite=args.overwrite, progress=show, workers=args.workers,
-            scheduler=args.scheduler, resume=args.resume, force=args.force)
+            scheduler=args.scheduler, resume=args.resume, force=args.force,
+            plots=not args.no_plots)
     except KeyboardInterrupt:
-        return _interrupted(args, out)
-    if not args.no_plots:
-        from .report.plots import plot_run
-
-        plot_run(out)
+        return _interrupted(args, ["run", args.scenario], out)
     if not args.quiet:
         import json
 
@@ -67,19 +64,20 @@ def cmd_run(args) -> int:
     return 0
 
 
-def _interrupted(args, out: Path) -> int:
-    """Say how to continue an interrupted run (exit code 130, as for any Ctrl-C)."""
+def _interrupted(args, command: list[str], out: Path) -> int:
+    """Say where the work of an interrupted run or comparison is kept and the command that
+    continues it (exit code 130, as for any Ctrl-C)."""
     from .io.results import working_folder
 
-    partial = working_folder(out)
+    partial = working_folder(Path(out))
     if not partial.is_dir():
         print("gridpop: interrupted", file=sys.stderr)
         return 130
-    again = ["gridpop", "run", args.scenario, "--out", str(out)]
+    again = ["gridpop", *command, "--out", str(out)]
     again += [f"--{k} {getattr(args, k)}" for k in ("years", "replicates", "seed")
               if getattr(args, k) is not None]
-    print(f"gridpop: interrupted; the finished batches are kept in {partial}. "
-          f"`{' '.join(again)} --resume` continues the run.", file=sys.stderr)
+    print(f"gridpop: interrupted; the finished work is kept in {partial}. "
+          f"`{' '.join(again)} --resume` continues it.", file=sys.stderr)
     return 130
 
 
@@ -90,9 +88,12 @@ def cmd_compare(args) -> int:
 
     scenarios = [_scenario_with_overrides(args, path) for path in args.scenarios]
     show = not args.quiet and sys.stderr.isatty()
-    out = compare(scenarios, args.out, overwrite=args.overwrite, progress=show,
-                  plots=not args.no_plots, workers=args.workers, scheduler=args.scheduler,
-                  force=args.force)
+    try:
+        out = compare(scenarios, args.out, overwrite=args.overwrite, progress=show,
+                      plots=not args.no_plots, workers=args.workers,
+                      scheduler=args.scheduler, resume=args.resume, force=args.force)
+    except KeyboardInterrupt:
+        return _interrupted(args, ["compare", *args.scenarios], args.out)
     if not args.quiet:
         print(table(json.loads((out / "comparison.json").read_text())))
         print(f"results written to {out}")
@@ -125,15 +126,18 @@ def _add_run_overrides(p):
     p.add_argument("--seed", type=int, help="override [run] seed")
 
 
-def _add_execution_options(p, *, resume: bool = True):
+def _add_run_options(p, *, resume: str):
+    """The options `run` and `compare` share: output, execution and ``--resume`` (its help)."""
+    _add_run_overrides(p)
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
+    p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
     p.add_argument("--workers", type=int, metavar="N", help="run batches of replicates on a "
                    "local Dask cluster of N worker processes (default: in this process)")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run batches on the Dask cluster at "
                    "ADDRESS (tcp://host:8786); the output folder must be on a filesystem "
                    "its workers share")
-    if resume:
-        p.add_argument("--resume", action="store_true", help="continue an interrupted run of "
-                       "the same scenario into the same --out, keeping its finished batches")
+    p.add_argument("--resume", action="store_true", help=resume)
     p.add_argument("--force", action="store_true", help="start even if the estimated "
                    "memory or disk need exceeds what is free")
 
@@ -154,11 +158,8 @@ def parser() -> argparse.ArgumentParser:
     p = sub.add_parser("run", help="run a scenario")
     p.add_argument("scenario")
     p.add_argument("--out", help="output folder (default results/<scenario name>)")
-    _add_run_overrides(p)
-    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
-    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
-    p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
-    _add_execution_options(p)
+    _add_run_options(p, resume="continue an interrupted run of the same scenario into the "
+                     "same --out, keeping its finished batches")
     p.set_defaults(func=cmd_run)
 
     p = sub.add_parser("compare", help="run plans with common random numbers and compare them "
@@ -166,11 +167,8 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("scenarios", nargs="+", metavar="SCENARIO",
                    help="scenario files; the first is the baseline")
     p.add_argument("--out", required=True, help="output folder")
-    _add_run_overrides(p)
-    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
-    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
-    p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
-    _add_execution_options(p, resume=False)
+    _add_run_options(p, resume="continue an interrupted comparison of the same plans into "
+                     "the same --out, keeping its finished plans and batches")
     p.set_defaults(func=cmd_compare)
 
     p = sub.add_parser("report", help="write a self-contained HTML report of a run or "

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import csv
+import json
 import textwrap
 from pathlib import Path
 
@@ -122,3 +123,22 @@ def read_rows(path):
     """Rows of a CSV file as dicts."""
     with open(path, newline="") as fh:
         return list(csv.DictReader(fh))
+
+
+def same_results(a: Path, b: Path, *, figures: bool = True) -> None:
+    """The same files under both folders (figures included, when drawn); every table, GeoTIFF
+    and text file byte for byte, every JSON file equal apart from the ``execution`` block of
+    run.json (wall time, resumed batches)."""
+    files = sorted(p.relative_to(a) for p in a.rglob("*"))
+    assert files == sorted(p.relative_to(b) for p in b.rglob("*"))
+    assert any(f.suffix == ".png" for f in files) == figures
+    assert any(f.suffix == ".tif" for f in files)
+    for f in files:
+        if (a / f).is_dir() or f.suffix == ".png":
+            continue
+        if f.suffix == ".json":
+            x, y = (json.loads((d / f).read_text()) for d in (a, b))
+            x.pop("execution", None), y.pop("execution", None)
+            assert x == y, f
+        else:
+            assert (a / f).read_bytes() == (b / f).read_bytes(), f

@@ -210,9 +210,9 @@ def test_interrupted_run_says_how_to_resume(make_scenario, tmp_path, capsys, mon
                    "--seed", "3") == 130
     err = capsys.readouterr().err.strip().splitlines()[-1]
     partial = tmp_path / ".res.partial"
-    assert err == (f"gridpop: interrupted; the finished batches are kept in {partial}. "
+    assert err == (f"gridpop: interrupted; the finished work is kept in {partial}. "
                    f"`gridpop run {scen} --out {out} --replicates 4 --seed 3 --resume` "
-                   "continues the run.")
+                   "continues it.")
     monkeypatch.setattr(run_module, "run_checkpointed_batch", real)
     assert run_cli("run", scen, "--out", out, "--quiet", "--no-plots", "--replicates", "4",
                    "--seed", "3", "--resume") == 0

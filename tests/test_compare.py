@@ -3,13 +3,15 @@
 from __future__ import annotations
 
 import contextlib
+import errno
 import io
 import json
+import os
 
 import numpy as np
 import pytest
 import rasterio
-from conftest import write_raster
+from conftest import same_results, write_raster
 from scipy import stats
 from test_summary import (
     EAST,
@@ -25,6 +27,7 @@ from test_summary import (
 from gridpop.analysis.metrics import unpaired_difference
 from gridpop.cli import main
 from gridpop.io.results import NODATA
+from gridpop.simulation.cycle import BatchSink
 
 BASE = """
 [run]
@@ -258,3 +261,59 @@ def test_one_plan_is_not_a_comparison(tmp_path, capsys):
     (base,) = write_plans(tmp_path, [("base", 5, None, "")])
     assert run_cli("compare", base, "--out", tmp_path / "cmp", "--no-plots") == 2
     assert "at least two scenario files" in capsys.readouterr().err
+
+
+def test_compare_resume_keeps_finished_plans_and_refuses_changes(tmp_path, monkeypatch, capsys):
+    """A full disk (ENOSPC, POSIX "no space left on device") while the second plan saves its
+    second batch: exit 2, nothing published, the first plan's run kept whole. ``--resume``
+    refuses other plans, another order, another horizon or an edited scenario file (exit 2,
+    naming what changed, leaving the interrupted comparison alone), and otherwise completes it
+    without running the first plan again, with the same results as an uninterrupted one."""
+    base, reserve = paths = write_plans(tmp_path, [("base", 5, None, ""), ("reserve", 5, 2.0, "")])
+    for p in paths:
+        p.write_text(p.read_text().replace("[run]\n", "[run]\nbatch_size = 2\n"))
+    assert run_cli("compare", *paths, "--out", tmp_path / "whole", "--no-plots", "--quiet") == 0
+    out, work = tmp_path / "c", tmp_path / ".c.partial"
+    close, calls = BatchSink.close, []
+
+    def full_at_sixth(self):  # 4 batches of 2 replicates per plan: the second plan's second
+        calls.append(1)
+        if len(calls) == 6:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        return close(self)
+
+    with monkeypatch.context() as m:
+        m.setattr(BatchSink, "close", full_at_sixth)
+        assert run_cli("compare", *paths, "--out", out, "--no-plots", "--quiet") == 2
+    assert "no space left" in capsys.readouterr().err.lower()
+    assert not out.exists() and json.loads((work / "base" / "run.json").read_text())["complete"]
+    first = (work / "base" / "run.json").read_bytes()
+    assert (work / ".reserve.partial" / "batches" / "00000" / "done").is_file()
+
+    def refused(*args):
+        assert run_cli("compare", *args, "--out", out, "--no-plots", "--quiet") == 2
+        err = capsys.readouterr().err
+        assert "Traceback" not in err
+        return err
+
+    assert "holds an interrupted comparison" in refused(*paths)
+    assert "[run] years = 8 then, 9 now (base, reserve)" in refused(*paths, "--resume",
+                                                                    "--years", "9")
+    assert "the plans base, reserve then, reserve, base now" in refused(reserve, base, "--resume")
+    other = tmp_path / "other.toml"
+    other.write_text(base.read_text())
+    assert "the plans base, reserve then, base, other now" in refused(base, other, "--resume")
+    text = reserve.read_text()
+    reserve.write_text(text.replace("capacity_multiplier = 2.0", "capacity_multiplier = 3.0"))
+    err = refused(*paths, "--resume")
+    assert f"{reserve}: the scenario file changed" in err
+    assert "the [[action]] tables (reserve)" in err
+    reserve.write_text(text)
+    assert (work / "base" / "run.json").read_bytes() == first
+
+    assert run_cli("compare", *paths, "--out", out, "--resume", "--no-plots", "--quiet") == 0
+    assert (out / "base" / "run.json").read_bytes() == first  # kept, not run again
+    assert json.loads((out / "reserve" / "run.json").read_text())["execution"][
+        "resumed_batches"] == 1
+    assert not work.exists() and json.loads((out / "compare.json").read_text())["complete"]
+    same_results(tmp_path / "whole", out, figures=False)

@@ -8,7 +8,9 @@ simulation.
 from __future__ import annotations
 
 import csv
+import errno
 import json
+import os
 from pathlib import Path
 
 import geopandas as gpd
@@ -260,6 +262,25 @@ def test_plot_run_writes_pngs(run_dir):
     paths = plot_run(run_dir)
     assert all(p.parent == run_dir / "plots" for p in paths)
     _check_pngs(paths, ["risk", "abundance", "occupancy", "colonisation", "ledger"])
+
+
+def test_figures_drawn_again_stay_whole_when_interrupted(run_dir, monkeypatch):
+    """Drawing a folder's figures again (``gridpop report`` on a published folder) replaces each
+    PNG only once it is written whole: a write that fails half way (ENOSPC, POSIX "no space left
+    on device") leaves the previous figure byte for byte."""
+    from matplotlib.figure import Figure
+
+    risk = plot_run(run_dir)[0]
+    before = risk.read_bytes()
+
+    def half_written(self, fname, **kwargs):
+        Path(fname).write_bytes(before[:100])
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    monkeypatch.setattr(Figure, "savefig", half_written)
+    with pytest.raises(OSError):
+        plot_run(run_dir)
+    assert risk.read_bytes() == before
 
 
 def test_plot_compare_one_risk_curve_per_plan(compare_dir):

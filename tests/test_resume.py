@@ -13,6 +13,7 @@ import time
 
 import pytest
 import rasterio
+from conftest import same_results
 from conftest import scenario_text as shared_scenario
 
 import gridpop
@@ -131,6 +132,27 @@ def test_disk_full_while_writing_results_then_resume(make_scenario, tmp_path, mo
     assert run_cli("run", scen, "--out", out, "--resume") == 0
     assert_same_outputs(tmp_path / "whole", out)
     assert json.loads((out / "run.json").read_text())["execution"]["resumed_batches"] == 4
+
+
+def test_disk_full_while_plotting_nothing_published_then_resume(make_scenario, tmp_path,
+                                                               monkeypatch, capsys):
+    """The figures are drawn in the working folder, before it is published: ENOSPC while the
+    second figure is saved leaves no output folder and every batch; ``--resume`` draws them
+    again and publishes the same files as an uninterrupted run, with nothing left over."""
+    from matplotlib.figure import Figure
+
+    scen = make_scenario(scenario_text())
+    assert run_cli("run", scen, "--out", tmp_path / "whole") == 0
+    out, work = tmp_path / "r", tmp_path / ".r.partial"
+    with monkeypatch.context() as m:
+        fail_on_call(m, Figure, "savefig", 2)
+        assert run_cli("run", scen, "--out", out) == 2
+    assert "no space left" in capsys.readouterr().err.lower()
+    assert not out.exists() and not (work / "run.json").exists()
+    assert len(list((work / "plots").iterdir())) == 1 and finished(work) == 4
+    assert run_cli("run", scen, "--out", out, "--resume") == 0
+    assert json.loads((out / "run.json").read_text())["execution"]["resumed_batches"] == 4
+    same_results(tmp_path / "whole", out)
 
 
 def test_resume_refuses_changed_scenario_or_settings(make_scenario, tmp_path, monkeypatch,

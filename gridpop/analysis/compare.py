@@ -10,6 +10,12 @@
   first plan's;
 - ``compare.json``: the manifest (plans, folders, scenario files), ``"complete": true`` last.
 
+Like a run, a comparison is written into a working folder (``.NAME.partial``, with a
+``checkpoint.json`` of the plans and settings) and moved into place only when whole, plots
+included. Each plan's run is published inside it when whole, so an interrupted comparison resumes
+(``resume=True``) with its finished plans kept and the unfinished plan continuing from its
+finished batches; the results are the same as an uninterrupted comparison's.
+
 Replicate i of every plan uses the same random numbers (common random numbers: the generator is a
 hash of seed, replicate, year, stream and cell, :mod:`gridpop.rng`), so the first plan's seed is
 used for all and differences are taken replicate by replicate: per-replicate outcomes are
@@ -35,9 +41,18 @@ import numpy as np
 import rasterio
 
 from .._version import __version__
-from ..errors import ScenarioError
+from ..errors import RunStateError, ScenarioError
 from ..io.rasters import load_grid
-from ..io.results import prepare_output, publish, write_json, write_stack
+from ..io.results import (
+    CHECKPOINT,
+    check_output,
+    keep_only,
+    prepare_output,
+    publish_complete,
+    working_folder,
+    write_json,
+    write_stack,
+)
 from .metrics import paired_difference
 from .summary import N_BOOT, focus_census
 
@@ -215,9 +230,58 @@ def _csv_value(v) -> str:
     return str(v)
 
 
+def _identity(plans: list) -> dict:
+    """What a resumed comparison must share with the interrupted one (its checkpoint)."""
+    from ..simulation.batches import plan_identity
+
+    first = plans[0].run
+    return {"gridpop_version": __version__, "seed": first.seed, "years": first.years,
+            "replicates": first.replicates,
+            "plans": [{"name": s.path.stem, **plan_identity(s)} for s in plans]}
+
+
+def _may_resume(work: Path, plans: list, *, resume: bool, overwrite: bool) -> bool:
+    """Whether the comparison continues the interrupted one in ``work`` (read only).
+
+    Raises
+    ------
+    RunStateError
+        With ``resume`` when the interrupted comparison had other plans (names, order, scenario
+        files or parameters as read), seed, years, replicates or gridpop version; without
+        ``resume`` or ``overwrite`` when there is an interrupted comparison to lose.
+    """
+    from ..simulation.batches import interrupted, parameter_changes, version_change
+
+    saved = interrupted(work, resume=resume, overwrite=overwrite)
+    if saved is None:
+        return False
+    then, now = saved.get("plans", []), _identity(plans)["plans"]
+    changed = version_change(saved)
+    names = [[str(p.get("name")) for p in ps] for ps in (then, now)]
+    if names[0] != names[1]:
+        changed.append(f"the plans {', '.join(names[0])} then, {', '.join(names[1])} now")
+    else:  # the seed, years and replicates are each plan's [run] parameters
+        by_change: dict[str, list[str]] = {}
+        for old, new in zip(then, now, strict=True):
+            if old.get("scenario_sha256") != new["scenario_sha256"]:
+                changed.append(f"{new['scenario']}: the scenario file changed (sha256 "
+                               f"{str(old.get('scenario_sha256'))[:12]}... then, "
+                               f"{new['scenario_sha256'][:12]}... now)")
+            for c in parameter_changes(old.get("parameters", {}), new["parameters"]):
+                by_change.setdefault(c, []).append(new["name"])
+        changed += [f"{c} ({', '.join(n)})" for c, n in by_change.items()]
+    if changed:
+        raise RunStateError(
+            f"{work}: the interrupted comparison had other plans or settings: "
+            f"{'; '.join(changed)}. --resume continues only the same plans in the same order "
+            "with the same scenario files and settings (command-line overrides included); "
+            "restore them, or run without --resume and with --overwrite to start over.")
+    return True
+
+
 def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool = False,
             plots: bool = False, workers: int | None = None, scheduler: str | None = None,
-            force: bool = False) -> Path:
+            resume: bool = False, force: bool = False) -> Path:
     """Run plans with common random numbers and compare them with the first.
 
     Parameters
@@ -229,21 +293,33 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
         The output folder: one run folder per plan (named after its file) and the comparison
         files (module docstring). Written beside it and moved into place when complete.
     overwrite : bool
-        Replace an existing output folder.
+        Replace an existing output folder (and discard an interrupted comparison of it).
     progress : bool
         Show a progress bar per plan.
     plots : bool
-        Write the plots of each run and of the comparison (:mod:`gridpop.report.plots`) once the
-        folder is complete.
+        Draw the plots of each run and of the comparison (:mod:`gridpop.report.plots`) before
+        the folder is published.
     workers, scheduler, force
         How each plan's run is carried out (:func:`gridpop.simulation.run.run`): on a local Dask
-        cluster
-        of ``workers`` processes, on the cluster at ``scheduler``, or despite the room check.
+        cluster of ``workers`` processes, on the cluster at ``scheduler``, or despite the room
+        check.
+    resume : bool
+        Continue the interrupted comparison into ``out_dir``: finished plans are kept, the
+        unfinished plan resumes from its finished batches. Refused when the plans or settings
+        differ (:func:`_may_resume`).
 
     Returns
     -------
     Path
         The output folder; ``comparison.json`` in it holds the table (see :func:`table`).
+
+    Raises
+    ------
+    OutputExistsError
+        ``out_dir`` exists and ``overwrite`` is false.
+    RunStateError
+        A changed comparison under ``resume``; an interrupted comparison in the way; and as
+        :func:`gridpop.simulation.run.run`.
 
     References
     ----------
@@ -258,14 +334,22 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
     plans, notes = prepare_plans(list(scenarios))
     first = plans[0]
     grid = _grid(first)
-    work = prepare_output(out_dir, overwrite=overwrite)
+    check_output(out_dir, overwrite=overwrite)
+    resuming = _may_resume(working_folder(out_dir), plans, resume=resume, overwrite=overwrite)
+    work = prepare_output(out_dir, overwrite=overwrite, resume=resuming)
+    if resuming:  # keep the plans' run folders, finished or not; drop the comparison's files
+        keep_only(work, {CHECKPOINT} | {s.path.stem for s in plans}
+                  | {working_folder(Path(s.path.stem)).name for s in plans})
+    else:
+        write_json(work / CHECKPOINT, {**_identity(plans), "complete": False})
     threshold, confidence = first.risk.quasi_extinction, first.risk.confidence
     alpha, seed = 1.0 - confidence, first.run.seed
     rows, outcomes, details, focus = [], [], {}, []
     summaries = []
     for s in plans:
-        run(s, work / s.path.stem, progress=progress, workers=workers, scheduler=scheduler,
-            force=force)
+        if not (work / s.path.stem).exists():  # a plan's folder is published only when whole
+            run(s, work / s.path.stem, progress=progress, workers=workers, scheduler=scheduler,
+                force=force, resume=resuming, plots=plots)
         summary = json.loads((work / s.path.stem / "summary.json").read_text())
         summaries.append(summary)
         focus += [t for t in summary["colonisation"] if t not in focus]
@@ -303,19 +387,17 @@ def compare(scenarios: list, out_dir, *, overwrite: bool = False, progress: bool
     }
     write_json(work / "comparison.json", comparison)
     files += ["comparison.csv", "comparison.json"]
-    write_json(work / "compare.json", {
+    manifest = {
         "gridpop_version": __version__, "seed": seed, "years": first.run.years,
         "replicates": first.run.replicates,
         "plans": [{"name": s.path.stem, "folder": s.path.stem, "scenario": str(s.path)}
                   for s in plans],
-        "files": sorted(files), "complete": True})
-    publish(work, out_dir)
+        "files": sorted(files)}
     if plots:
-        from ..report.plots import plot_compare, plot_run
+        from ..report.plots import plot_compare
 
-        for s in plans:
-            plot_run(out_dir / s.path.stem)
-        plot_compare(out_dir)
+        plot_compare(work, manifest)
+    publish_complete(work, out_dir, "compare.json", manifest)
     return out_dir
 
 

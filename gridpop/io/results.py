@@ -1,12 +1,17 @@
 """Writing results: GeoTIFF time stacks, ledger tables, the run manifest, the output folder.
 
-A run writes everything into a working folder beside the output folder
-(``.NAME.partial``) and renames it into place only when every file is whole, with ``run.json``
-(``"complete": true``) written last. A folder that lacks a complete manifest is not a result.
+A run or a comparison writes everything (tables, stacks, summary, plots) into a working folder
+beside the output folder (``.NAME.partial``), which holds a checkpoint (``checkpoint.json``)
+while it is unfinished. When every file is whole, :func:`publish_complete` removes the
+checkpoint, writes the manifest (``run.json`` or ``compare.json``, ``"complete": true``) and
+renames the folder into place, in that order and as the last three steps: a folder under the
+output name is always whole, and a kill at any moment leaves either that or a working folder to
+resume.
 """
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import json
 import os
@@ -23,6 +28,10 @@ NODATA = -9999.0
 LEDGER_FIELDS = ("abundance", "births", "deaths", "disturbance_deaths", "emigrants",
                  "immigrants", "losses", "occupied_cells")
 """Columns of timeseries.csv and patches.csv after the replicate, year (and patch) columns."""
+
+
+CHECKPOINT = "checkpoint.json"
+"""Manifest of an unfinished run or comparison in its working folder; what ``--resume`` checks."""
 
 
 def working_folder(out_dir: Path) -> Path:
@@ -46,6 +55,21 @@ def prepare_output(out_dir: Path, *, overwrite: bool, resume: bool = False) -> P
         shutil.rmtree(work)
     work.mkdir(parents=True, exist_ok=True)
     return work
+
+
+def keep_only(folder: Path, names) -> None:
+    """Remove everything in ``folder`` but the entries named in ``names``."""
+    for p in folder.iterdir():
+        if p.name not in names:
+            shutil.rmtree(p) if p.is_dir() and not p.is_symlink() else p.unlink()
+
+
+def publish_complete(work: Path, out_dir: Path, manifest_name: str, manifest: dict) -> None:
+    """The last three steps of a run or comparison whose files are all in ``work``: remove the
+    checkpoint, write the manifest with ``"complete": true``, move the folder into place."""
+    (work / CHECKPOINT).unlink(missing_ok=True)
+    write_json(work / manifest_name, {**manifest, "complete": True})
+    publish(work, out_dir)
 
 
 def publish(work: Path, out_dir: Path) -> None:
@@ -153,10 +177,19 @@ def write_events_csv(path: Path, events) -> None:
             w.writerow([rep, year, kind, patches, cells, f"{deaths:.12g}"])
 
 
-def write_json(path: Path, data: dict) -> None:
-    tmp = path.with_suffix(path.suffix + ".tmp")
-    tmp.write_text(json.dumps(data, indent=2, default=_jsonable) + "\n")
+@contextlib.contextmanager
+def whole_file(path: Path):
+    """Yield a temporary path beside ``path`` to write, and rename it to ``path`` when the block
+    ends without error: a reader (or a kill) sees the old file or the new one, never part of
+    it."""
+    tmp = path.with_name(path.name + ".tmp")
+    yield tmp
     os.replace(tmp, path)
+
+
+def write_json(path: Path, data: dict) -> None:
+    with whole_file(path) as tmp:
+        tmp.write_text(json.dumps(data, indent=2, default=_jsonable) + "\n")
 
 
 def _jsonable(obj):

@@ -25,6 +25,7 @@ from pathlib import Path
 from .._version import __version__
 from ..config import ARRAY_SECTIONS, SECTIONS
 from ..errors import InputDataError
+from ..io.results import whole_file
 from .assumptions import CAPACITY, CONNECTION, WALK_CAPACITY, assumptions, fmt
 from .plots import Plan, plot_compare, plot_run, read_plans, relative
 
@@ -397,5 +398,6 @@ def write_report(folder, out=None) -> Path:
     out = Path(out) if out is not None else folder / "report.html"
     text = report_html(folder)
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(text, encoding="utf-8")
+    with whole_file(out) as tmp:
+        tmp.write_text(text, encoding="utf-8")
     return out

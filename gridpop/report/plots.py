@@ -54,7 +54,7 @@ from ..actions import apply_actions
 from ..analysis.metrics import binomial_interval
 from ..config import load_scenario
 from ..errors import GridpopError, InputDataError, RunStateError
-from ..io.results import LEDGER_FIELDS
+from ..io.results import LEDGER_FIELDS, whole_file
 from ..landscape import build_landscape
 
 OKABE_ITO = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000",
@@ -112,18 +112,19 @@ def _read_json(path: Path) -> dict:
     return data
 
 
-def read_run(folder) -> Plan:
-    """Read a RUN folder (run.json and summary.json)."""
+def read_run(folder, manifest: dict | None = None) -> Plan:
+    """Read a RUN folder (run.json and summary.json); ``manifest`` stands for run.json in a
+    folder that is drawn before it is published."""
     folder = Path(folder)
     summary = _read_json(folder / "summary.json")
-    manifest = _read_json(folder / "run.json")
+    manifest = _read_json(folder / "run.json") if manifest is None else manifest
     name = summary.get("plan", {}).get("name") or folder.name
     return Plan(name, folder, summary, manifest)
 
 
-def read_plans(folder) -> tuple[str, list[Plan]]:
+def read_plans(folder, manifest: dict | None = None) -> tuple[str, list[Plan]]:
     """The plans of a result folder: ``("compare", plans)`` for a COMPARE folder (compare.json
-    present), ``("run", [plan])`` for a RUN folder.
+    present, or its content given as ``manifest``), ``("run", [plan])`` for a RUN folder.
 
     Raises
     ------
@@ -131,8 +132,8 @@ def read_plans(folder) -> tuple[str, list[Plan]]:
         The folder is neither, or a file it needs is missing or unreadable.
     """
     folder = Path(folder)
-    if (folder / "compare.json").is_file():
-        manifest = _read_json(folder / "compare.json")
+    if manifest is not None or (folder / "compare.json").is_file():
+        manifest = _read_json(folder / "compare.json") if manifest is None else manifest
         plans = [read_run(folder / p["folder"]) for p in manifest.get("plans", [])]
         if not plans:
             raise InputDataError(f"{folder / 'compare.json'}: lists no plans.")
@@ -571,7 +572,8 @@ def map_figure(panels: list[tuple[str, MapLayer, list]], *, cmap: str, vmin: flo
 
 
 def _save(fig: Figure, path: Path) -> Path:
-    fig.savefig(path, dpi=DPI)
+    with whole_file(path) as tmp:  # a folder drawn again keeps whole figures if interrupted
+        fig.savefig(tmp, dpi=DPI, format="png")
     return path
 
 
@@ -631,7 +633,7 @@ def _write(folder: Path, figures) -> list[Path]:
     return [_save(fig, out / f"{name}.png") for name, fig in figures]
 
 
-def plot_run(run_dir) -> list[Path]:
+def plot_run(run_dir, manifest: dict | None = None) -> list[Path]:
     """Draw the figures of a RUN folder into ``run_dir/plots/`` and return their paths.
 
     risk.png (quasi-extinction risk with intervals; colonisation for a focus area that starts
@@ -639,20 +641,20 @@ def plot_run(run_dir) -> list[Path]:
     occupancy.png (final-year occupancy probability), colonisation.png (median colonisation
     year), both maps over the habitat of the last year with the footprints of the plan's actions
     and its focus areas, and ledger.png (births, deaths, disturbance deaths, net movement per
-    year).
+    year). ``manifest`` stands for run.json (a working folder, drawn before it is published).
     """
     run_dir = Path(run_dir)
-    return _write(run_dir, _figures([read_run(run_dir)]))
+    return _write(run_dir, _figures([read_run(run_dir, manifest)]))
 
 
-def plot_compare(compare_dir) -> list[Path]:
+def plot_compare(compare_dir, manifest: dict | None = None) -> list[Path]:
     """Draw the figures of a COMPARE folder into ``compare_dir/plots/`` and return their paths.
 
     The figures of :func:`plot_run` with every plan (one risk curve per plan on one axis, one
     panel per plan elsewhere, shared scales; the maps draw only the actions that tell the plans
     apart), and occupancy_difference.png: each plan's final-year occupancy probability minus the
-    first plan's (occupancy_difference_<plan>.tif).
+    first plan's (occupancy_difference_<plan>.tif). ``manifest`` stands for compare.json.
     """
     compare_dir = Path(compare_dir)
-    _, plans = read_plans(compare_dir)
+    _, plans = read_plans(compare_dir, manifest)
     return _write(compare_dir, _figures(plans, compare_dir))

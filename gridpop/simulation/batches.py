@@ -16,6 +16,7 @@ from pathlib import Path
 from .._version import __version__
 from ..analysis.summary import parameters
 from ..errors import RunStateError
+from ..io.results import CHECKPOINT, keep_only
 from .cycle import BatchSink, simulate_replicate
 from .model import Model
 from .resources import batch_bytes, ensure_space
@@ -29,11 +30,6 @@ def run_batch(model: Model, reps: range, folder: Path, progress=None) -> None:
         if progress is not None:
             progress.update(1)
     sink.close()
-
-
-CHECKPOINT = "checkpoint.json"
-"""Manifest of an unfinished run in its working folder: gridpop version, scenario hash, the
-parameters as read (overrides included) and the number of batches. A resumed run must match it."""
 
 
 NO_SPACE = (errno.ENOSPC, errno.EDQUOT)
@@ -74,19 +70,70 @@ def finished_batches(work: Path, n: int) -> set[int]:
 
 
 def discard_unfinished(work: Path, keep: set[int]) -> None:
-    """Remove everything under ``batches/`` but the finished batches (e.g. the temporary folder
-    of a batch that was interrupted)."""
+    """Remove everything in the working folder but the checkpoint and the finished batches: the
+    temporary folder of an interrupted batch, and the results and plots of an interrupted attempt
+    at writing them."""
+    keep_only(work, {CHECKPOINT, "batches"})
     folder = work / "batches"
     folder.mkdir(exist_ok=True)
-    for p in folder.iterdir():
-        if not (p.name.isdigit() and int(p.name) in keep):
-            shutil.rmtree(p) if p.is_dir() else p.unlink()
+    keep_only(folder, {batch_folder(work, b).name for b in keep})
+
+
+def plan_identity(scenario) -> dict:
+    """What a resumed run (or a plan of a resumed comparison) must share with the interrupted
+    one: the scenario file and its hash, the parameters as read (overrides included)."""
+    return {"scenario": str(scenario.path), "scenario_sha256": scenario.sha256,
+            "parameters": parameters(scenario)}
 
 
 def run_identity(scenario, model: Model) -> dict:
-    return {"gridpop_version": __version__, "scenario": str(scenario.path),
-            "scenario_sha256": scenario.sha256, "parameters": parameters(scenario),
+    return {"gridpop_version": __version__, **plan_identity(scenario),
             "batches": len(model.plan.batches())}
+
+
+def interrupted(work: Path, *, resume: bool, overwrite: bool) -> dict | None:
+    """The checkpoint of the interrupted run or comparison in ``work`` when it is to be
+    continued; None when there is none, or when ``overwrite`` without ``resume`` discards it.
+
+    Raises
+    ------
+    RunStateError
+        The checkpoint is unreadable; or there is one and neither ``resume`` nor ``overwrite``.
+    """
+    path = work / CHECKPOINT
+    if not path.is_file():
+        return None
+    try:
+        saved = json.loads(path.read_text())
+    except (OSError, ValueError) as exc:
+        raise RunStateError(f"{path}: unreadable ({exc}); pass --overwrite without --resume "
+                            "to start over.") from None
+    if resume:
+        return saved
+    if overwrite:
+        return None
+    of = saved.get("scenario") or ", ".join(p.get("scenario", "?")
+                                             for p in saved.get("plans", []))
+    kind = "comparison" if "plans" in saved else "run"
+    raise RunStateError(f"{work}: holds an interrupted {kind} of {of}; pass --resume to "
+                        "continue it or --overwrite to start over.")
+
+
+def parameter_changes(then: dict, now: dict) -> list[str]:
+    """The parameters (as :func:`gridpop.analysis.summary.parameters` gives them) that differ,
+    as ``"[section] key = old then, new now"``, and the ``[[...]]`` tables that differ."""
+    changed = [f"[{sec}] {key} = {old!r} then, {now[sec].get(key)!r} now"
+               for sec, values in then.items() if isinstance(values, dict)
+               for key, old in values.items() if now.get(sec, {}).get(key) != old]
+    return changed + [f"the [[{sec}]] tables" for sec, values in then.items()
+                      if isinstance(values, list) and now.get(sec) != values]
+
+
+def version_change(saved: dict) -> list[str]:
+    """``["gridpop X then, Y now"]`` when the checkpoint is of another gridpop version."""
+    if saved.get("gridpop_version") == __version__:
+        return []
+    return [f"gridpop {saved.get('gridpop_version')} then, {__version__} now"]
 
 
 def may_continue(work: Path, identity: dict, *, resume: bool, overwrite: bool) -> bool:
@@ -99,20 +146,9 @@ def may_continue(work: Path, identity: dict, *, resume: bool, overwrite: bool) -
         another gridpop version; without ``resume`` or ``overwrite`` when there is an
         interrupted run to lose.
     """
-    path = work / CHECKPOINT
-    if not path.is_file():
+    saved = interrupted(work, resume=resume, overwrite=overwrite)
+    if saved is None:
         return False
-    try:
-        saved = json.loads(path.read_text())
-    except (OSError, ValueError) as exc:
-        raise RunStateError(f"{path}: unreadable ({exc}); pass --overwrite without --resume "
-                            "to start over.") from None
-    if not resume:
-        if overwrite:
-            return False
-        raise RunStateError(
-            f"{work}: holds an interrupted run of {saved.get('scenario')}; pass --resume to "
-            "continue it or --overwrite to start over.")
     scen = identity["scenario"]
     if saved.get("scenario_sha256") != identity["scenario_sha256"]:
         raise RunStateError(
@@ -121,15 +157,8 @@ def may_continue(work: Path, identity: dict, *, resume: bool, overwrite: bool) -
             f"{identity['scenario_sha256'][:12]}... now); --resume continues only the same "
             "scenario. Restore the file, or run without --resume and with --overwrite to start "
             "over.")
-    now, then = identity["parameters"], saved.get("parameters", {})
-    changed = [f"[{sec}] {key} = {old!r} then, {now[sec].get(key)!r} now"
-               for sec, values in then.items() if isinstance(values, dict)
-               for key, old in values.items() if now.get(sec, {}).get(key) != old]
-    changed += [f"the [[{sec}]] tables" for sec, values in then.items()
-                if isinstance(values, list) and now.get(sec) != values]
-    if saved.get("gridpop_version") != identity["gridpop_version"]:
-        changed.append(f"gridpop {saved.get('gridpop_version')} then, "
-                       f"{identity['gridpop_version']} now")
+    changed = (parameter_changes(saved.get("parameters", {}), identity["parameters"])
+               + version_change(saved))
     if changed or saved.get("batches") != identity["batches"]:
         raise RunStateError(
             f"{scen}: the interrupted run in {work} had other settings: "

@@ -117,9 +117,7 @@ def write_connectivity(work: Path, scenario, model: Model, visits) -> list[str]:
 
 
 def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list[str]:
-    """Combine batches and write stacks and tables; remove the batch folders."""
-    import shutil
-
+    """Combine batches and write stacks and tables (the batch folders stay, for a resume)."""
     totals = combine(work, model, parts)
     reps = model.plan.replicates
     grid, mask = model.landscape.grid, model.landscape.mask
@@ -149,5 +147,4 @@ def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list
     for name in list(totals):
         del totals[name]
         (work / f"total_{name}.npy").unlink()
-    shutil.rmtree(work / "batches")
     return files

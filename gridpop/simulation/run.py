@@ -1,5 +1,6 @@
 """A whole run: the model built, its batches of replicates run (in-process or on Dask) and
-checkpointed, combined and written, and the output folder published when complete.
+checkpointed, combined and written, the plots drawn, and the output folder published when
+complete.
 
 The yearly cycle itself is :mod:`gridpop.simulation.cycle`. The unit of work is a *batch* of
 replicates (:mod:`gridpop.simulation.batches`). A batch writes its per-year per-cell sums and
@@ -10,6 +11,7 @@ order, so results do not depend on how batches were scheduled.
 from __future__ import annotations
 
 import contextlib
+import shutil
 import time
 from pathlib import Path
 
@@ -17,10 +19,16 @@ import numba
 
 from .._version import __version__
 from ..errors import RunStateError
-from ..io.results import check_output, prepare_output, publish, working_folder, write_json
+from ..io.results import (
+    CHECKPOINT,
+    check_output,
+    prepare_output,
+    publish_complete,
+    working_folder,
+    write_json,
+)
 from ..landscape import build_landscape
 from .batches import (
-    CHECKPOINT,
     batch_folder,
     discard_unfinished,
     finished_batches,
@@ -36,7 +44,7 @@ from .results import write_results
 
 def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
         workers: int | None = None, scheduler: str | None = None, resume: bool = False,
-        force: bool = False) -> Path:
+        force: bool = False, plots: bool = False) -> Path:
     """Run a scenario and write its results to ``out_dir``; return the output folder.
 
     Batches of replicates are checkpointed in the working folder beside ``out_dir``
@@ -61,6 +69,13 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
         when the scenario file, its parameters or the gridpop version differ.
     force : bool
         Start even when the estimate (:func:`footprint`) exceeds the free memory or disk.
+    plots : bool
+        Draw the figures (:func:`gridpop.report.plots.plot_run`) into ``plots/``.
+
+    Everything, plots included, is written into the working folder; the folder is renamed to
+    ``out_dir`` last, with ``run.json`` (``"complete": true``) written just before
+    (:func:`gridpop.io.results.publish_complete`). A kill at any moment leaves either no
+    ``out_dir`` and a working folder that ``resume`` continues, or the whole result.
 
     Raises
     ------
@@ -139,13 +154,13 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
                 "numba_threads": (numba.get_num_threads() if local
                                   else 1 if workers is not None else None),
                 "resumed_batches": len(finished),
-                "wall_time_s": round(time.time() - started, 3),
             },
-            "complete": True,
         }
-        write_json(work / "run.json", manifest)
-        (work / CHECKPOINT).unlink()
-        publish(work, out_dir)
+        if plots:
+            from ..report.plots import plot_run
+
+            plot_run(work, manifest)
+        shutil.rmtree(work / "batches")
+        manifest["execution"]["wall_time_s"] = round(time.time() - started, 3)
+        publish_complete(work, out_dir, "run.json", manifest)
     return out_dir
-
-
