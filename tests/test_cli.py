@@ -244,3 +244,19 @@ def test_patches_tif_joins_patches_csv(make_scenario, tmp_path):
         mean = np.mean([float(r["abundance"]) for r in rows if int(r["patch"]) == p])
         assert year0[labels == p].sum() == pytest.approx(mean, rel=1e-6)
     assert "patches.tif" in json.loads((out / "run.json").read_text())["files"]
+
+
+def test_interrupted_compare_says_how_to_resume(make_scenario, tmp_path, capsys, monkeypatch):
+    import gridpop.simulation.run as run_module
+
+    def stop(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    a, b = make_scenario(BASE, name="a.toml"), make_scenario(BASE, name="b.toml")
+    out = tmp_path / "cmp"
+    monkeypatch.setattr(run_module, "run_checkpointed_batch", stop)
+    assert run_cli("compare", a, b, "--out", out, "--quiet", "--no-plots", "--years", "3") == 130
+    err = capsys.readouterr().err.strip().splitlines()[-1]
+    partial = tmp_path / ".cmp.partial"
+    assert err == (f"gridpop: interrupted; the finished work is kept in {partial}. "
+                   f"`gridpop compare {a} {b} --out {out} --years 3 --resume` continues it.")
