@@ -31,6 +31,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .errors import where
 from .io.vectors import read_cells
 from .landscape import Landscape, Patches, capacity, label_patches
 from .management import managed_note
@@ -122,7 +123,7 @@ class Actions:
         landscape's.
     notes : tuple of str
         Per action: cells and hectares touched, change in total capacity (at full effect),
-        overlap with earlier actions, how the layer was read; warnings start with ``warning:``.
+        overlap with earlier actions, how the layer was read.
     areas : tuple of (ny, nx) bool ndarray
         Cells of each action's area, in order.
     barrier : (ny, nx) float64 ndarray or None
@@ -132,6 +133,10 @@ class Actions:
         Multiplier on dispersal resistance (corridors < 1); None when every factor is 1.
     ignition_multiplier, spread_multiplier : (ny, nx) float64 ndarray or None
         Multipliers on fire ignition and spread from reserves; None when every factor is 1.
+    no_effect : tuple of str
+        One line per action that cannot change anything, naming its key: an area that does not
+        intersect the grid, a corridor with neither target_suitability nor
+        resistance_multiplier (warned by :func:`gridpop.simulation.pitfalls.pitfalls`).
     """
 
     landscape: Landscape
@@ -141,6 +146,7 @@ class Actions:
     resistance_factor: np.ndarray | None
     ignition_multiplier: np.ndarray | None
     spread_multiplier: np.ndarray | None
+    no_effect: tuple[str, ...] = ()
     _schedule: _Schedule | None = field(default=None, repr=False)
     _last: tuple = field(default=((), None), repr=False)
 
@@ -254,8 +260,21 @@ def apply_actions(scenario, landscape: Landscape) -> Actions:
                                              for c, cells in reserves]),
         spread_multiplier=_product(shape, [(cells, c.spread_multiplier)
                                            for c, cells in reserves]),
+        no_effect=tuple(_no_effect(scenario.path, configs, read)),
         _schedule=schedule if scheduled else None,
     )
+
+
+def _no_effect(file: Path, configs, read) -> list[str]:
+    out = []
+    for c, (_, how, missed) in zip(configs, read, strict=True):
+        if missed:
+            out.append(f"{where(file, c.label, 'area')}: {how}")
+        elif (c.kind == "corridor" and c.target_suitability is None
+              and c.resistance_multiplier == 1):
+            out.append(f"{where(file, c.label)}: neither target_suitability nor "
+                       "resistance_multiplier is set, so the corridor has no effect")
+    return out
 
 
 def _notes(configs, read, changes, base: Landscape, habitat, reserved) -> list[str]:
@@ -282,9 +301,6 @@ def _notes(configs, read, changes, base: Landscape, habitat, reserved) -> list[s
         elif c.kind == "corridor":
             if c.resistance_multiplier != 1:
                 parts.append(f"dispersal resistance x{c.resistance_multiplier:g}")
-            if c.target_suitability is None and c.resistance_multiplier == 1:
-                parts.append("warning: neither target_suitability nor resistance_multiplier "
-                             "is set, the corridor has no effect")
         elif c.kind == "barrier":
             parts.append(f"crossing mortality {c.crossing_mortality:g}"
                          + (" (impassable)" if c.crossing_mortality == 1 else ""))

@@ -30,14 +30,15 @@ def _out_dir(args, scenario) -> Path:
 
 def cmd_check(args) -> int:
     from .landscape import build_landscape
-    from .simulation.check import describe
+    from .simulation.check import describe, merged_lines, runtime_line
     from .simulation.model import build_model
     from .simulation.resources import footprint_lines
 
     scenario = _scenario_with_overrides(args)
     model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
     print("\n".join(describe(scenario, model)
-                    + footprint_lines(scenario, model, _out_dir(args, scenario))))
+                    + footprint_lines(scenario, model, _out_dir(args, scenario))
+                    + [runtime_line(model)] + merged_lines(scenario)))
     return 0
 
 
@@ -47,12 +48,37 @@ def cmd_run(args) -> int:
     scenario = _scenario_with_overrides(args)
     out = _out_dir(args, scenario)
     show = not args.quiet and sys.stderr.isatty()
-    run(scenario, out, overwrite=args.overwrite, progress=show, workers=args.workers,
-        scheduler=args.scheduler, resume=args.resume, force=args.force,
-        plots=not args.no_plots)
+    try:
+        run(scenario, out, overwrite=args.overwrite, progress=show, workers=args.workers,
+            scheduler=args.scheduler, resume=args.resume, force=args.force,
+            plots=not args.no_plots)
+    except KeyboardInterrupt:
+        return _interrupted(args, ["run", args.scenario], out)
     if not args.quiet:
+        import json
+
+        from .analysis.summary import headline
+
+        print(headline(json.loads((out / "summary.json").read_text())))
         print(f"results written to {out}")
     return 0
+
+
+def _interrupted(args, command: list[str], out: Path) -> int:
+    """Say where the work of an interrupted run or comparison is kept and the command that
+    continues it (exit code 130, as for any Ctrl-C)."""
+    from .io.results import working_folder
+
+    partial = working_folder(Path(out))
+    if not partial.is_dir():
+        print("gridpop: interrupted", file=sys.stderr)
+        return 130
+    again = ["gridpop", *command, "--out", str(out)]
+    again += [f"--{k} {getattr(args, k)}" for k in ("years", "replicates", "seed")
+              if getattr(args, k) is not None]
+    print(f"gridpop: interrupted; the finished work is kept in {partial}. "
+          f"`{' '.join(again)} --resume` continues it.", file=sys.stderr)
+    return 130
 
 
 def cmd_compare(args) -> int:
@@ -62,9 +88,12 @@ def cmd_compare(args) -> int:
 
     scenarios = [_scenario_with_overrides(args, path) for path in args.scenarios]
     show = not args.quiet and sys.stderr.isatty()
-    out = compare(scenarios, args.out, overwrite=args.overwrite, progress=show,
-                  plots=not args.no_plots, workers=args.workers, scheduler=args.scheduler,
-                  resume=args.resume, force=args.force)
+    try:
+        out = compare(scenarios, args.out, overwrite=args.overwrite, progress=show,
+                      plots=not args.no_plots, workers=args.workers,
+                      scheduler=args.scheduler, resume=args.resume, force=args.force)
+    except KeyboardInterrupt:
+        return _interrupted(args, ["compare", *args.scenarios], args.out)
     if not args.quiet:
         print(table(json.loads((out / "comparison.json").read_text())))
         print(f"results written to {out}")

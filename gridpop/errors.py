@@ -29,6 +29,13 @@ class RunStateError(GridpopError, RuntimeError):
     """A run cannot be started or resumed (changed scenario, no room, unreachable cluster)."""
 
 
+class ScenarioWarning(UserWarning):
+    """A scenario that runs but is probably not what the user meant (a capacity of a few
+    individuals per cell, a population that starts below the quasi-extinction threshold, an
+    action area off the grid, keys the dispersal method ignores). The command line prints one
+    line per warning on stderr, for ``check`` and ``run`` alike."""
+
+
 def where(file, section: str | None = None, key: str | None = None) -> str:
     """Format the location part of a message: ``file: [section] key``."""
     loc = str(file)

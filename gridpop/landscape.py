@@ -163,8 +163,10 @@ def _in_range(suit: np.ndarray, mask: np.ndarray, loc: str) -> np.ndarray:
     more than round-off are an error."""
     lo, hi = suit[mask].min(), suit[mask].max()
     if lo < -SUITABILITY_TOLERANCE or hi > 1 + SUITABILITY_TOLERANCE:
+        hint = (" They look like percentages: divide the raster by 100."
+                if lo >= 0 and hi <= 100 else "")
         raise InputDataError(f"{loc}: values must lie in 0..1 (nodata or NaN outside the study "
-                             f"area); found min {lo:g}, max {hi:g}.")
+                             f"area); found min {lo:g}, max {hi:g}.{hint}")
     return np.where(mask, np.clip(suit, 0.0, 1.0), np.nan)
 
 

@@ -224,7 +224,9 @@ def test_area_outside_grid_warns_with_both_bounds(make_scenario, tmp_path):
     tables = f'[[action]]\nkind = "reserve"\narea = "{far}"\ncapacity_multiplier = 2.0\n'
     _, base, actions = setup(make_scenario, tables)
     (note,) = actions.notes
-    assert note.startswith("[action #1 (reserve)] far.gpkg: warning:")
+    assert note.startswith("[action #1 (reserve)] far.gpkg: far.gpkg does not intersect the grid")
+    assert actions.no_effect == (f"{tmp_path / 'scenario.toml'}: [action #1 (reserve)] area: "
+                                 f"{note.split(': ', 1)[1]}",)
     area_part, grid_part = note.split("grid bounds")
     numbers = [{float(x) for x in re.findall(r"-?\d+(?:\.\d+)?(?:e[+-]\d+)?", part)}
                for part in (area_part.split("grid CRS")[1], grid_part)]

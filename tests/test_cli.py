@@ -170,3 +170,93 @@ def test_bad_input_exit_2_nothing_written(make_scenario, tmp_path, capsys, edit,
     assert str(scen) in err or "scenario" in err
     assert not out.exists()
     assert not (tmp_path / ".res.partial").exists()
+
+
+def test_run_ends_with_a_headline_matching_summary(make_scenario, tmp_path, capsys):
+    """The last lines of run: the risk by the horizon with its interval and the final median
+    abundance, the same numbers as summary.json."""
+    out = tmp_path / "res"
+    assert run_cli("run", make_scenario(BASE), "--out", out, "--no-plots",
+                   "--replicates", "6") == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert lines[-1] == f"results written to {out}"
+    s = json.loads((out / "summary.json").read_text())
+    r = s["risk"]
+    median = s["final_abundance"]["p50"]
+    median_text = f"{median:,.0f}" if median == round(median) else f"{median:,.1f}"
+    assert lines[-2] == (
+        f"risk of falling below 10 individuals by year 5: {r['ever_below'][5]:.3f} "
+        f"[{r['ever_below_lo'][5]:.3f}, {r['ever_below_hi'][5]:.3f}] (95 % interval); "
+        f"final median abundance {median_text}")
+    finals = [float(x["abundance"]) for x in read_rows(out / "timeseries.csv")
+              if x["year"] == "5"]
+    assert median == float(np.median(finals))
+
+
+def test_interrupted_run_says_how_to_resume(make_scenario, tmp_path, capsys, monkeypatch):
+    import gridpop.simulation.run as run_module
+
+    real = run_module.run_checkpointed_batch
+
+    def stop_at_second(model, b, *args, **kwargs):
+        if b == 1:
+            raise KeyboardInterrupt
+        return real(model, b, *args, **kwargs)
+
+    scen = make_scenario(BASE.replace("seed = 11", "seed = 11\nbatch_size = 2"))
+    out = tmp_path / "res"
+    monkeypatch.setattr(run_module, "run_checkpointed_batch", stop_at_second)
+    assert run_cli("run", scen, "--out", out, "--quiet", "--no-plots", "--replicates", "4",
+                   "--seed", "3") == 130
+    err = capsys.readouterr().err.strip().splitlines()[-1]
+    partial = tmp_path / ".res.partial"
+    assert err == (f"gridpop: interrupted; the finished work is kept in {partial}. "
+                   f"`gridpop run {scen} --out {out} --replicates 4 --seed 3 --resume` "
+                   "continues it.")
+    monkeypatch.setattr(run_module, "run_checkpointed_batch", real)
+    assert run_cli("run", scen, "--out", out, "--quiet", "--no-plots", "--replicates", "4",
+                   "--seed", "3", "--resume") == 0
+    assert json.loads((out / "run.json").read_text())["execution"]["resumed_batches"] == 1
+
+
+def test_progress_bar_names_the_plan(make_scenario, tmp_path, capsys):
+    from gridpop import load_scenario, run
+
+    run(load_scenario(make_scenario(BASE, name="reserve_north.toml")), tmp_path / "res",
+        progress=True)
+    assert "gridpop run reserve_north" in capsys.readouterr().err
+
+
+def test_patches_tif_joins_patches_csv(make_scenario, tmp_path):
+    """patches.tif holds the patch numbers of patches.csv: the year-0 abundance of each patch in
+    patches.csv (mean over replicates) is the sum of abundance.tif band 1 over its cells."""
+    out = tmp_path / "res"
+    assert run_cli("run", make_scenario(BASE), "--out", out, "--quiet", "--no-plots") == 0
+    with rasterio.open(out / "patches.tif") as src:
+        labels = src.read(1)
+        assert src.dtypes[0] == "int32" and src.nodata == -9999
+    with rasterio.open(out / "abundance.tif") as src:
+        year0 = src.read(1, masked=True).filled(0.0).astype(np.float64)
+    rows = [r for r in read_rows(out / "patches.csv") if r["year"] == "0"]
+    patches = sorted({int(r["patch"]) for r in rows})
+    assert patches == sorted(set(np.unique(labels)) - {0, -9999})
+    for p in patches:
+        mean = np.mean([float(r["abundance"]) for r in rows if int(r["patch"]) == p])
+        assert year0[labels == p].sum() == pytest.approx(mean, rel=1e-6)
+    assert "patches.tif" in json.loads((out / "run.json").read_text())["files"]
+
+
+def test_interrupted_compare_says_how_to_resume(make_scenario, tmp_path, capsys, monkeypatch):
+    import gridpop.simulation.run as run_module
+
+    def stop(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    a, b = make_scenario(BASE, name="a.toml"), make_scenario(BASE, name="b.toml")
+    out = tmp_path / "cmp"
+    monkeypatch.setattr(run_module, "run_checkpointed_batch", stop)
+    assert run_cli("compare", a, b, "--out", out, "--quiet", "--no-plots", "--years", "3") == 130
+    err = capsys.readouterr().err.strip().splitlines()[-1]
+    partial = tmp_path / ".cmp.partial"
+    assert err == (f"gridpop: interrupted; the finished work is kept in {partial}. "
+                   f"`gridpop compare {a} {b} --out {out} --years 3 --resume` continues it.")

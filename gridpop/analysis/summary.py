@@ -183,11 +183,12 @@ def _capacity(scenario, model, notes: list[str]) -> dict | None:
 
 
 def parameters(scenario) -> dict:
-    """The scenario as read: every section, then the ``[[disturbance]]`` and ``[[action]]``
-    tables as lists; paths as absolute path strings."""
+    """The scenario as read: every section (``[plan] extends`` left out), then the
+    ``[[disturbance]]`` and ``[[action]]`` tables as lists; paths as absolute path strings."""
     out: dict[str, Any] = {name: dataclasses.asdict(getattr(scenario, name))
                            for name in SECTIONS if getattr(scenario, name) is not None
                            and (name != "sex" or scenario.stages is not None)}
+    del out["plan"]["extends"]  # how the file is written, not a parameter: merged in already
     out["disturbance"] = [dataclasses.asdict(c) for c in scenario.disturbances]
     out["action"] = [dataclasses.asdict(c) for c in scenario.actions]
     return json.loads(json.dumps(out, default=str))
@@ -243,6 +244,20 @@ def summarise(scenario, model, ledger: np.ndarray, focus_abundance: np.ndarray |
                else None,
                parameters=parameters(scenario), plan=plan(scenario), cautions=CAUTIONS)
     return out
+
+
+def _count(v: float) -> str:
+    return f"{v:,.0f}" if v == round(v) else f"{v:,.1f}"
+
+
+def headline(summary: dict) -> str:
+    """One line from a run's summary.json: the risk by the horizon with its interval and the
+    final median abundance (what ``gridpop run`` prints at its end)."""
+    r = summary["risk"]
+    return (f"risk of falling below {_count(summary['quasi_extinction'])} individuals by year "
+            f"{summary['years']}: {r['ever_below'][-1]:.3f} [{r['ever_below_lo'][-1]:.3f}, "
+            f"{r['ever_below_hi'][-1]:.3f}] ({100 * summary['confidence']:g} % interval); final "
+            f"median abundance {_count(summary['final_abundance']['p50'])}")
 
 
 def _write_csv(path: Path, header, rows) -> None:

@@ -28,7 +28,7 @@ from .kinds import (
     ReserveConfig,
     RestorationConfig,
 )
-from .load import Scenario, load_scenario
+from .load import Scenario, load_scenario, merged_toml
 from .parameters import apply_parameters, check_parameters, load_study
 from .schema import REQUIRED, Key, Trend
 from .sections import (
@@ -37,12 +37,14 @@ from .sections import (
     DISPERSAL_METHODS,
     EDGES,
     GROWTH_MODELS,
+    KERNEL_KEYS,
     KERNELS,
     OUTPUT_RASTERS,
     RESPONSES,
     SECTIONS,
     SEX_SYSTEMS,
     SURVIVORSHIPS,
+    WALK_KEYS,
     Change,
     DensityActsOn,
     DispersalConfig,
@@ -80,8 +82,8 @@ from .uncertainty import (
 __all__ = [
     "ACTION_KINDS", "ARRAY_SECTIONS", "CHANGES", "DENSITY_ACTS_ON", "DESIGNS",
     "DISPERSAL_METHODS", "DISTRIBUTIONS", "DISTURBANCE_KINDS", "EDGES", "FIRE_SIZES",
-    "GROWTH_MODELS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED", "RESPONSES",
-    "SECTIONS", "SEX_SYSTEMS", "SURVIVORSHIPS",
+    "GROWTH_MODELS", "KERNEL_KEYS", "KERNELS", "OUTPUT_RASTERS", "RECOVERY", "REQUIRED",
+    "RESPONSES", "SECTIONS", "SEX_SYSTEMS", "SURVIVORSHIPS", "WALK_KEYS",
     "ActionConfig", "BarrierConfig", "Change", "CorridorConfig", "DensityActsOn", "Design",
     "DispersalConfig", "DispersalFuture", "DispersalMethod", "Distribution", "DisturbanceConfig",
     "Edge", "FireConfig", "FireSize", "FloodConfig", "GridConfig", "GrowthConfig", "GrowthModel",
@@ -89,6 +91,6 @@ __all__ = [
     "OutputConfig", "OutputRaster", "ParameterRange", "PlanConfig", "Recovery", "ReserveConfig",
     "RestorationConfig", "Response", "RiskConfig", "RunConfig", "Scenario", "SexConfig",
     "SexSystem", "StagesConfig", "Survivorship", "Trend", "UncertaintyConfig",
-    "apply_parameters", "check_parameters", "load_scenario", "load_study", "parse_uncertainty",
-    "reference_markdown", "template_toml",
+    "apply_parameters", "check_parameters", "load_scenario", "load_study", "merged_toml",
+    "parse_uncertainty", "reference_markdown", "template_toml",
 ]

@@ -11,12 +11,15 @@ import dataclasses
 import difflib
 import hashlib
 import math
+import os
 import re
 import tomllib
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
+
+import tomli_w
 
 from .. import matrices
 from ..errors import ScenarioError, where
@@ -90,7 +93,7 @@ class Scenario:
 def _resolve_path(file: Path, section: str, key: str, value: str) -> Path:
     p = Path(value).expanduser()
     if not p.is_absolute():
-        p = file.parent / p
+        p = Path(os.path.normpath(file.parent / p))
     if not p.exists():
         raise ScenarioError(f"{where(file, section, key)} = {value!r}: file not found "
                             f"(looked for {p}).")
@@ -382,23 +385,95 @@ def parse_tables(file: Path, name: str, raw: object) -> tuple[Any, ...]:
     return tuple(out)
 
 
-def load_scenario(path: str | Path) -> Scenario:
-    """Read, validate and resolve a scenario TOML file.
-
-    Raises
-    ------
-    ScenarioError
-        For a missing or unparsable file, an unknown section or key (with a suggestion), a value
-        of the wrong type or out of range, or a missing required key.
-    """
-    file = Path(path).expanduser().resolve()
+def _read_toml(file: Path) -> tuple[dict[str, Any], bytes]:
     if not file.is_file():
-        raise ScenarioError(f"{path}: scenario file not found.")
-    raw_bytes = file.read_bytes()
+        raise ScenarioError(f"{file}: scenario file not found.")
+    data = file.read_bytes()
     try:
-        raw = tomllib.loads(raw_bytes.decode("utf-8"))
+        return tomllib.loads(data.decode("utf-8")), data
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ScenarioError(f"{file}: not a valid TOML file: {exc}") from None
+
+
+def _path_keys(section: str, table: dict) -> list[str]:
+    """Names of the path keys of a table (of ``[[section]]`` tables: of the table's kind)."""
+    if section in SECTIONS:
+        keys = SECTIONS[section][1]
+    elif section in ARRAY_SECTIONS and table.get("kind") in ARRAY_SECTIONS[section][1]:
+        keys = ARRAY_SECTIONS[section][1][table["kind"]][1]
+    else:
+        return []
+    return [k.name for k in keys if k.type in ("path", "pathlist")]
+
+
+def _rebased(raw: dict[str, Any], source: Path, target: Path) -> dict[str, Any]:
+    """``raw`` with its relative paths rewritten from relative to folder ``source`` to relative
+    to folder ``target`` (the same files)."""
+    if source == target:
+        return raw
+
+    def move(v: object) -> object:
+        if isinstance(v, str) and v and not Path(v).expanduser().is_absolute():
+            return os.path.relpath(source / v, target)
+        if isinstance(v, list):
+            return [move(x) for x in v]
+        return v
+
+    def table(section: str, t: object) -> object:
+        if not isinstance(t, dict):
+            return t
+        paths = _path_keys(section, t)
+        return {k: move(v) if k in paths else v for k, v in t.items()}
+
+    return {name: ([table(name, t) for t in value] if isinstance(value, list)
+                   else table(name, value)) for name, value in raw.items()}
+
+
+def _merge(base: dict[str, Any], top: dict[str, Any]) -> dict[str, Any]:
+    """``top`` on ``base``: tables merged key by key (``top`` wins), arrays of tables appended."""
+    out = dict(base)
+    for name, value in top.items():
+        below = base.get(name)
+        if isinstance(below, list) and isinstance(value, list):
+            out[name] = [*below, *value]
+        elif isinstance(below, dict) and isinstance(value, dict):
+            out[name] = {**below, **value}
+        else:
+            out[name] = value
+    return out
+
+
+def _raw_scenario(file: Path, seen: tuple[Path, ...] = ()) -> tuple[dict[str, Any], list[bytes]]:
+    """The TOML content of a scenario file with its ``[plan] extends`` chain merged in (paths
+    relative to ``file``), and the bytes of every file of the chain, ``file`` first. Each base
+    is validated on its own first, so that its errors name it."""
+    raw, data = _read_toml(file)
+    plan = raw.get("plan")
+    extends = plan.get("extends") if isinstance(plan, dict) else None
+    if extends is None:
+        return raw, [data]
+    key = next(k for k in SECTIONS["plan"][1] if k.name == "extends")
+    base = _resolve_path(file, "plan", "extends",
+                         str(check_value(file, "plan", key, extends))).resolve()
+    if base == file or base in seen:
+        raise ScenarioError(f"{where(file, 'plan', 'extends')} = {extends!r}: {base.name} "
+                            f"extends {file.name} in turn; a chain of extends must end in a "
+                            "scenario without one.")
+    below, chunks = _raw_scenario(base, (*seen, file))
+    _scenario_of(base, below, chunks)
+    return _merge(_rebased(below, base.parent, file.parent), raw), [data, *chunks]
+
+
+def merged_toml(path: str | Path) -> str:
+    """The scenario a file with ``[plan] extends`` stands for, as one TOML text with paths
+    relative to it (what ``gridpop check`` prints): a file that loads to the same scenario."""
+    raw, _ = _raw_scenario(Path(path).expanduser().resolve())
+    raw = {name: ({k: v for k, v in value.items() if k != "extends"} if name == "plan"
+                  else value) for name, value in raw.items()}
+    return tomli_w.dumps(raw)
+
+
+def _scenario_of(file: Path, raw: dict[str, Any], chunks: list[bytes]) -> Scenario:
     known = list(SECTIONS) + list(ARRAY_SECTIONS) + [UNCERTAINTY]
     for name in raw:
         if name not in known:
@@ -418,7 +493,9 @@ def load_scenario(path: str | Path) -> Scenario:
         raw["growth"] = {**raw["growth"], "rate": 0.0}  # replaced from the matrix below
     sections: dict[str, Any] = {name: parse_section(file, name, raw.get(name, {}))
                                 for name in SECTIONS if name != "stages" or name in raw}
-    scenario = Scenario(path=file, sha256=hashlib.sha256(raw_bytes).hexdigest(), **sections)
+    digest = (hashlib.sha256(chunks[0]) if len(chunks) == 1 else
+              hashlib.sha256(b"".join(hashlib.sha256(c).digest() for c in chunks)))
+    scenario = Scenario(path=file, sha256=digest.hexdigest(), **sections)
     scenario = cross_checks(file, scenario)
     scenario = dataclasses.replace(
         scenario, disturbances=parse_tables(file, "disturbance", raw.get("disturbance", [])),
@@ -442,3 +519,25 @@ def _managed_stages(file: Path, s: Scenario) -> None:
             raise ScenarioError(f"{where(file, c.label, 'stage')} = {c.stage!r} is not a stage"
                                 + (f"; the stages are {', '.join(names)}." if names else
                                    " (no [stages] section: leave stage out)."))
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Read, validate and resolve a scenario TOML file, with the scenarios it extends
+    (``[plan] extends``: tables merged key by key, ``[[disturbance]]`` and ``[[action]]``
+    appended to the base's).
+
+    ``Scenario.sha256`` is the hash of the file, or with ``extends`` of the hashes of every file
+    of the chain.
+
+    Raises
+    ------
+    ScenarioError
+        For a missing or unparsable file, an unknown section or key (with a suggestion), a value
+        of the wrong type or out of range, a missing required key, or a chain of extends that
+        comes back to a file.
+    """
+    file = Path(path).expanduser().resolve()
+    if not file.is_file():
+        raise ScenarioError(f"{path}: scenario file not found.")
+    raw, chunks = _raw_scenario(file)
+    return _scenario_of(file, raw, chunks)

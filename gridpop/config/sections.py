@@ -253,6 +253,14 @@ class DispersalConfig:
                                               "says); needs resistance.")
 
 
+KERNEL_KEYS = ("kernel", "mean_distance_m", "tail", "max_distance_m", "edge")
+"""[dispersal] keys that only the kernel method reads."""
+
+WALK_KEYS = ("resistance", "resistance_max", "resistance_shape", "walk_length",
+             "death_per_resistance", "settle_exponent", "heading_bias")
+"""[dispersal] keys that only the walk method reads."""
+
+
 @dataclass(frozen=True, kw_only=True)
 class OutputConfig:
     """What to write."""
@@ -288,6 +296,11 @@ class PlanConfig:
 
     description: str = key("", doc="One line on the plan (e.g. \"two corridors between the north "
                            "blocks\").")
+    extends: Path | None = key(None, doc="Base scenario this file adds to or changes: its "
+                               "tables are merged key by key (this file's values win) and its "
+                               "[[disturbance]] and [[action]] lists come first, this file's "
+                               "appended. Paths in each file are relative to that file.",
+                               example="base.toml")
 
 
 SectionConfig = (RunConfig | GridConfig | HabitatConfig | InitialConfig | GrowthConfig

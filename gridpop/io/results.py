@@ -128,6 +128,16 @@ def write_stack(path: Path, grid, mask: np.ndarray, bands, labels) -> None:
             dst.set_band_description(k, label)
 
 
+def write_patches(path: Path, grid, mask: np.ndarray, labels: np.ndarray) -> None:
+    """Write the patch number of each cell (0 = in no patch) as an int32 GeoTIFF, nodata
+    -9999 outside the study area: the key of ``patch`` in patches.csv and the other tables."""
+    profile = {**stack_profile(grid, 1), "dtype": "int32", "predictor": 2}
+    data = np.where(mask, labels, int(NODATA)).astype(np.int32)
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(data, 1)
+        dst.set_band_description(1, "patch number (0 = no patch)")
+
+
 def year_labels(years: int) -> list[str]:
     return [f"year {t}" for t in range(years + 1)]
 

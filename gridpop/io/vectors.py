@@ -243,7 +243,7 @@ def read_cells(path: Path, grid: Grid, *, file: Path, section: str, key: str,
         g = grid.bounds
         if not (b[0] < g[2] and b[2] > g[0] and b[1] < g[3] and b[3] > g[1]):
             return (np.zeros(grid.shape, bool),
-                    f"warning: {path.name} does not intersect the grid and has no effect. Its "
+                    f"{path.name} does not intersect the grid and has no effect. Its "
                     f"bounds in the grid CRS {fmt_bounds(b)}, grid bounds {fmt_bounds(g)} "
                     f"({crs_name(grid.crs)})", True)
     if raster:

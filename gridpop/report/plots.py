@@ -24,7 +24,6 @@ schemes for maps. The Cartographic Journal 40, 27-37.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import math
 import textwrap
@@ -320,12 +319,13 @@ def plan_cells(plan: Plan) -> PlanCells | None:
     why = None
     if not path.is_file():
         why = "is missing"
-    elif hashlib.sha256(path.read_bytes()).hexdigest() != plan.manifest.get("scenario_sha256"):
-        why = "has changed since the run"
     else:
-        try:
+        try:  # the hash covers the scenarios it extends (gridpop.config.load_scenario)
             scenario = load_scenario(path)
-            actions = apply_actions(scenario, build_landscape(scenario, stochastic=False))
+            if scenario.sha256 != plan.manifest.get("scenario_sha256"):
+                why = "has changed since the run"
+            else:
+                actions = apply_actions(scenario, build_landscape(scenario, stochastic=False))
         except GridpopError as exc:
             why = f"cannot be rebuilt ({exc})"
     if why is not None:

@@ -3,12 +3,19 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
+import tempfile
+import time
+from pathlib import Path
 
 import numpy as np
 
 from .. import matrices
-from .model import Model
+from ..config import merged_toml
+from .batches import run_batch
+from .cycle import BatchSink, Replicate
+from .model import Model, RunPlan
 
 
 def describe(scenario, model: Model) -> list[str]:
@@ -110,3 +117,54 @@ def _through_time(scenario, model: Model) -> list[str]:
             line += f"; with this plan's actions {with_plan:,.1f} ({with_plan - alone:+,.1f})"
         lines.append(line)
     return lines
+
+
+def merged_lines(scenario) -> list[str]:
+    """With ``[plan] extends``: the merged scenario as one TOML file, indented (the last part
+    of ``gridpop check``); otherwise nothing."""
+    if scenario.plan.extends is None:
+        return []
+    return ([f"extends {scenario.plan.extends.name}: the merged scenario, as one file (tables "
+             "merged key by key, [[disturbance]] and [[action]] appended):"]
+            + [f"  {line}" if line else "" for line in merged_toml(scenario.path).splitlines()])
+
+
+PROBE_SECONDS = 3.0
+"""How long the run-time probe of ``gridpop check`` runs years of replicate 0 (at least one
+year, at most all of them)."""
+
+
+def _duration(seconds: float) -> str:
+    if seconds < 90:
+        return f"{max(seconds, 1):.0f} s"
+    if seconds < 90 * 60:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
+def runtime_line(model: Model) -> str:
+    """An estimate of the run time from a probe: years of replicate 0 of the scenario itself,
+    run in this process for about :data:`PROBE_SECONDS` (after a one-year warm-up that loads or
+    compiles the kernels), the time per year scaled to every year and replicate. Nothing is
+    written but a temporary folder."""
+    plan = model.plan
+    one = dataclasses.replace(model, plan=RunPlan(plan.years, 1, plan.seed, 1))
+    with tempfile.TemporaryDirectory(prefix="gridpop-probe-") as tmp:
+        run_batch(dataclasses.replace(model, plan=RunPlan(1, 1, plan.seed, 1)), range(1),
+                  Path(tmp) / "warm-up")
+        sink = BatchSink(Path(tmp) / "probe", one, range(1))
+        replicate = Replicate(one, 0, sink.ledger[0])
+        start = time.perf_counter()
+        replicate.start(sink)
+        years = 0
+        while years < plan.years and (years == 0
+                                      or time.perf_counter() - start < PROBE_SECONDS):
+            years += 1
+            replicate.advance(years, sink)
+        took = time.perf_counter() - start
+        del sink, replicate  # release the memory-mapped files before the folder goes
+    total = took / years * plan.years * plan.replicates
+    return (f"estimated run time: about {_duration(total)} in this process (a probe ran "
+            f"{years} year{'s' if years > 1 else ''} of replicate 0 in {took:.2g} s; x "
+            f"{plan.years} years x {plan.replicates} replicates; writing the results not "
+            "counted; the first years may cost more or less than later ones)")

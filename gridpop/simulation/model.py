@@ -40,6 +40,7 @@ from ..movement.walk import (
 )
 from ..stages import StageRates, one_stage, split_initial, stage_rates
 from ..timeline import Source, Timeline, read_layer
+from .pitfalls import warn
 
 
 @dataclass(frozen=True)
@@ -209,7 +210,9 @@ class Model:
 
 def build_model(scenario, base: Landscape) -> Model:
     """Apply the scenario's actions to its base landscape and convert its user units (metres,
-    hectares, years) to cell units on the grid: the one place where this happens."""
+    hectares, years) to cell units on the grid: the one place where this happens. Warns
+    (:class:`gridpop.errors.ScenarioWarning`) where the model is probably not what the user
+    meant (:mod:`gridpop.simulation.pitfalls`)."""
     actions = apply_actions(scenario, base)
     landscape = actions.landscape
     g, d, grid = scenario.growth, scenario.dispersal, landscape.grid
@@ -244,7 +247,7 @@ def build_model(scenario, base: Landscape) -> Model:
     r = scenario.run
     rates = GrowthRates(MODEL_CODES[g.model], g.rate, g.survival, g.theta,
                         g.allee_density * grid.cell_area_ha, g.stochastic)
-    return Model(
+    model = Model(
         plan=RunPlan(r.years, r.replicates, r.seed, r.batch_size),
         growth=Growth(rates, env, life),
         movement=movement,
@@ -256,6 +259,8 @@ def build_model(scenario, base: Landscape) -> Model:
         actions=actions, regime=build_regime(scenario, landscape, actions),
         management=build_management(scenario, grid, actions.areas, labels, n_patches),
     )
+    warn(scenario, model)
+    return model
 
 
 def _life_history(scenario, initial: np.ndarray) -> LifeHistory:

@@ -13,7 +13,14 @@ import numpy as np
 
 from ..analysis.summary import write_summary
 from ..config import OUTPUT_RASTERS
-from ..io.results import write_events_csv, write_json, write_ledger_csv, write_stack, year_labels
+from ..io.results import (
+    write_events_csv,
+    write_json,
+    write_ledger_csv,
+    write_patches,
+    write_stack,
+    year_labels,
+)
 from ..movement.connectivity import corridor_share
 from .model import Model
 
@@ -138,6 +145,8 @@ def write_results(work: Path, scenario, model: Model, parts: list[Path]) -> list
         files.append("capacity.tif")
     if model.walk is not None:
         files += write_connectivity(work, scenario, model, totals["visits"])
+    write_patches(work / "patches.tif", grid, mask, model.census.labels)
+    files.append("patches.tif")
     ledger = np.concatenate([np.load(p / "ledger.npy") for p in parts], axis=0)
     extra = tuple(model.ledger_columns)
     write_ledger_csv(work / "timeseries.csv", ledger[:, :, 0, :], integers=model.growth.stochastic,

@@ -123,7 +123,8 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
             todo = [(b, reps) for b, reps in enumerate(plan) if b not in finished]
             with tqdm(total=model.plan.replicates,
                       initial=model.plan.replicates - sum(len(r) for _, r in todo),
-                      unit="replicate", disable=not progress, desc="gridpop run") as bar:
+                      unit="replicate", disable=not progress,
+                      desc=f"gridpop run {scenario.path.stem}") as bar:
                 if local:
                     for b, reps in todo:
                         run_checkpointed_batch(model, b, reps, work, bar)
