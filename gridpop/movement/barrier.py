@@ -179,7 +179,7 @@ def _across_kernel(d, cells, gptr, gids, regions, node, labels, settle, survival
     rx = (xmap.size - nx) // 2
     crossed = np.zeros(ny * nx, np.int64)
     touched = np.empty(ny * nx, np.int64)
-    entry, count = entry_buffers(cond, multinomial_min)
+    entry, count = entry_buffers(cond)
     n_nodes = survival.shape[1]
     tables = np.empty((n_nodes, rng.BERNOULLI_MAX + 1, rng.BERNOULLI_MAX))
     for b in range(gids.size):
@@ -194,11 +194,12 @@ def _across_kernel(d, cells, gptr, gids, regions, node, labels, settle, survival
             n_land = draw_cell(np.int64(d[i, j]), rng.cell_key(key, c), cond, threshold, alias,
                                multinomial_min, entry, count)
             for e in range(n_land):
+                cnt = count[entry[e]]
+                count[entry[e]] = 0
                 y = ymap[i + offsets[entry[e], 0] + ry]
                 x = xmap[j + offsets[entry[e], 1] + rx]
                 if y < 0 or x < 0:
                     continue
-                cnt = count[e]
                 if regions[y, x] == r:
                     arrivals[y, x] += cnt
                     if y == i and x == j:

@@ -61,19 +61,19 @@ def _land(i, j, k, cnt, offsets, ymap, xmap, settle, labels, lab, arrivals):
 
 
 @njit
-def entry_buffers(cond, multinomial_min):
-    """Two int64 buffers long enough for the (entry, count) pairs of :func:`draw_cell`."""
-    size = cond.size + int(multinomial_min) + 1
-    return np.empty(size, np.int64), np.empty(size, np.int64)
+def entry_buffers(cond):
+    """The buffers of :func:`draw_cell` for a stencil of ``cond.size`` entries: the entries
+    reached, and a count per entry (zeros)."""
+    return np.empty(cond.size, np.int64), np.zeros(cond.size, np.int64)
 
 
 @njit
 def draw_cell(n, ck, cond, threshold, alias, multinomial_min, entry, count):
-    """Where the n dispersers of one cell go: stencil entries ``entry[:m]`` receiving
-    ``count[:m]`` of them (each > 0); returns m. From the cell key ``ck``: with
-    ``n >= multinomial_min`` one multinomial over the stencil (sequential binomials
-    ``Binomial(remaining, cond[k])`` on ``cell_key(ck, k)``), otherwise disperser t by
-    ``uniform(ck, t)`` through the alias table. ``entry``, ``count``: from
+    """Where the n dispersers of one cell go: ``count[entry[e]] > 0`` of them land at stencil
+    entry ``entry[e]``, e < m; returns m. The caller sets those counts back to 0. From the cell
+    key ``ck``: with ``n >= multinomial_min`` one multinomial over the stencil (sequential
+    binomials ``Binomial(remaining, cond[k])`` on ``cell_key(ck, k)``), otherwise disperser t
+    by ``uniform(ck, t)`` through the alias table. ``entry``, ``count``: from
     :func:`entry_buffers`."""
     m = 0
     if n >= multinomial_min:
@@ -84,13 +84,15 @@ def draw_cell(n, ck, cond, threshold, alias, multinomial_min, entry, count):
             if cnt > 0:
                 n -= cnt
                 entry[m] = k
-                count[m] = cnt
+                count[k] = cnt
                 m += 1
     else:
         for t in range(n):
-            entry[m] = _alias_draw(threshold, alias, rng.uniform(ck, t))
-            count[m] = 1
-            m += 1
+            k = _alias_draw(threshold, alias, rng.uniform(ck, t))
+            if count[k] == 0:
+                entry[m] = k
+                m += 1
+            count[k] += 1
     return m
 
 
@@ -101,7 +103,7 @@ def _disperse_rows(dispersers, settle, labels, offsets, threshold, alias, cond, 
     ``stayed`` written, and per patch of origin the number landing in a settle cell of the
     patch (``ret[p, 0]``) and in any settle cell (``ret[p, 1]``)."""
     nx = dispersers.shape[1]
-    entry, count = entry_buffers(cond, multinomial_min)
+    entry, count = entry_buffers(cond)
     for i in range(r0, r1):
         for j in range(nx):
             n = np.int64(dispersers[i, j])
@@ -115,8 +117,10 @@ def _disperse_rows(dispersers, settle, labels, offsets, threshold, alias, cond, 
             settled = 0
             own = 0
             for e in range(m):
-                st, se, ow = _land(i, j, entry[e], count[e], offsets, ymap, xmap, settle,
-                                   labels, lab, arrivals)
+                k = entry[e]
+                st, se, ow = _land(i, j, k, count[k], offsets, ymap, xmap, settle, labels, lab,
+                                   arrivals)
+                count[k] = 0
                 stay += st
                 settled += se
                 own += ow
