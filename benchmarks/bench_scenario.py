@@ -66,7 +66,7 @@ batch_size = 64
 
 [habitat]
 suitability = "suitability.tif"
-capacity_per_ha = 60.0
+capacity_per_ha = 150.0
 response = "threshold"
 threshold = 0.45
 
@@ -157,7 +157,7 @@ def write_layers(folder: Path, ny: int, nx: int) -> None:
 
     folder.mkdir(parents=True, exist_ok=True)
     rng = np.random.default_rng(ny * nx)
-    field = ndimage.gaussian_filter(rng.standard_normal((ny, nx)), 12.0)
+    field = ndimage.gaussian_filter(rng.standard_normal((ny, nx)), 5.0)
     suit = (field - field.min()) / (field.max() - field.min())
     y, x = np.mgrid[0:ny, 0:nx]
     valley = np.abs(y - ny / 2 - 0.15 * ny * np.sin(2 * np.pi * x / nx))
