@@ -19,8 +19,9 @@ extra replicate per second, and its ratio to the stochastic yearly cycle of
 Per-phase profile of the extra replicates: the engine's calls wrapped and timed (the same way as
 ``bench_cycle.py``), per replicate-year: environmental noise field, disturbance (fire, flood),
 capacity of the year (actions), growth (``grow_pass``), dispersal (the mover), census
-(``census_pass`` and the per-year accumulators), per-replicate set-up (``Replicate``), the batch's
-accumulator files (``BatchSink``: created, flushed), writing the results (once per run), and the rest.
+(``census_pass``, which adds into the per-year accumulators), per-replicate set-up
+(``Replicate``), the batch's accumulator files (``BatchSink``: created, flushed), writing the
+results (once per run: its share of the difference is noise), and the rest.
 
 The machine is shared: every measurement is repeated (``--repeat``) and the minimum taken, and
 the reference is measured between the scenarios, so ratios are within one session.

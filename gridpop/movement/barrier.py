@@ -25,12 +25,10 @@ from .. import rng
 from .._jit import njit, pjit, prange
 from ..rng import YearStreams
 from . import NO_RETENTION, Moved, Retention
-from .convolution import as_field, disperse_deterministic
+from .convolution import as_field, disperse_deterministic, edge_code
 from .kernels import Kernel
-from .convolution import edge_code
 from .placement import (
     MULTINOMIAL_PER_CELL,
-    disperse_stochastic,
     draw_cell,
     edge_map,
     entry_buffers,
