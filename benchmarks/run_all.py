@@ -19,7 +19,7 @@ from pathlib import Path
 from _common import RESULTS, machine
 
 HERE = Path(__file__).resolve().parent
-BENCHMARKS = ("cycle", "dispersal", "walk", "memory", "dask", "startup")
+BENCHMARKS = ("cycle", "scenario", "dispersal", "walk", "memory", "dask", "startup")
 
 
 def load(name: str, quick: bool) -> dict:
@@ -45,6 +45,11 @@ def headlines(quick: bool, names) -> list[str]:
                          "GB/s; deterministic local step at "
                          + ", ".join(f"{s['fraction_of_bound']:.2f} ({s['size']}^2)"
                                      for s in steps) + " of that bound")
+    if "scenario" in names:
+        for r in load("scenario", quick)["scenarios"]:
+            lines.append(f"- whole run, {r['scenario']} on {r['shape'][0]} x {r['shape'][1]}: "
+                         f"{r['cell_years_per_s']:.3g} cell-years/s per extra replicate, "
+                         f"{r['slowdown_vs_cycle']:.2f}x slower than the stochastic cycle")
     if "dispersal" in names:
         d = load("dispersal", quick)
         lines.append(f"- dispersal: crossovers recorded in gridpop.movement.placement "

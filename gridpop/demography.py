@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import math
 
+import numba
 import numpy as np
 import scipy.fft
 
@@ -306,11 +307,12 @@ class EnvironmentalNoise:
     three correlation lengths on every side, so that the correlation wrapping around is below
     exp(-9); its transform is the square root of the transform of the correlation sampled at cell
     lags (circulant embedding), so the correlation is exact at cell lags even when ``L`` is close
-    to a cell size. When ``L`` is large against the grid that torus would be huge, but only a few
-    of its Fourier modes carry variance: as the correlation is separable,
+    to a cell size. But only a few of the torus's Fourier modes carry variance unless ``L`` is
+    a few cells: as the correlation is separable,
     ``exp(-dx^2/L^2) exp(-dy^2/L^2)``, the field is then ``z = A_y E A_x^T`` with E white noise (one
     value per pair of modes) and the columns of ``A_y``, ``A_x`` the cosines and sines of the
-    modes, on a torus padded by six correlation lengths (wrap below exp(-36)). ``L = 0`` gives
+    modes, on a torus padded by six correlation lengths (wrap below exp(-36)); this mode sum is
+    taken when it is the cheaper (:attr:`MADDS_PER_FFT_CELL`). ``L = 0`` gives
     independent cells; ``L`` above three times the grid diagonal one value for the whole landscape.
 
     In time, ``z_t = a z_(t-1) + sqrt(1 - a**2) e_t`` with ``z_0 = e_0`` (AR(1)), so the
@@ -336,8 +338,11 @@ class EnvironmentalNoise:
     1088-1107 [from memory].
     """
 
-    MAX_MODES = 64
-    """Largest number of Fourier modes per axis for which the mode sum replaces the FFT."""
+    MADDS_PER_FFT_CELL = 100
+    """The mode sum replaces the FFT when its multiply-adds per year (``ny nx r_y + r_y r_x nx``
+    for ``r_y``, ``r_x`` modes per axis) are at most this many per cell of the FFT's torus: each
+    torus cell costs a Box-Muller normal and its share of two FFTs, some 100-1000 vectorised
+    multiply-adds (benchmarks/bench_scenario.py), so the rule errs on the side of the FFT."""
 
     def __init__(self, shape, cell_w_m, cell_h_m, sd, correlation_m, autocorrelation):
         ny, nx = (int(v) for v in shape)
@@ -363,17 +368,18 @@ class EnvironmentalNoise:
             mx, sx = _axis_spectrum(nx, cell_w_m, correlation_m, 6.0)
             qy = np.flatnonzero(sy[:my // 2 + 1] > 1e-13)
             qx = np.flatnonzero(sx[:mx // 2 + 1] > 1e-13)
-            if 2 * max(qy.size, qx.size) <= self.MAX_MODES:
+            fy, fsy = _axis_spectrum(ny, cell_h_m, correlation_m, 3.0)
+            fx, fsx = _axis_spectrum(nx, cell_w_m, correlation_m, 3.0)
+            ry, rx = 2 * qy.size, 2 * qx.size  # about: a cosine and a sine per mode
+            if ny * nx * ry + ry * rx * nx <= self.MADDS_PER_FFT_CELL * fy * fx:
                 self.method = "modes"
                 self._ay = _axis_factor(ny, my, sy, qy)
                 self._ax_t = np.ascontiguousarray(_axis_factor(nx, mx, sx, qx).T)
             else:
                 self.method = "fft"
-                my, sy = _axis_spectrum(ny, cell_h_m, correlation_m, 3.0)
-                mx, sx = _axis_spectrum(nx, cell_w_m, correlation_m, 3.0)
-                self._padded = (my, mx)
-                self._pad = ((my - ny) // 2, (mx - nx) // 2)
-                self._filter = np.sqrt(np.outer(sy, sx[:mx // 2 + 1]))  # rfft2 layout
+                self._padded = (fy, fx)
+                self._pad = ((fy - ny) // 2, (fx - nx) // 2)
+                self._filter = np.sqrt(np.outer(fsy, fsx[:fx // 2 + 1]))  # rfft2 layout
 
     def draw(self, seed, replicate, year, previous=None):
         """The field of one year.
@@ -407,7 +413,11 @@ class EnvironmentalNoise:
         else:
             white = np.empty(self._padded)
             _standard_normals(key, white)
-            smooth = scipy.fft.irfft2(scipy.fft.rfft2(white) * self._filter, s=self._padded)
+            # pocketfft's threads share out whole 1-D transforms: the same result on any number
+            workers = numba.get_num_threads()
+            spectrum = scipy.fft.rfft2(white, workers=workers)
+            spectrum *= self._filter
+            smooth = scipy.fft.irfft2(spectrum, s=self._padded, workers=workers)
             py, px = self._pad
             e = np.ascontiguousarray(smooth[py:py + ny, px:px + nx])
         if previous is None:

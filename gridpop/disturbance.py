@@ -298,13 +298,15 @@ class _Table:
     recovery: int
     recovery_years: float
 
-    def remaining(self, since: np.ndarray, loss: np.ndarray) -> np.ndarray:
+    def left(self, since: np.ndarray) -> np.ndarray:
+        """Share of a loss still in place ``since`` years after the hit."""
         t = since.astype(np.float64)
         if self.recovery == RECOVERIES["linear"]:
-            left = np.clip(1.0 - t / self.recovery_years, 0.0, 1.0)
-        else:
-            left = np.exp(-t / self.recovery_years)
-        return np.where(since >= 0, loss * left, 0.0)
+            return np.clip(1.0 - t / self.recovery_years, 0.0, 1.0)
+        return np.exp(-t / self.recovery_years)
+
+    def remaining(self, since: np.ndarray, loss: np.ndarray) -> np.ndarray:
+        return np.where(since >= 0, loss * self.left(since), 0.0)
 
 
 @dataclass(frozen=True, eq=False)
@@ -372,6 +374,25 @@ class _Flood(_Table):
 class _State:
     since: np.ndarray | None  # int32 flat, years since the table last hit the cell, -1 never
     loss: np.ndarray | None  # float64 flat, capacity share lost when last hit (after compounding)
+    years: int = 0  # years applied so far: ``since`` is below it
+
+
+@njit
+def _age(since):
+    """One more year since the last hit, in place, where there was one."""
+    for c in range(since.size):
+        if since[c] >= 0:
+            since[c] += 1
+
+
+@njit
+def _keep(since, loss, left, factor):
+    """``factor *= 1 - remaining`` in place: the share of capacity kept, with ``left[t]`` the
+    share of a loss still in place t years after the hit (:meth:`_Table.remaining`, cell by
+    cell)."""
+    for c in range(since.size):
+        t = since[c]
+        factor[c] *= 1.0 - (loss[c] * left[t] if t >= 0 else 0.0)
 
 
 @dataclass
@@ -387,21 +408,31 @@ class YearEffects:
         when no table has a capacity loss).
     burned, flooded : (ny, nx) bool ndarray or None
         Cells burned / flooded this year; None without fire / flood tables.
-    time_since_fire : (ny, nx) int32 ndarray or None
-        Years since the last fire (0 in the burn year, -1 never burned in this run); None without
-        fire tables.
     events : list of tuple
         ``(kind, patch ids joined by ";", cells hit, deaths)`` per event, in table order (fires in
         order of ignition); patch ids are those of the regime's landscape, empty when only matrix
         cells were hit.
+    fire_since : tuple of (ny, nx) int32 ndarray
+        Per fire table, years since it last burned each cell (-1 never): see
+        :attr:`time_since_fire`.
     """
 
     deaths: np.ndarray
     capacity: np.ndarray
     burned: np.ndarray | None
     flooded: np.ndarray | None
-    time_since_fire: np.ndarray | None
     events: list[tuple]
+    fire_since: tuple[np.ndarray, ...] = ()
+
+    @property
+    def time_since_fire(self) -> np.ndarray | None:
+        """(ny, nx) int32: years since the last fire (0 in the burn year, -1 never burned in
+        this run); None without fire tables."""
+        if not self.fire_since:
+            return None
+        big = np.iinfo(np.int32).max
+        tsf = np.min([np.where(s >= 0, s, big) for s in self.fire_since], axis=0)
+        return np.where(tsf == big, -1, tsf).astype(np.int32)
 
 
 @dataclass(frozen=True, eq=False)
@@ -459,8 +490,9 @@ class Regime:
         factor = None
         events = []
         for index, (table, st) in enumerate(zip(self.tables, state, strict=True)):
+            st.years += 1
             if st.since is not None:
-                st.since[st.since >= 0] += 1
+                _age(st.since)
             event_of, count = table.footprint(seed, replicate, year, index)
             if count and event_of is not None:
                 hit = np.flatnonzero(event_of)
@@ -476,21 +508,19 @@ class Regime:
                     st.since[hit] = 0
                 events += self._events(table.kind, event_of[hit], hit, d, count)
             if st.loss is not None:
-                kept = 1.0 - table.remaining(st.since, st.loss)
-                factor = kept if factor is None else factor * kept
+                if factor is None:
+                    factor = np.ones(flat.size)
+                _keep(st.since, st.loss, table.left(np.arange(st.years)), factor)
         shape = self.shape
-        since = [st.since for t, st in zip(self.tables, state, strict=True) if t.kind == "fire"]
-        tsf = None
-        if since:
-            big = np.iinfo(np.int32).max
-            tsf = np.min([np.where(s >= 0, s, big) for s in since], axis=0)
-            tsf = np.where(tsf == big, -1, tsf).astype(np.int32).reshape(shape)
         return YearEffects(
             deaths=deaths.reshape(shape),
             capacity=k_base if factor is None else k_base * factor.reshape(shape),
             burned=hit_any["fire"].reshape(shape) if "fire" in hit_any else None,
             flooded=hit_any["flood"].reshape(shape) if "flood" in hit_any else None,
-            time_since_fire=tsf, events=events)
+            events=events,
+            fire_since=tuple(st.since.reshape(shape).copy()
+                             for t, st in zip(self.tables, state, strict=True)
+                             if t.kind == "fire"))
 
     def _events(self, kind, ids, hit, deaths, count) -> list[tuple]:
         cells = np.bincount(ids, minlength=count + 1)

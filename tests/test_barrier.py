@@ -4,9 +4,11 @@ crosses, several crossings the product of their survivals."""
 import numpy as np
 import pytest
 
-from gridpop.movement.barrier import BarrierKernelMover, crossing_survival
+from gridpop import rng as rng_streams
+from gridpop.movement.barrier import BarrierKernelMover, crossing_survival, thin
 from gridpop.movement.convolution import disperse_deterministic
 from gridpop.movement.kernels import make_kernel
+from gridpop.movement.placement import disperse_stochastic
 from gridpop.rng import YearStreams
 
 NY, NX = 9, 31
@@ -88,3 +90,58 @@ def test_stochastic_crossers_thinned_by_their_own_barriers():
     assert np.all(got == np.round(got))
     se = np.sqrt(2000.0 * p * (1 - p) / got.size)
     assert abs(got.mean() - 2000.0 * p) < 4 * se
+
+
+@pytest.mark.parametrize("edge", ["absorbing", "reflecting"])
+def test_stochastic_mover_draws_what_dispersal_by_group_then_thinning_draws(edge):
+    """The stochastic mover places every source in one pass; it must give exactly what the
+    definition gives: per (region, patch) group, the group's dispersers placed by
+    ``disperse_stochastic`` (same key), those landing outside the group's region thinned by
+    ``thin`` with the group's survivals, summed over the groups; retention counted per patch.
+    Several patches on both sides of two barriers, many dispersers (multinomial and one by one).
+    Internal consistency, no outside reference."""
+    rng = np.random.default_rng(5)
+    labels = np.zeros((NY, NX), np.int32)
+    labels[1:4, 2:8] = 1
+    labels[5:8, 3:9] = 2
+    labels[2:7, 12:18] = 3
+    labels[:, 22:27] = 4
+    barrier = two_barriers(0.3, 0.6)
+    labels[barrier > 0] = 0
+    leaving = np.floor(rng.gamma(0.5, 30.0, (NY, NX)))
+    leaving[2, 4] = leaving[4, 14] = 400.0
+    leaving[barrier > 0] = 0.0
+    k = np.where(rng.random((NY, NX)) < 0.8, 5.0, 0.0)
+    kernel = make_kernel("exponential", mean_distance_m=60.0, max_distance_m=150.0,
+                         cell_w_m=30.0, cell_h_m=30.0, grid_shape=(NY, NX))
+    n_p = 4
+    mover = BarrierKernelMover(kernel, edge, labels, n_p, True, barrier)
+    streams = YearStreams(8, 1, 2)
+    got = mover.move(leaving, k, streams, {})
+
+    regions, node, surv = crossing_survival(barrier)
+    settle = k > 0
+    group = regions.astype(np.int64) * (n_p + 1) + labels
+    arrivals, stayed = np.zeros((NY, NX)), np.zeros((NY, NX))
+    retained, settled_from = np.zeros(n_p + 1), np.zeros(n_p + 1)
+    for g in np.unique(group[(leaving > 0) & (regions > 0)]):
+        r, p = divmod(int(g), n_p + 1)
+        inside = regions == r
+        arr, st, _, _ = disperse_stochastic(np.where(group == g, leaving, 0.0), settle, labels,
+                                            n_p, kernel, edge,
+                                            streams.key(rng_streams.STREAM_DISPERSAL))
+        kept = thin(np.where(inside, 0.0, arr), surv[r], streams.key(rng_streams.STREAM_BARRIER),
+                    int(g), node=node)
+        arr = np.where(inside, arr, kept)
+        arrivals += arr
+        stayed += st
+        if p > 0:
+            landed = np.where(settle, arr, 0.0)
+            settled_from[p] += landed.sum()
+            retained[p] += landed[labels == p].sum()
+    assert (leaving >= 1.5 * kernel.conditional.size).any()  # some cells draw a multinomial
+    np.testing.assert_array_equal(got.arrivals, arrivals)
+    np.testing.assert_array_equal(got.stayed, stayed)
+    np.testing.assert_array_equal(got.retained, retained)
+    np.testing.assert_array_equal(got.settled_from, settled_from)
+    assert arrivals.sum() < leaving.sum()  # some died crossing

@@ -312,6 +312,20 @@ def test_noise_spatial_correlation_long_range():
         assert abs(got - rho) < 4 * (1 - rho ** 2) / math.sqrt(draws)
 
 
+def test_noise_many_modes_spatial_correlation():
+    """A correlation length of 20 cells needs more than 64 Fourier modes along x, where the mode
+    sum still costs less than the FFT torus and is taken: correlation at lags 1..15 cells along
+    each axis equals exp(-(d / L)^2) (common practice) within 4 SE over draws."""
+    noise = dm.EnvironmentalNoise((100, 150), 30.0, 30.0, 0.3, 600.0, 0.0)
+    assert noise.method == "modes" and noise._ax_t.shape[0] > 64
+    lags = [1, 5, 10, 15]
+    for axis in (1, 0):
+        est = _lag_correlations(noise, 60, lags, axis)
+        target = np.exp(-((np.array(lags) * 30.0 / 600.0) ** 2))
+        se = est.std(axis=0, ddof=1) / math.sqrt(est.shape[0])
+        assert np.all(np.abs(est.mean(axis=0) - target) < 4 * se + 1e-12)
+
+
 def test_noise_independent_and_uniform_limits():
     """L = 0: cells independent (lag-1 correlation within 4/sqrt(n) of 0) with variance sd^2; L
     far above the grid diagonal: one standard normal for the whole landscape (KS test against

@@ -22,12 +22,17 @@ from scipy import ndimage
 from scipy.sparse.csgraph import dijkstra
 
 from .. import rng
-from .._jit import pjit, prange
+from .._jit import njit, pjit, prange
 from ..rng import YearStreams
 from . import NO_RETENTION, Moved, Retention
-from .convolution import as_field, disperse_deterministic
+from .convolution import as_field, disperse_deterministic, edge_code
 from .kernels import Kernel
-from .placement import disperse_stochastic
+from .placement import (
+    MULTINOMIAL_PER_CELL,
+    draw_cell,
+    edge_map,
+    entry_buffers,
+)
 
 
 def crossing_survival(barrier: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -102,16 +107,10 @@ class BarrierKernelMover:
     def retention(self, k: np.ndarray) -> Retention:
         return NO_RETENTION
 
-    def _spread(self, leaving, settle, streams: YearStreams):
-        """Kernel dispersal of ``leaving``: (arrivals, stayed), fresh arrays."""
-        if self.stochastic:
-            return disperse_stochastic(leaving, settle, self.labels, self.n_patches,
-                                       self.kernel, self.edge,
-                                       streams.key(rng.STREAM_DISPERSAL))[:2]
-        return disperse_deterministic(leaving, self.kernel, self.edge)
-
     def move(self, leaving: np.ndarray, k: np.ndarray, streams: YearStreams,
              work: dict[str, np.ndarray]) -> Moved:
+        if self.stochastic:
+            return self._move_stochastic(leaving, k > 0, streams)
         settle = k > 0
         n_p = self.n_patches
         arrivals = np.zeros_like(leaving)
@@ -119,19 +118,14 @@ class BarrierKernelMover:
         retained = np.zeros(n_p + 1)
         settled_from = np.zeros(n_p + 1)
         group = self.regions.astype(np.int64) * (n_p + 1) + self.labels
-        key = streams.key(rng.STREAM_BARRIER)
         for g in np.unique(group[leaving > 0]):
             r, p = divmod(int(g), n_p + 1)
             if r == 0:
                 continue  # no one disperses from a barrier cell: see build_model
             inside = self.regions == r
-            src = np.where(group == g, leaving, 0.0)
-            arr, st = self._spread(src, settle & inside, streams)
-            crossed = np.where(inside, 0.0, arr)
-            surv = self.survival[r]
-            kept = (thin(crossed, surv, key, int(g), node=self.node) if self.stochastic
-                    else crossed * surv[self.node])
-            arr = np.where(inside, arr, kept)
+            arr, st = disperse_deterministic(np.where(group == g, leaving, 0.0), self.kernel,
+                                             self.edge)
+            arr = np.where(inside, arr, arr * self.survival[r][self.node])
             arrivals += arr
             stayed += st
             if p > 0:
@@ -139,6 +133,98 @@ class BarrierKernelMover:
                 settled_from[p] += landed.sum()
                 retained[p] += landed[self.labels == p].sum()
         return Moved(arrivals, stayed, retained, settled_from)
+
+    def _move_stochastic(self, leaving, settle, streams: YearStreams) -> Moved:
+        """Whole individuals: every disperser draws its landing cell as in
+        :func:`disperse_stochastic` (same numbers); those of group g = (region r, patch p) that
+        land at a cell of another node are thinned there by one binomial of survival
+        ``survival[r, node]`` on ``rng.cell_key(barrier key, (g * ny + i) * nx + j)``, as
+        :func:`thin` does. One pass over the sources, group after group."""
+        d = as_field(leaving, "leaving")
+        ny, nx = d.shape
+        n_p = self.n_patches
+        group = self.regions.astype(np.int64) * (n_p + 1) + self.labels
+        cells = np.flatnonzero((d.ravel() > 0) & (self.regions.ravel() > 0))
+        cells = cells[np.argsort(group.ravel()[cells], kind="stable")]
+        gids, start = np.unique(group.ravel()[cells], return_index=True)
+        kern = self.kernel
+        code = edge_code(self.edge)
+        arrivals, stayed = np.zeros(d.shape), np.zeros(d.shape)
+        retained, settled_from = np.zeros(n_p + 1), np.zeros(n_p + 1)
+        _across_kernel(d, cells, np.append(start, cells.size).astype(np.int64), gids,
+                       self.regions, self.node, self.labels,
+                       np.ascontiguousarray(settle, np.bool_), self.survival, kern.offsets,
+                       kern.alias_threshold, kern.alias_index, kern.conditional,
+                       edge_map(ny, kern.ry, code), edge_map(nx, kern.rx, code),
+                       np.uint64(streams.key(rng.STREAM_DISPERSAL)),
+                       np.uint64(streams.key(rng.STREAM_BARRIER)),
+                       MULTINOMIAL_PER_CELL * kern.conditional.size, arrivals, stayed, retained,
+                       settled_from)
+        return Moved(arrivals, stayed, retained, settled_from)
+
+
+@njit
+def _across_kernel(d, cells, gptr, gids, regions, node, labels, settle, survival, offsets,
+                   threshold, alias, cond, ymap, xmap, key, barrier_key, multinomial_min,
+                   arrivals, stayed, retained, settled_from):
+    """:meth:`BarrierKernelMover._move_stochastic`: the sources ``cells[gptr[b]:gptr[b + 1]]``
+    (flat indices) of group ``gids[b]``, group after group. Landings in the group's region
+    are added to ``arrivals`` at once; the others are summed per cell in ``crossed`` (the
+    cells listed in ``touched``) and thinned when the group is done."""
+    ny, nx = d.shape
+    n_p1 = retained.size
+    ry = (ymap.size - ny) // 2
+    rx = (xmap.size - nx) // 2
+    crossed = np.zeros(ny * nx, np.int64)
+    touched = np.empty(ny * nx, np.int64)
+    entry, count = entry_buffers(cond)
+    n_nodes = survival.shape[1]
+    tables = np.empty((n_nodes, rng.BERNOULLI_MAX + 1, rng.BERNOULLI_MAX))
+    for b in range(gids.size):
+        g = gids[b]
+        r, p = g // n_p1, g % n_p1
+        for v in range(n_nodes):
+            tables[v] = rng.binomial_table(survival[r, v])
+        m = 0
+        for idx in range(gptr[b], gptr[b + 1]):
+            c = cells[idx]
+            i, j = c // nx, c % nx
+            n_land = draw_cell(np.int64(d[i, j]), rng.cell_key(key, c), cond, threshold, alias,
+                               multinomial_min, entry, count)
+            for e in range(n_land):
+                cnt = count[entry[e]]
+                count[entry[e]] = 0
+                y = ymap[i + offsets[entry[e], 0] + ry]
+                x = xmap[j + offsets[entry[e], 1] + rx]
+                if y < 0 or x < 0:
+                    continue
+                if regions[y, x] == r:
+                    arrivals[y, x] += cnt
+                    if y == i and x == j:
+                        stayed[i, j] += cnt
+                    if p > 0 and settle[y, x]:
+                        settled_from[p] += cnt
+                        if labels[y, x] == p:
+                            retained[p] += cnt
+                else:
+                    dest = y * nx + x
+                    if crossed[dest] == 0:
+                        touched[m] = dest
+                        m += 1
+                    crossed[dest] += cnt
+        for t in range(m):
+            dest = touched[t]
+            y, x = dest // nx, dest % nx
+            v = node[y, x]
+            q = survival[r, v]
+            kept = rng.binomial_with_table(crossed[dest], q, q, tables[v],
+                                           rng.cell_key(barrier_key, (g * ny + y) * nx + x))
+            crossed[dest] = 0
+            arrivals[y, x] += kept
+            if p > 0 and settle[y, x]:
+                settled_from[p] += kept
+                if labels[y, x] == p:
+                    retained[p] += kept
 
 
 @pjit

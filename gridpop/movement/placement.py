@@ -22,7 +22,7 @@ from .kernels import Kernel
 MULTINOMIAL_PER_CELL = 1.5
 
 
-def _edge_map(n: int, r: int, edge_code: int) -> np.ndarray:
+def edge_map(n: int, r: int, edge_code: int) -> np.ndarray:
     """Cell reached along an axis of n cells by the coordinate g = -r..n+r-1 (at index g + r):
     g inside the grid; off it -1 (absorbing: lost) or g mirrored back across the boundary,
     repeatedly if needed (reflecting). A table, so that the kernel does not branch on the
@@ -61,56 +61,69 @@ def _land(i, j, k, cnt, offsets, ymap, xmap, settle, labels, lab, arrivals):
 
 
 @njit
-def _place_multinomial(i, j, n, ck, cond, offsets, ymap, xmap, settle, labels, lab, arrivals):
-    """The n dispersers of cell (i, j) as one multinomial over the stencil: sequential binomials
-    ``Binomial(remaining, cond[k])`` on cell key ``cell_key(ck, k)``. Returns the counts of
-    :func:`_land`, summed."""
-    stay = 0
-    settled = 0
-    own = 0
-    for k in range(cond.size):
-        if n == 0:
-            break
-        cnt = rng.binomial(n, cond[k], rng.cell_key(ck, k))
-        if cnt > 0:
-            n -= cnt
-            st, se, ow = _land(i, j, k, cnt, offsets, ymap, xmap, settle, labels, lab, arrivals)
-            stay += st
-            settled += se
-            own += ow
-    return stay, settled, own
+def entry_buffers(cond):
+    """The buffers of :func:`draw_cell` for a stencil of ``cond.size`` entries: the entries
+    reached, and a count per entry (zeros)."""
+    return np.empty(cond.size, np.int64), np.zeros(cond.size, np.int64)
+
+
+@njit
+def draw_cell(n, ck, cond, threshold, alias, multinomial_min, entry, count):
+    """Where the n dispersers of one cell go: ``count[entry[e]] > 0`` of them land at stencil
+    entry ``entry[e]``, e < m; returns m. The caller sets those counts back to 0. From the cell
+    key ``ck``: with ``n >= multinomial_min`` one multinomial over the stencil (sequential
+    binomials ``Binomial(remaining, cond[k])`` on ``cell_key(ck, k)``), otherwise disperser t
+    by ``uniform(ck, t)`` through the alias table. ``entry``, ``count``: from
+    :func:`entry_buffers`."""
+    m = 0
+    if n >= multinomial_min:
+        for k in range(cond.size):
+            if n == 0:
+                break
+            cnt = rng.binomial(n, cond[k], rng.cell_key(ck, k))
+            if cnt > 0:
+                n -= cnt
+                entry[m] = k
+                count[k] = cnt
+                m += 1
+    else:
+        for t in range(n):
+            k = _alias_draw(threshold, alias, rng.uniform(ck, t))
+            if count[k] == 0:
+                entry[m] = k
+                m += 1
+            count[k] += 1
+    return m
 
 
 @njit
 def _disperse_rows(dispersers, settle, labels, offsets, threshold, alias, cond, ymap, xmap, key,
                    multinomial_min, r0, r1, arrivals, stayed, ret):
-    """The dispersers of rows r0..r1: landings added to ``arrivals``, ``stayed`` written, and per
-    patch of origin the number landing in a settle cell of the patch (``ret[p, 0]``) and in any
-    settle cell (``ret[p, 1]``). Disperser t of a cell placed one by one takes ``uniform(ck,
-    t)`` through the alias table."""
+    """The dispersers of rows r0..r1 (:func:`draw_cell`): landings added to ``arrivals``,
+    ``stayed`` written, and per patch of origin the number landing in a settle cell of the
+    patch (``ret[p, 0]``) and in any settle cell (``ret[p, 1]``)."""
     nx = dispersers.shape[1]
+    entry, count = entry_buffers(cond)
     for i in range(r0, r1):
         for j in range(nx):
             n = np.int64(dispersers[i, j])
             if n <= 0:
                 stayed[i, j] = 0.0
                 continue
-            ck = rng.cell_key(key, i * nx + j)
             lab = labels[i, j]
-            if n >= multinomial_min:
-                stay, settled, own = _place_multinomial(i, j, n, ck, cond, offsets, ymap, xmap,
-                                                        settle, labels, lab, arrivals)
-            else:
-                stay = 0
-                settled = 0
-                own = 0
-                for t in range(n):
-                    k = _alias_draw(threshold, alias, rng.uniform(ck, t))
-                    st, se, ow = _land(i, j, k, 1, offsets, ymap, xmap, settle, labels, lab,
-                                       arrivals)
-                    stay += st
-                    settled += se
-                    own += ow
+            m = draw_cell(n, rng.cell_key(key, i * nx + j), cond, threshold, alias,
+                          multinomial_min, entry, count)
+            stay = 0
+            settled = 0
+            own = 0
+            for e in range(m):
+                k = entry[e]
+                st, se, ow = _land(i, j, k, count[k], offsets, ymap, xmap, settle, labels, lab,
+                                   arrivals)
+                count[k] = 0
+                stay += st
+                settled += se
+                own += ow
             stayed[i, j] = stay
             if lab > 0:
                 ret[lab, 0] += own
@@ -131,9 +144,8 @@ def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, 
     then the odd ones. Counts are whole numbers, so the sums are exact and the result does not
     depend on the blocks or the number of threads.
 
-    A cell with n >= multinomial_min dispersers draws a multinomial over the stencil
-    (:func:`_place_multinomial`), otherwise each disperser its own destination, from the
-    cell's key ``ck = rng.cell_key(key, i * nx + j)``.
+    A cell's dispersers draw their destinations by :func:`draw_cell` from the cell's key
+    ``ck = rng.cell_key(key, i * nx + j)``.
     """
     for i in prange(arrivals.shape[0]):
         arrivals[i] = 0.0
@@ -239,7 +251,7 @@ def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kern
     settled_from = np.zeros(n_patches + 1)
     _disperse_stochastic_kernel(d, settle, labels, n_patches, kernel.offsets,
                                 kernel.alias_threshold, kernel.alias_index, kernel.conditional,
-                                _edge_map(d.shape[0], kernel.ry, code),
-                                _edge_map(d.shape[1], kernel.rx, code), np.uint64(key),
+                                edge_map(d.shape[0], kernel.ry, code),
+                                edge_map(d.shape[1], kernel.rx, code), np.uint64(key),
                                 multinomial_min, bounds, arrivals, stayed, retained, settled_from)
     return arrivals, stayed, retained, settled_from
