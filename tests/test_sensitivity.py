@@ -324,3 +324,16 @@ def test_killed_run_resumes_on_dask_to_identical_outputs(make_scenario, tmp_path
     for name in ("samples.csv", "results.csv", "sensitivity.csv", "ranking.csv"):
         assert (out / name).read_bytes() == (ref / name).read_bytes(), name
     assert not Path(tmp_path / ".out.partial").exists()
+
+
+def test_growth_rate_of_a_stage_matrix_cannot_be_uncertain(make_scenario):
+    """With [stages], the matrix sets [growth] rate and survival: a range on either is refused
+    naming the key, rather than silently replaced by the matrix's lambda (common practice:
+    refuse what cannot be meant)."""
+    text = EXPONENTIAL.format(years=3).replace("rate = 0.2\nsurvival = 0.5\n", "") + (
+        "\n[stages]\nnames = [\"young\", \"adult\"]\n"
+        "transitions = [[0.0, 0.0], [0.4, 0.8]]\nfecundity = [[0.0, 1.2], [0.0, 0.0]]\n")
+    path = make_scenario(text + uncertainty("latin-hypercube", 4,
+                                            growth__rate=("uniform", (0.1, 0.3))))
+    with pytest.raises(ScenarioError, match=r"'growth.rate'.*set by the plan's \[stages\]"):
+        load_study([path])

@@ -44,6 +44,9 @@ def _targets(scenario: Scenario, name: str) -> tuple[list[Target], str | None]:
         keys = {x.name: x for x in SECTIONS[section][1]}
         if k not in keys:
             return [], f"[{section}] has no key {k!r}; known: {', '.join(keys)}"
+        if section == "growth" and k in ("rate", "survival") and scenario.stages is not None:
+            return [], (f"[growth] {k} is set by the plan's [stages] matrix, which cannot be "
+                        "uncertain here")
         return [Target(section, keys[k])], None
     if len(parts) == 3 and parts[0] in ARRAY_SECTIONS:
         array, which, k = parts
