@@ -177,6 +177,8 @@ def parser() -> argparse.ArgumentParser:
                    "looked up; default results/<scenario name>)")
     p.set_defaults(func=cmd_check)
 
+    # one parser per command: the declarations repeat in shape (name, --out, options), not in
+    # content
     p = sub.add_parser("run", help="run a scenario")
     p.add_argument("scenario")
     p.add_argument("--out", help="output folder (default results/<scenario name>)")
