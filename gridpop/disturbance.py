@@ -346,7 +346,7 @@ class Regime:
                 _age(st.since)
             event_of, count = table.footprint(seed, replicate, year, index)
             if count and event_of is not None:
-                hit = np.flatnonzero(event_of)
+                hit = np.flatnonzero(event_of != 0)  # faster than on the int32 itself
                 d = np.empty(hit.size)
                 key = _table_key(seed, replicate, year, rng.STREAM_DISTURBANCE_MORTALITY, index)
                 _kill(flat, hit, table.mortality, stochastic, key, d)

@@ -103,6 +103,12 @@ class BarrierKernelMover:
         self.kernel, self.edge, self.stochastic = kernel, edge, stochastic
         self.labels, self.n_patches = labels, n_patches
         self.regions, self.node, self.survival = crossing_survival(barrier)
+        # group g = (region r, patch p) of every cell, and the cells off the barrier sorted by
+        # group (then by cell): fixed for the run, so not worked out again every year
+        self.group = self.regions.astype(np.int64) * (n_patches + 1) + labels
+        sources = np.flatnonzero(self.regions.ravel() > 0)
+        self._by_group = sources[np.argsort(self.group.ravel()[sources], kind="stable")]
+        self._group_of = self.group.ravel()[self._by_group]
 
     def retention(self, k: np.ndarray) -> Retention:
         return NO_RETENTION
@@ -117,7 +123,7 @@ class BarrierKernelMover:
         stayed = np.zeros_like(leaving)
         retained = np.zeros(n_p + 1)
         settled_from = np.zeros(n_p + 1)
-        group = self.regions.astype(np.int64) * (n_p + 1) + self.labels
+        group = self.group
         for g in np.unique(group[leaving > 0]):
             r, p = divmod(int(g), n_p + 1)
             if r == 0:
@@ -143,10 +149,11 @@ class BarrierKernelMover:
         d = as_field(leaving, "leaving")
         ny, nx = d.shape
         n_p = self.n_patches
-        group = self.regions.astype(np.int64) * (n_p + 1) + self.labels
-        cells = np.flatnonzero((d.ravel() > 0) & (self.regions.ravel() > 0))
-        cells = cells[np.argsort(group.ravel()[cells], kind="stable")]
-        gids, start = np.unique(group.ravel()[cells], return_index=True)
+        moving = d.ravel()[self._by_group] > 0
+        cells = self._by_group[moving]  # the sources, by group then cell
+        of = self._group_of[moving]
+        start = np.flatnonzero(np.diff(of, prepend=-1))  # where each group's run begins
+        gids = of[start]
         kern = self.kernel
         code = edge_code(self.edge)
         arrivals, stayed = np.zeros(d.shape), np.zeros(d.shape)
