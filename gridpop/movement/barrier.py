@@ -152,7 +152,8 @@ class BarrierKernelMover:
         moving = d.ravel()[self._by_group] > 0
         cells = self._by_group[moving]  # the sources, by group then cell
         of = self._group_of[moving]
-        start = np.flatnonzero(np.diff(of, prepend=-1))  # where each group's run begins
+        # where each group's run of sources begins
+        start = np.flatnonzero(np.concatenate(([of.size > 0], of[1:] != of[:-1])))
         gids = of[start]
         kern = self.kernel
         code = edge_code(self.edge)
