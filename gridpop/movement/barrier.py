@@ -149,17 +149,12 @@ class BarrierKernelMover:
         d = as_field(leaving, "leaving")
         ny, nx = d.shape
         n_p = self.n_patches
-        moving = d.ravel()[self._by_group] > 0
-        cells = self._by_group[moving]  # the sources, by group then cell
-        of = self._group_of[moving]
-        # where each group's run of sources begins
-        start = np.flatnonzero(np.concatenate(([of.size > 0], of[1:] != of[:-1])))
-        gids = of[start]
+        cells, gids, gptr = _sources(d.ravel(), self._by_group, self._group_of)
         kern = self.kernel
         code = edge_code(self.edge)
         arrivals, stayed = np.zeros(d.shape), np.zeros(d.shape)
         retained, settled_from = np.zeros(n_p + 1), np.zeros(n_p + 1)
-        _across_kernel(d, cells, np.append(start, cells.size).astype(np.int64), gids,
+        _across_kernel(d, cells, gptr, gids,
                        self.regions, self.node, self.labels,
                        np.ascontiguousarray(settle, np.bool_), self.survival, kern.offsets,
                        kern.alias_threshold, kern.alias_index, kern.conditional,
@@ -169,6 +164,29 @@ class BarrierKernelMover:
                        MULTINOMIAL_PER_CELL * kern.conditional.size, arrivals, stayed, retained,
                        settled_from)
         return Moved(arrivals, stayed, retained, settled_from)
+
+
+@njit
+def _sources(d, by_group, group_of):
+    """The cells of ``by_group`` (sorted by group, then cell) with ``d > 0``, the groups
+    ``gids`` they belong to and ``gptr``: group ``gids[b]``'s cells are
+    ``cells[gptr[b]:gptr[b + 1]]``."""
+    cells = np.empty(by_group.size, np.int64)
+    gids = np.empty(by_group.size, np.int64)
+    gptr = np.empty(by_group.size + 1, np.int64)
+    m = b = 0
+    for idx in range(by_group.size):
+        c = by_group[idx]
+        if d[c] > 0:
+            g = group_of[idx]
+            if b == 0 or gids[b - 1] != g:
+                gids[b] = g
+                gptr[b] = m
+                b += 1
+            cells[m] = c
+            m += 1
+    gptr[b] = m
+    return cells[:m], gids[:b], gptr[:b + 1]
 
 
 @njit
