@@ -237,13 +237,14 @@ def _age(since):
 
 
 @njit
-def _keep(since, loss, left, factor):
-    """``factor *= 1 - remaining`` in place: the share of capacity kept, with ``left[t]`` the
-    share of a loss still in place t years after the hit (:meth:`_Table.remaining`, cell by
-    cell)."""
+def _keep(since, loss, left, factor, first):
+    """``factor *= 1 - remaining`` in place (``factor = 1 - remaining`` for the ``first``
+    table, which is the same number): the share of capacity kept, with ``left[t]`` the share of
+    a loss still in place t years after the hit (:meth:`_Table.remaining`, cell by cell)."""
     for c in range(since.size):
         t = since[c]
-        factor[c] *= 1.0 - (loss[c] * left[t] if t >= 0 else 0.0)
+        kept = 1.0 - (loss[c] * left[t] if t >= 0 else 0.0)
+        factor[c] = kept if first else factor[c] * kept
 
 
 @dataclass
@@ -346,7 +347,7 @@ class Regime:
                 _age(st.since)
             event_of, count = table.footprint(seed, replicate, year, index)
             if count and event_of is not None:
-                hit = np.flatnonzero(event_of)
+                hit = np.flatnonzero(event_of != 0)  # faster than on the int32 itself
                 d = np.empty(hit.size)
                 key = _table_key(seed, replicate, year, rng.STREAM_DISTURBANCE_MORTALITY, index)
                 _kill(flat, hit, table.mortality, stochastic, key, d)
@@ -359,9 +360,10 @@ class Regime:
                     st.since[hit] = 0
                 events += self._events(table.kind, event_of[hit], hit, d, count)
             if st.loss is not None:
+                first = factor is None
                 if factor is None:
-                    factor = np.ones(flat.size)
-                _keep(st.since, st.loss, table.left(np.arange(st.years)), factor)
+                    factor = np.empty(flat.size)
+                _keep(st.since, st.loss, table.left(np.arange(st.years)), factor, first)
         shape = self.shape
         return YearEffects(
             deaths=deaths.reshape(shape),

@@ -103,6 +103,12 @@ class BarrierKernelMover:
         self.kernel, self.edge, self.stochastic = kernel, edge, stochastic
         self.labels, self.n_patches = labels, n_patches
         self.regions, self.node, self.survival = crossing_survival(barrier)
+        # group g = (region r, patch p) of every cell, and the cells off the barrier sorted by
+        # group (then by cell): fixed for the run, so not worked out again every year
+        self.group = self.regions.astype(np.int64) * (n_patches + 1) + labels
+        sources = np.flatnonzero(self.regions.ravel() > 0)
+        self._by_group = sources[np.argsort(self.group.ravel()[sources], kind="stable")]
+        self._group_of = self.group.ravel()[self._by_group]
 
     def retention(self, k: np.ndarray) -> Retention:
         return NO_RETENTION
@@ -117,7 +123,7 @@ class BarrierKernelMover:
         stayed = np.zeros_like(leaving)
         retained = np.zeros(n_p + 1)
         settled_from = np.zeros(n_p + 1)
-        group = self.regions.astype(np.int64) * (n_p + 1) + self.labels
+        group = self.group
         for g in np.unique(group[leaving > 0]):
             r, p = divmod(int(g), n_p + 1)
             if r == 0:
@@ -143,15 +149,12 @@ class BarrierKernelMover:
         d = as_field(leaving, "leaving")
         ny, nx = d.shape
         n_p = self.n_patches
-        group = self.regions.astype(np.int64) * (n_p + 1) + self.labels
-        cells = np.flatnonzero((d.ravel() > 0) & (self.regions.ravel() > 0))
-        cells = cells[np.argsort(group.ravel()[cells], kind="stable")]
-        gids, start = np.unique(group.ravel()[cells], return_index=True)
+        cells, gids, gptr = _sources(d.ravel(), self._by_group, self._group_of)
         kern = self.kernel
         code = edge_code(self.edge)
         arrivals, stayed = np.zeros(d.shape), np.zeros(d.shape)
         retained, settled_from = np.zeros(n_p + 1), np.zeros(n_p + 1)
-        _across_kernel(d, cells, np.append(start, cells.size).astype(np.int64), gids,
+        _across_kernel(d, cells, gptr, gids,
                        self.regions, self.node, self.labels,
                        np.ascontiguousarray(settle, np.bool_), self.survival, kern.offsets,
                        kern.alias_threshold, kern.alias_index, kern.conditional,
@@ -161,6 +164,29 @@ class BarrierKernelMover:
                        MULTINOMIAL_PER_CELL * kern.conditional.size, arrivals, stayed, retained,
                        settled_from)
         return Moved(arrivals, stayed, retained, settled_from)
+
+
+@njit
+def _sources(d, by_group, group_of):
+    """The cells of ``by_group`` (sorted by group, then cell) with ``d > 0``, the groups
+    ``gids`` they belong to and ``gptr``: group ``gids[b]``'s cells are
+    ``cells[gptr[b]:gptr[b + 1]]``."""
+    cells = np.empty(by_group.size, np.int64)
+    gids = np.empty(by_group.size, np.int64)
+    gptr = np.empty(by_group.size + 1, np.int64)
+    m = b = 0
+    for idx in range(by_group.size):
+        c = by_group[idx]
+        if d[c] > 0:
+            g = group_of[idx]
+            if b == 0 or gids[b - 1] != g:
+                gids[b] = g
+                gptr[b] = m
+                b += 1
+            cells[m] = c
+            m += 1
+    gptr[b] = m
+    return cells[:m], gids[:b], gptr[:b + 1]
 
 
 @njit
