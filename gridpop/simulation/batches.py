@@ -92,9 +92,8 @@ def run_identity(scenario, model: Model) -> dict:
 
 
 def interrupted(work: Path, *, resume: bool, overwrite: bool) -> dict | None:
-    """The checkpoint of the interrupted run, comparison or sensitivity analysis in ``work``
-    when it is to be continued; None when there is none, or when ``overwrite`` without
-    ``resume`` discards it.
+    """The checkpoint of the interrupted run or comparison in ``work`` when it is to be
+    continued; None when there is none, or when ``overwrite`` without ``resume`` discards it.
 
     Raises
     ------
@@ -115,8 +114,7 @@ def interrupted(work: Path, *, resume: bool, overwrite: bool) -> dict | None:
         return None
     of = saved.get("scenario") or ", ".join(p.get("scenario", "?")
                                              for p in saved.get("plans", []))
-    kind = ("sensitivity analysis" if "uncertainty" in saved else
-            "comparison" if "plans" in saved else "run")
+    kind = "comparison" if "plans" in saved else "run"
     raise RunStateError(f"{work}: holds an interrupted {kind} of {of}; pass --resume to "
                         "continue it or --overwrite to start over.")
 
