@@ -91,16 +91,18 @@ def run_identity(scenario, model: Model) -> dict:
             "batches": len(model.plan.batches())}
 
 
-def interrupted(work: Path, *, resume: bool, overwrite: bool) -> dict | None:
-    """The checkpoint of the interrupted run or comparison in ``work`` when it is to be
-    continued; None when there is none, or when ``overwrite`` without ``resume`` discards it.
+def interrupted(work: Path, *, resume: bool, overwrite: bool,
+                checkpoint: str = CHECKPOINT) -> dict | None:
+    """The checkpoint (file ``checkpoint``) of the interrupted run, comparison or sensitivity
+    analysis in ``work`` when it is to be continued; None when there is none, or when
+    ``overwrite`` without ``resume`` discards it.
 
     Raises
     ------
     RunStateError
         The checkpoint is unreadable; or there is one and neither ``resume`` nor ``overwrite``.
     """
-    path = work / CHECKPOINT
+    path = work / checkpoint
     if not path.is_file():
         return None
     try:
@@ -114,7 +116,8 @@ def interrupted(work: Path, *, resume: bool, overwrite: bool) -> dict | None:
         return None
     of = saved.get("scenario") or ", ".join(p.get("scenario", "?")
                                              for p in saved.get("plans", []))
-    kind = "comparison" if "plans" in saved else "run"
+    kind = ("sensitivity analysis" if "uncertainty" in saved else
+            "comparison" if "plans" in saved else "run")
     raise RunStateError(f"{work}: holds an interrupted {kind} of {of}; pass --resume to "
                         "continue it or --overwrite to start over.")
 

@@ -55,7 +55,7 @@ from ..config import Scenario, UncertaintyConfig, apply_parameters
 from ..errors import RunStateError
 from ..io.results import check_output, prepare_output, publish, working_folder, write_json
 from ..landscape import Habitat, build_landscape, read_habitat
-from .batches import batch_folder, run_batch
+from .batches import batch_folder, interrupted, run_batch
 from .distributed import check_execution
 from .model import build_model
 
@@ -161,19 +161,9 @@ def _identity(plans, u: UncertaintyConfig, n: int) -> dict:
 
 
 def _may_resume(work: Path, identity: dict, *, resume: bool, overwrite: bool) -> bool:
-    path = work / CHECKPOINT
-    if not path.is_file():
+    saved = interrupted(work, resume=resume, overwrite=overwrite, checkpoint=CHECKPOINT)
+    if saved is None:
         return False
-    try:
-        saved = json.loads(path.read_text())
-    except (OSError, ValueError) as exc:
-        raise RunStateError(f"{path}: unreadable ({exc}); pass --overwrite without --resume "
-                            "to start over.") from None
-    if not resume:
-        if overwrite:
-            return False
-        raise RunStateError(f"{work}: holds an interrupted sensitivity analysis; pass --resume "
-                            "to continue it or --overwrite to start over.")
     changed = [k for k in identity if saved.get(k) != identity[k]]
     if changed:
         raise RunStateError(f"{work}: the interrupted sensitivity analysis had other "
