@@ -21,7 +21,12 @@ from gridpop.analysis.sensitivity import (
     sobol_indices,
 )
 from gridpop.cli import main
-from gridpop.config import ParameterRange, UncertaintyConfig, load_study
+from gridpop.config import (
+    ParameterRange,
+    UncertaintyConfig,
+    apply_parameters,
+    load_study,
+)
 from gridpop.errors import ScenarioError
 
 # A deterministic exponential model with no density dependence, no noise and no dispersal:
@@ -175,6 +180,8 @@ def test_one_split_finds_the_threshold_where_the_ranking_flips():
     ({"growth__rate": ("triangular", (0.1, 0.2))}, r"expected \[min, mode, max\]"),
     ({"growth__rate": ("beta", (1, 2))}, r"distribution 'beta' is not known"),
     ({"dispersal__walk_length": ("uniform", (10, 20))}, r"only number keys"),
+    ({"stages__transitions__adult__adult": ("uniform", (0.5, 0.9))},
+     r"'stages.transitions.adult.adult' names no key.*has no \[stages\] section"),
 ])
 def test_bad_parameters_exit_2_naming_the_key(make_scenario, params, message, capsys,
                                               tmp_path):
@@ -326,14 +333,71 @@ def test_killed_run_resumes_on_dask_to_identical_outputs(make_scenario, tmp_path
     assert not Path(tmp_path / ".out.partial").exists()
 
 
+STAGED = EXPONENTIAL.replace("rate = 0.2\nsurvival = 0.5\n", "") + (
+    "\n[stages]\nnames = [\"young\", \"adult\"]\n"
+    "transitions = [[0.0, 0.0], [0.4, 0.8]]\nfecundity = [[0.0, 1.2], [0.0, 0.0]]\n")
+
+LESLIE = STAGED.replace('names = ["young", "adult"]\n', "").replace(
+    "transitions = [[0.0, 0.0], [0.4, 0.8]]\nfecundity = [[0.0, 1.2], [0.0, 0.0]]\n",
+    "ages = 4\nweibull_shape = 1.0\nmean_lifespan_years = 3.0\n"
+    "fecundity_by_age = [0.0, 0.8, 1.2, 1.2]\n")
+
+
 def test_growth_rate_of_a_stage_matrix_cannot_be_uncertain(make_scenario):
     """With [stages], the matrix sets [growth] rate and survival: a range on either is refused
     naming the key, rather than silently replaced by the matrix's lambda (common practice:
     refuse what cannot be meant)."""
-    text = EXPONENTIAL.format(years=3).replace("rate = 0.2\nsurvival = 0.5\n", "") + (
-        "\n[stages]\nnames = [\"young\", \"adult\"]\n"
-        "transitions = [[0.0, 0.0], [0.4, 0.8]]\nfecundity = [[0.0, 1.2], [0.0, 0.0]]\n")
-    path = make_scenario(text + uncertainty("latin-hypercube", 4,
-                                            growth__rate=("uniform", (0.1, 0.3))))
+    path = make_scenario(STAGED.format(years=3) + uncertainty(
+        "latin-hypercube", 4, growth__rate=("uniform", (0.1, 0.3))))
     with pytest.raises(ScenarioError, match=r"'growth.rate'.*set by the plan's \[stages\]"):
         load_study([path])
+
+
+@pytest.mark.parametrize("text, params, message", [
+    (STAGED, {"stages__transitions__young__young": ("uniform", (0.5, 0.7))},
+     r"'stages.transitions.young.young' = uniform \[0.5, 0.7\]: at 0.7, the plan fails.*"
+     r"\[stages\] transitions"),  # the column of young sums to 0.4 + 0.7 > 1
+    (STAGED, {"stages__transitions__adult__adult": ("uniform", (0.5, 1.2))},
+     r"transitions\[adult\]\[adult\] must be a number with 0 <= value <= 1"),
+    (STAGED, {"stages__fecundity__calf__adult": ("uniform", (0.5, 1.2))},
+     r"'calf' is not a stage; the stages are young, adult"),
+    (STAGED, {"stages__weibull_shape": ("uniform", (0.5, 1.2))},
+     r"weibull_shape needs an age-structured plan"),
+    (LESLIE, {"stages__fecundity__age0__age2": ("uniform", (0.5, 1.2))},
+     r"built from its ages; make stages.weibull_shape"),
+    (STAGED, {"stages__fecundity__young": ("uniform", (0.5, 1.2))},
+     r'expected "stages.transitions.TO.FROM"'),
+])
+def test_bad_stage_parameters_are_refused(make_scenario, text, params, message):
+    """Stage parameters name a matrix entry by stage names (or a Weibull key of an age model);
+    an entry whose range would break the matrix's own checks is refused before anything runs,
+    naming the parameter (common practice: refuse what cannot be meant)."""
+    path = make_scenario(text.format(years=3) + uncertainty("latin-hypercube", 4, **params))
+    with pytest.raises(ScenarioError, match=message):
+        load_study([path])
+
+
+def test_uncertain_fecundity_grows_the_population_by_the_matrix_lambda(make_scenario, tmp_path):
+    """No density dependence, no noise, no dispersal, started at the stable stage distribution:
+    every stage grows by the dominant eigenvalue lambda of T + F each year, so N_T = N_0
+    lambda^T (Caswell 2001, Matrix Population Models, ch. 4). With the adults' fecundity
+    uncertain, results.csv's final totals divided by lambda(F)^T, lambda from numpy's
+    eigenvalues of each set's matrix, are the same N_0 in every set. An age-structured plan
+    with an uncertain mean lifespan b gets the survival exp(-1/b) on its sub-diagonal
+    (Weibull shape 1: Pinder, Wiener and Smith 1978, Ecology 59:175)."""
+    years = 4
+    path = make_scenario(STAGED.format(years=years) + uncertainty(
+        "latin-hypercube", 4, stages__fecundity__young__adult=("uniform", (0.6, 2.0))))
+    out = tmp_path / "sens"
+    assert main(["sensitivity", str(path), "--out", str(out), "--quiet"]) == 0
+    fec = np.array([float(r["stages.fecundity.young.adult"])
+                    for r in read_rows(out / "samples.csv")])
+    lam = np.array([max(abs(np.linalg.eigvals([[0.0, f], [0.4, 0.8]]))) for f in fec])
+    final = np.array([float(r["final_median"]) for r in read_rows(out / "results.csv")])
+    ratio = final / lam ** years
+    assert np.ptp(fec) > 0.5 and np.allclose(ratio, ratio[0], rtol=1e-9)
+    plans, _, _ = load_study([make_scenario(LESLIE.format(years=years) + uncertainty(
+        "latin-hypercube", 4, stages__mean_lifespan_years=("uniform", (2.0, 5.0))), "age.toml")])
+    aged = apply_parameters(plans[0], {"stages.mean_lifespan_years": 5.0})
+    np.testing.assert_allclose(np.diag(np.array(aged.stages.transitions), -1),
+                               math.exp(-1 / 5.0), rtol=1e-12)

@@ -242,6 +242,7 @@ def test_stage_keys_are_checked(make_scenario):
          "[stages] fecundity"),  # lambda = 0: no stage ever reproduces
         (good.replace('model = "ricker"', 'model = "ricker"\nrate = 0.3'), "[growth] rate"),
         (good + "initial_distribution = [0.5, 0.2]\n", "[stages] initial_distribution"),
+        (good + "ages = 3\n", "[stages] transitions: give either"),
     ]
     for i, (text, where) in enumerate(cases):
         path = make_scenario(text, f"bad{i}.toml")

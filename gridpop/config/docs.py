@@ -19,9 +19,12 @@ UNCERTAINTY_EXAMPLE = (
 PARAMETER_NAMES = (
     'Each line of [uncertainty.parameters] names a number key: "section.key" (sections habitat, '
     'initial, growth, dispersal), "action.KIND.key" or "disturbance.KIND.key" (every table of '
-    'that kind) or "action.N.key" / "disturbance.N.key" (the N-th table, from 1), and gives one '
-    "distribution. The range must lie inside the key's allowed values. Only gridpop sensitivity "
-    "reads this section; gridpop run and compare ignore it."
+    'that kind) or "action.N.key" / "disturbance.N.key" (the N-th table, from 1); with '
+    '[stages], "stages.transitions.TO.FROM" or "stages.fecundity.TO.FROM" (one matrix entry by '
+    'stage names, row TO, column FROM) or "stages.weibull_shape" / "stages.mean_lifespan_years" '
+    "(age-structured plans). It gives one distribution. A range that makes a column of "
+    "transitions sum above 1 is refused. The range must lie inside the key's allowed values. "
+    "Only gridpop sensitivity reads this section; gridpop run and compare ignore it."
 )
 
 

@@ -192,10 +192,10 @@ def _matrix(file: Path, st: StagesConfig) -> tuple[StagesConfig, Any, Any]:
     """The stages with names, transitions and fecundity filled in (a Leslie matrix built from
     the Weibull survivorship when ``ages`` is given), and the checked (T, F)."""
     leslie = [k for k in LESLIE_KEYS if getattr(st, k) is not None]
-    given = [k for k in ("transitions", "fecundity") if getattr(st, k) is not None]
-    if leslie and given:
-        raise ScenarioError(f"{where(file, 'stages', given[0])}: give either transitions and "
-                            f"fecundity or {', '.join(LESLIE_KEYS)}, not both.")
+    # With ages, the matrices are built here (again on every check: a sensitivity analysis
+    # changes the Weibull keys); a file giving both forms is refused in _scenario_of.
+    given = [] if leslie else [k for k in ("transitions", "fecundity")
+                               if getattr(st, k) is not None]
     needed = LESLIE_KEYS if leslie else ("transitions", "fecundity")
     for k in needed:
         if getattr(st, k) is None:
@@ -491,6 +491,12 @@ def _scenario_of(file: Path, raw: dict[str, Any], chunks: list[bytes]) -> Scenar
                                     "matrix; remove it (model, theta, allee_density, "
                                     "stochastic and the env_ keys still apply).")
         raw["growth"] = {**raw["growth"], "rate": 0.0}  # replaced from the matrix below
+    if isinstance(raw.get("stages"), dict):
+        leslie = [k for k in LESLIE_KEYS if k in raw["stages"]]
+        given = [k for k in ("transitions", "fecundity") if k in raw["stages"]]
+        if leslie and given:
+            raise ScenarioError(f"{where(file, 'stages', given[0])}: give either transitions "
+                                f"and fecundity or {', '.join(LESLIE_KEYS)}, not both.")
     sections: dict[str, Any] = {name: parse_section(file, name, raw.get(name, {}))
                                 for name in SECTIONS if name != "stages" or name in raw}
     digest = (hashlib.sha256(chunks[0]) if len(chunks) == 1 else

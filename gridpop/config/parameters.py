@@ -31,22 +31,60 @@ class Target:
     section: str  # a section name, or "action" / "disturbance"
     key: Key
     tables: tuple[int, ...] = ()  # 0-based indices of the [[action]]/[[disturbance]] tables
+    entry: tuple[int, int] | None = None  # [stages] transitions or fecundity: (row, column)
+
+
+MATRICES = ("transitions", "fecundity")
+WEIBULL = ("weibull_shape", "mean_lifespan_years")
+STAGE_FORMS = ('"stages.transitions.TO.FROM" or "stages.fecundity.TO.FROM" (stage names: the '
+               'entry in row TO, column FROM), or "stages.weibull_shape" / '
+               '"stages.mean_lifespan_years" (age-structured plans)')
+
+
+def _stage_targets(scenario: Scenario, parts: list[str]) -> tuple[list[Target], str | None]:
+    """The target of a ``stages.…`` parameter: an entry of the stage matrices by stage names,
+    or a Weibull key of an age-structured plan (whose matrices are built from those keys)."""
+    st = scenario.stages
+    if st is None:
+        return [], "the plan has no [stages] section"
+    keys = {x.name: x for x in SECTIONS["stages"][1]}
+    leslie = st.ages is not None
+    if len(parts) == 1 and parts[0] in WEIBULL:
+        if not leslie:
+            return [], f"[stages] {parts[0]} needs an age-structured plan (ages = N)"
+        return [Target("stages", keys[parts[0]])], None
+    if len(parts) == 3 and parts[0] in MATRICES:
+        matrix, row, column = parts
+        if leslie:
+            return [], ("the plan's matrices are built from its ages; make "
+                        f"{' or '.join('stages.' + k for k in WEIBULL)} uncertain instead")
+        names = st.names or ()
+        unknown = [x for x in (row, column) if x not in names]
+        if unknown:
+            return [], f"{unknown[0]!r} is not a stage; the stages are {', '.join(names)}"
+        element = dataclasses.replace(keys[matrix], name=f"{matrix}[{row}][{column}]",
+                                      type="float",
+                                      high=1.0 if matrix == "transitions" else None)
+        return [Target("stages", element, entry=(names.index(row), names.index(column)))], None
+    return [], f"expected {STAGE_FORMS}"
 
 
 def _targets(scenario: Scenario, name: str) -> tuple[list[Target], str | None]:
     """The targets of a parameter in one plan, or why it names no key (a message)."""
     parts = name.split(".")
+    if parts[0] == "stages":
+        return _stage_targets(scenario, parts[1:])
     if len(parts) == 2 and parts[0] in SECTIONS:
         section, k = parts
         if section not in UNCERTAIN_SECTIONS:
             return [], (f"[{section}] keys cannot be uncertain (only "
-                        f"{', '.join(UNCERTAIN_SECTIONS)}, action and disturbance)")
+                        f"{', '.join(UNCERTAIN_SECTIONS)}, stages, action and disturbance)")
         keys = {x.name: x for x in SECTIONS[section][1]}
         if k not in keys:
             return [], f"[{section}] has no key {k!r}; known: {', '.join(keys)}"
         if section == "growth" and k in ("rate", "survival") and scenario.stages is not None:
-            return [], (f"[growth] {k} is set by the plan's [stages] matrix, which cannot be "
-                        "uncertain here")
+            return [], (f"[growth] {k} is set by the plan's [stages] matrix; make its "
+                        'entries uncertain instead, e.g. "stages.fecundity.juvenile.adult"')
         return [Target(section, keys[k])], None
     if len(parts) == 3 and parts[0] in ARRAY_SECTIONS:
         array, which, k = parts
@@ -71,8 +109,8 @@ def _targets(scenario: Scenario, name: str) -> tuple[list[Target], str | None]:
                 return [], f"[{tables[i].label}] has no key {k!r}; known: {', '.join(keys)}"
             out.append(Target(array, keys[k], (i,)))
         return out, None
-    return [], ('expected "section.key", "action.KIND.key", "action.N.key" or '
-                '"disturbance.KIND.key"')
+    return [], ('expected "section.key", "action.KIND.key", "action.N.key", '
+                f'"disturbance.KIND.key", {STAGE_FORMS}')
 
 
 def check_parameters(file: Path | str, uncertainty: UncertaintyConfig,
@@ -109,7 +147,11 @@ def check_parameters(file: Path | str, uncertainty: UncertaintyConfig,
                                 f"must be {k.allowed()}.")
         for s in plans:  # the ends of the range pass every cross check of the plans
             for value in (low, high) if reached else ():
-                apply_parameters(s, {p.name: value})
+                try:
+                    apply_parameters(s, {p.name: value})
+                except ScenarioError as exc:
+                    raise ScenarioError(f"{loc} = {p.describe()}: at {value:g}, the plan "
+                                        f"fails its checks: {exc}") from None
 
 
 def apply_parameters(scenario: Scenario, values: dict[str, float]) -> Scenario:
@@ -118,6 +160,13 @@ def apply_parameters(scenario: Scenario, values: dict[str, float]) -> Scenario:
     for name, value in values.items():
         targets, _ = _targets(scenario, name)
         for t in targets:
+            if t.entry is not None:
+                assert scenario.stages is not None
+                matrix = t.key.name.split("[")[0]
+                rows = [list(r) for r in getattr(scenario.stages, matrix)]
+                rows[t.entry[0]][t.entry[1]] = value
+                scenario = scenario.replace("stages", **{matrix: rows})
+                continue
             if not t.tables:
                 scenario = scenario.replace(t.section, **{t.key.name: value})
                 continue
