@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 import rasterio
 import shapely
+from conftest import read_rows
 
 import gridpop
 from gridpop.analysis.compare import compare
@@ -24,7 +25,8 @@ from gridpop.movement.walk import disperse_walk_deterministic
 from gridpop.simulation.model import build_model
 
 DEMO = Path(__file__).resolve().parents[1] / "scenarios" / "demo"
-PLANS = ("reserve_one_block", "reserve_small_sites", "corridor_brook", "corridor_straight")
+PLANS = ("reserve_one_block", "reserve_small_sites", "corridor_brook", "corridor_straight",
+         "release_east")
 CORRIDORS = {"corridor_brook": "BROOK", "corridor_straight": "STRAIGHT"}
 DRAINED_YEAR = 10  # the drainage is complete from year 5
 GENERATIONS = 40  # the planning horizon in years, one dispersal generation a year
@@ -271,3 +273,19 @@ def test_short_run_brook_corridor_colonises_the_east_block_more_often(tmp_path):
     brook = round(12 * rows["corridor_brook"]["colonisation_east_block"])
     straight = round(12 * rows["corridor_straight"]["colonisation_east_block"])
     assert brook >= straight + 2
+
+
+def test_release_plan_moves_shrews_from_the_reserve_to_the_east_block(tmp_path):
+    """release_east.toml: 120 subadults a year in steps 1-3 are caught in the one-block reserve
+    (which holds far more) and released in the east block, so the landscape ledger shows 120
+    released and 120 removed in those steps only, and the east block, empty in year 0, is
+    colonised from the first release on."""
+    out = tmp_path / "release"
+    assert cli_main(["run", str(DEMO / "release_east.toml"), "--replicates", "2", "--years",
+                     "5", "--out", str(out), "--quiet"]) == 0
+    rows = read_rows(out / "timeseries.csv")
+    for r in rows:
+        moved = 120 if 2 <= int(r["year"]) <= 4 else 0  # row t: the step from t - 1 to t
+        assert (int(float(r["released"])), int(float(r["removed"]))) == (moved, moved), r
+    east = json.loads((out / "summary.json").read_text())["colonisation"]["east_block"]
+    assert east["probability"][:3] == [0.0, 0.0, 1.0]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import math
 import textwrap
 
 import geopandas as gpd
@@ -140,3 +141,19 @@ def test_extends_errors_name_the_file_and_key(files, tmp_path, capsys):
     assert main(["check", str(plan)]) == 2
     err = capsys.readouterr().err
     assert f"{base}: [growth] rate = -1.0 is not allowed" in err and "Traceback" not in err
+
+
+def test_a_plan_extends_a_stage_structured_base(make_scenario, tmp_path):
+    """A base with [stages] (whose [growth] has no rate) loads as the base of a plan: the plan
+    gets the base's matrix and the growth rate ln(lambda) it implies (lambda of [[0, 1.2], [0.4,
+    0.8]] is (0.8 + sqrt(0.64 + 1.92)) / 2 by the quadratic formula; common practice)."""
+    text = scenario_text(years=3, replicates=2).replace("rate = 0.6\n", "").replace(
+        "survival = 0.4\n", "") + ('\n[stages]\nnames = ["young", "adult"]\n'
+                                   "transitions = [[0.0, 0.0], [0.4, 0.8]]\n"
+                                   "fecundity = [[0.0, 1.2], [0.0, 0.0]]\n")
+    make_scenario(text, name="base.toml")
+    plan = tmp_path / "plan.toml"
+    plan.write_text('[plan]\nextends = "base.toml"\ndescription = "the same life history"\n')
+    s = load_scenario(plan)
+    assert s.stages.names == ("young", "adult")
+    assert s.growth.rate == pytest.approx(math.log((0.8 + math.sqrt(0.64 + 1.92)) / 2), rel=1e-12)

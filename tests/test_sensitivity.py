@@ -25,6 +25,7 @@ from gridpop.config import (
     ParameterRange,
     UncertaintyConfig,
     apply_parameters,
+    load_scenario,
     load_study,
 )
 from gridpop.errors import ScenarioError
@@ -342,6 +343,8 @@ LESLIE = STAGED.replace('names = ["young", "adult"]\n', "").replace(
     "ages = 4\nweibull_shape = 1.0\nmean_lifespan_years = 3.0\n"
     "fecundity_by_age = [0.0, 0.8, 1.2, 1.2]\n")
 
+MOVING = STAGED + "dispersal_fraction = [0.3, 0.0]\n\n[dispersal]\nmean_distance_m = 60.0\n"
+
 
 def test_growth_rate_of_a_stage_matrix_cannot_be_uncertain(make_scenario):
     """With [stages], the matrix sets [growth] rate and survival: a range on either is refused
@@ -365,6 +368,10 @@ def test_growth_rate_of_a_stage_matrix_cannot_be_uncertain(make_scenario):
      r"weibull_shape needs an age-structured plan"),
     (LESLIE, {"stages__fecundity__age0__age2": ("uniform", (0.5, 1.2))},
      r"built from its ages; make stages.weibull_shape"),
+    (STAGED, {"stages__dispersal_fraction__young": ("uniform", (0.1, 0.2))},
+     r"no \[stages\] dispersal_fraction"),
+    (MOVING, {"stages__dispersal_fraction__young": ("uniform", (0.1, 1.2))},
+     r"dispersal_fraction\[young\] must be a number with 0 <= value <= 1"),
     (STAGED, {"stages__fecundity__young": ("uniform", (0.5, 1.2))},
      r'expected "stages.transitions.TO.FROM"'),
 ])
@@ -399,5 +406,8 @@ def test_uncertain_fecundity_grows_the_population_by_the_matrix_lambda(make_scen
     plans, _, _ = load_study([make_scenario(LESLIE.format(years=years) + uncertainty(
         "latin-hypercube", 4, stages__mean_lifespan_years=("uniform", (2.0, 5.0))), "age.toml")])
     aged = apply_parameters(plans[0], {"stages.mean_lifespan_years": 5.0})
+    moving = load_scenario(make_scenario(MOVING.format(years=years), "moving.toml"))
+    assert apply_parameters(moving, {"stages.dispersal_fraction.young": 0.6}).stages \
+        .dispersal_fraction == (0.6, 0.0)
     np.testing.assert_allclose(np.diag(np.array(aged.stages.transitions), -1),
                                math.exp(-1 / 5.0), rtol=1e-12)

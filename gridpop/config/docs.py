@@ -21,10 +21,11 @@ PARAMETER_NAMES = (
     'initial, growth, dispersal), "action.KIND.key" or "disturbance.KIND.key" (every table of '
     'that kind) or "action.N.key" / "disturbance.N.key" (the N-th table, from 1); with '
     '[stages], "stages.transitions.TO.FROM" or "stages.fecundity.TO.FROM" (one matrix entry by '
-    'stage names, row TO, column FROM) or "stages.weibull_shape" / "stages.mean_lifespan_years" '
-    "(age-structured plans). It gives one distribution. A range that makes a column of "
-    "transitions sum above 1 is refused. The range must lie inside the key's allowed values. "
-    "Only gridpop sensitivity reads this section; gridpop run and compare ignore it."
+    'stage names, row TO, column FROM), "stages.dispersal_fraction.STAGE", or '
+    '"stages.weibull_shape" / "stages.mean_lifespan_years" (age-structured plans). It gives one '
+    "distribution. The range must lie inside the key's allowed values, and a range that makes "
+    "a column of transitions sum above 1 is refused. Only gridpop sensitivity reads this "
+    "section; gridpop run and compare ignore it."
 )
 
 

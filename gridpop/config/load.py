@@ -490,7 +490,8 @@ def _scenario_of(file: Path, raw: dict[str, Any], chunks: list[bytes]) -> Scenar
                 raise ScenarioError(f"{where(file, 'growth', name)} is set by the [stages] "
                                     "matrix; remove it (model, theta, allee_density, "
                                     "stochastic and the env_ keys still apply).")
-        raw["growth"] = {**raw["growth"], "rate": 0.0}  # replaced from the matrix below
+        # replaced from the matrix below (a new dict: a base's raw is merged into its plans)
+        raw = {**raw, "growth": {**raw["growth"], "rate": 0.0}}
     if isinstance(raw.get("stages"), dict):
         leslie = [k for k in LESLIE_KEYS if k in raw["stages"]]
         given = [k for k in ("transitions", "fecundity") if k in raw["stages"]]

@@ -31,14 +31,14 @@ class Target:
     section: str  # a section name, or "action" / "disturbance"
     key: Key
     tables: tuple[int, ...] = ()  # 0-based indices of the [[action]]/[[disturbance]] tables
-    entry: tuple[int, int] | None = None  # [stages] transitions or fecundity: (row, column)
+    entry: tuple[int, ...] = ()  # [stages]: (row, column) of a matrix, (stage,) of a list
 
 
 MATRICES = ("transitions", "fecundity")
 WEIBULL = ("weibull_shape", "mean_lifespan_years")
 STAGE_FORMS = ('"stages.transitions.TO.FROM" or "stages.fecundity.TO.FROM" (stage names: the '
-               'entry in row TO, column FROM), or "stages.weibull_shape" / '
-               '"stages.mean_lifespan_years" (age-structured plans)')
+               'entry in row TO, column FROM), "stages.dispersal_fraction.STAGE", or '
+               '"stages.weibull_shape" / "stages.mean_lifespan_years" (age-structured plans)')
 
 
 def _stage_targets(scenario: Scenario, parts: list[str]) -> tuple[list[Target], str | None]:
@@ -53,12 +53,21 @@ def _stage_targets(scenario: Scenario, parts: list[str]) -> tuple[list[Target], 
         if not leslie:
             return [], f"[stages] {parts[0]} needs an age-structured plan (ages = N)"
         return [Target("stages", keys[parts[0]])], None
+    names = st.names or ()
+    if len(parts) == 2 and parts[0] == "dispersal_fraction":
+        if st.dispersal_fraction is None:
+            return [], ("the plan has no [stages] dispersal_fraction (its [dispersal] fraction "
+                        'is "dispersal.fraction")')
+        if parts[1] not in names:
+            return [], f"{parts[1]!r} is not a stage; the stages are {', '.join(names)}"
+        element = dataclasses.replace(keys["dispersal_fraction"],
+                                      name=f"dispersal_fraction[{parts[1]}]", type="float")
+        return [Target("stages", element, entry=(names.index(parts[1]),))], None
     if len(parts) == 3 and parts[0] in MATRICES:
         matrix, row, column = parts
         if leslie:
             return [], ("the plan's matrices are built from its ages; make "
                         f"{' or '.join('stages.' + k for k in WEIBULL)} uncertain instead")
-        names = st.names or ()
         unknown = [x for x in (row, column) if x not in names]
         if unknown:
             return [], f"{unknown[0]!r} is not a stage; the stages are {', '.join(names)}"
@@ -160,12 +169,16 @@ def apply_parameters(scenario: Scenario, values: dict[str, float]) -> Scenario:
     for name, value in values.items():
         targets, _ = _targets(scenario, name)
         for t in targets:
-            if t.entry is not None:
+            if t.entry:
                 assert scenario.stages is not None
-                matrix = t.key.name.split("[")[0]
-                rows = [list(r) for r in getattr(scenario.stages, matrix)]
-                rows[t.entry[0]][t.entry[1]] = value
-                scenario = scenario.replace("stages", **{matrix: rows})
+                k = t.key.name.split("[")[0]
+                old = getattr(scenario.stages, k)
+                if len(t.entry) == 1:
+                    new = [value if i == t.entry[0] else v for i, v in enumerate(old)]
+                else:
+                    new = [list(r) for r in old]
+                    new[t.entry[0]][t.entry[1]] = value
+                scenario = scenario.replace("stages", **{k: new})
                 continue
             if not t.tables:
                 scenario = scenario.replace(t.section, **{t.key.name: value})

@@ -5,9 +5,10 @@ A parameter is named ``"section.key"`` (``"growth.rate"``), ``"action.KIND.key"`
 ``"disturbance.KIND.key"`` (every action or disturbance of that kind) or ``"action.N.key"``
 (the N-th ``[[action]]`` table, from 1). With ``[stages]``, ``"stages.transitions.TO.FROM"``
 and ``"stages.fecundity.TO.FROM"`` name one entry of a matrix by stage names (row TO, column
-FROM: ``"stages.transitions.adult.adult"`` is adult survival), and ``"stages.weibull_shape"``
-and ``"stages.mean_lifespan_years"`` the survivorship of an age-structured plan. Its value is
-one distribution::
+FROM: ``"stages.transitions.adult.adult"`` is adult survival),
+``"stages.dispersal_fraction.STAGE"`` one stage's dispersal fraction, and
+``"stages.weibull_shape"`` and ``"stages.mean_lifespan_years"`` the survivorship of an
+age-structured plan. Its value is one distribution::
 
     "growth.rate" = { uniform = [0.2, 0.5] }                        # low, high
     "dispersal.mean_distance_m" = { triangular = [200, 400, 900] }  # min, mode, max

@@ -31,7 +31,9 @@ its CRS):
   side of the one-block reserve to the east block, 200 m wide strips: along the brook (4.1 km,
   83 ha, under the road at the bridge) and straight (2.6 km, 51 ha, cut by the road);
 - ``road.gpkg``: the road (two lines, broken at the bridge);
-- ``focus_areas.gpkg``: the two blocks, for colonisation and risk per block.
+- ``focus_areas.gpkg``: the two blocks, for colonisation and risk per block;
+- ``release_sites.gpkg``: two 250 x 250 m release sites in the core of the east block, for the
+  reintroduction plan.
 
 Run: ``python scenarios/demo/generate.py [FOLDER]`` (default scenarios/demo/data/).
 """
@@ -75,6 +77,7 @@ ROAD_CLEAR_M = 50.0  # the straight corridor stops this far either side of the r
 CORRIDOR_HALF_M = 100.0  # corridors are 200 m wide strips
 ONE_BLOCK = (40, 35, 60, 55)  # column0, row0, column1, row1 of the 1 km square
 SMALL_SITES = [(24, 30), (24, 50), (65, 9), (71, 25)]  # upper-left cells of 500 m squares
+RELEASE_SITES = [(119, 68), (127, 76)]  # upper-left cells of 250 m squares in the east block
 # The drier future: fen radii times this leave two thirds of the fens' habitat cells (282 of 422
 # within 2.5 radii of a fen centre), so the fens shrink by a third.
 DRY_FEN_SCALE = 0.813
@@ -196,6 +199,8 @@ def layers() -> dict[str, np.ndarray | gpd.GeoDataFrame]:
         "corridor_straight.gpkg": gdf(["Straight corridor"], [straight]),
         "road.gpkg": gdf(["Flats road north", "Flats road south"], road_lines()),
         "focus_areas.gpkg": gdf(["west_block", "east_block"], [west, east]),
+        "release_sites.gpkg": gdf([f"Release site {i + 1}" for i in range(len(RELEASE_SITES))],
+                                  [square(c, r, c + 5, r + 5) for c, r in RELEASE_SITES]),
     }
 
 
