@@ -9,6 +9,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from ..errors import ScenarioError, where
 from .kinds import ARRAY_SECTIONS
 from .load import KIND_CHECKS, Scenario, cross_checks, load_scenario
@@ -172,13 +174,9 @@ def apply_parameters(scenario: Scenario, values: dict[str, float]) -> Scenario:
             if t.entry:
                 assert scenario.stages is not None
                 k = t.key.name.split("[")[0]
-                old = getattr(scenario.stages, k)
-                if len(t.entry) == 1:
-                    new = [value if i == t.entry[0] else v for i, v in enumerate(old)]
-                else:
-                    new = [list(r) for r in old]
-                    new[t.entry[0]][t.entry[1]] = value
-                scenario = scenario.replace("stages", **{k: new})
+                entries = np.array(getattr(scenario.stages, k), dtype=float)
+                entries[t.entry] = value
+                scenario = scenario.replace("stages", **{k: entries.tolist()})
                 continue
             if not t.tables:
                 scenario = scenario.replace(t.section, **{t.key.name: value})
