@@ -10,7 +10,7 @@ import warnings
 from pathlib import Path
 
 from ._version import __version__
-from .errors import GridpopError, OutputExistsError
+from .errors import GridpopError, OutputExistsError, ScenarioWarning
 
 
 def _scenario_with_overrides(args, path=None):
@@ -230,7 +230,7 @@ def main(argv=None) -> int:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("default")
-            warnings.showwarning = _show_warning
+            warnings.showwarning = _WarningPrinter()
             return args.func(args)
     except GridpopError as exc:
         print(f"gridpop: error: {exc}", file=sys.stderr)
@@ -247,8 +247,21 @@ def main(argv=None) -> int:
         return 1
 
 
-def _show_warning(message, category, filename, lineno, file=None, line=None):
-    print(f"gridpop: warning: {message}", file=sys.stderr)
+class _WarningPrinter:
+    """Prints each warning on one line; a warning that repeats an earlier one for another
+    scenario file (the plans of a comparison share their base) is shortened to a reference."""
+
+    def __init__(self) -> None:
+        self.first: dict[str, str] = {}  # the text after the file -> the file that had it
+
+    def __call__(self, message, category, filename, lineno, file=None, line=None):
+        text = str(message)
+        source, sep, rest = text.partition(": ")
+        if issubclass(category, ScenarioWarning) and sep and source.endswith(".toml"):
+            if rest in self.first and self.first[rest] != source:
+                text = f"{source}: the same as for {Path(self.first[rest]).name} above."
+            self.first.setdefault(rest, source)
+        print(f"gridpop: warning: {text}", file=sys.stderr)
 
 
 if __name__ == "__main__":

@@ -193,3 +193,17 @@ def test_percent_suitability_gets_a_hint(make_raster, tmp_path, scale, hint):
         build_landscape(scenario, stochastic=True)
     assert "values must lie in 0..1" in str(err.value)
     assert ("divide the raster by 100" in str(err.value)) == hint
+
+
+def test_a_warning_repeated_for_every_plan_of_a_comparison_is_printed_once(make_scenario,
+                                                                           tmp_path, capsys):
+    """Plans that share a base share its warnings: the first plan's line says it in full, the
+    others point to it, one short line each (common practice: say a thing once)."""
+    body = text(capacity=30.0)
+    a, b = make_scenario(body, "a.toml"), make_scenario(body, "b.toml")
+    assert main(["compare", str(a), str(b), "--out", str(tmp_path / "cmp"), "--quiet",
+                 "--no-plots", "--replicates", "2", "--years", "2"]) == 0
+    lines = [x for x in capsys.readouterr().err.splitlines()
+             if x.startswith("gridpop: warning: ")]
+    assert len(lines) == 2 and "capacity_per_ha" in lines[0] and str(a) in lines[0]
+    assert lines[1] == f"gridpop: warning: {b}: the same as for a.toml above."
