@@ -411,3 +411,20 @@ def test_uncertain_fecundity_grows_the_population_by_the_matrix_lambda(make_scen
         .dispersal_fraction == (0.6, 0.0)
     np.testing.assert_allclose(np.diag(np.array(aged.stages.transitions), -1),
                                math.exp(-1 / 5.0), rtol=1e-12)
+
+
+@pytest.mark.slow
+def test_a_plans_warning_is_said_once_not_once_per_set(make_scenario, tmp_path):
+    """A plan whose cells hold few individuals is warned about once, in gridpop's one-line form,
+    before the sets run: not again by each Dask worker that runs its sets (common practice:
+    say a thing once)."""
+    path = make_scenario(EXPONENTIAL.format(years=2).replace("stochastic = false",
+                                                             "stochastic = true")
+                         + uncertainty("latin-hypercube", 4,
+                                       growth__rate=("uniform", (0.1, 0.3))))
+    done = subprocess.run(_cli(path, "--out", tmp_path / "out", "--replicates", "2",
+                               "--workers", "2"), capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr
+    lines = [x for x in done.stderr.splitlines() if "arning" in x]
+    assert len(lines) == 1 and lines[0].startswith("gridpop: warning: "), lines
+    assert "capacity_per_ha" in lines[0]

@@ -35,6 +35,7 @@ import json
 import os
 import shutil
 import uuid
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -52,7 +53,7 @@ from ..analysis.sensitivity import (
 )
 from ..analysis.summary import focus_census, summarise
 from ..config import Scenario, UncertaintyConfig, apply_parameters
-from ..errors import RunStateError
+from ..errors import RunStateError, ScenarioWarning
 from ..io.results import check_output, prepare_output, publish, working_folder, write_json
 from ..landscape import Habitat, build_landscape, read_habitat
 from .batches import batch_folder, interrupted, run_batch
@@ -109,8 +110,10 @@ def run_set(study: Study, index: int, work: Path) -> int:
     rows = []
     for plan, habitat in zip(study.plans, study.habitats, strict=True):
         s = apply_parameters(plan, values)
-        model = build_model(s, build_landscape(s, stochastic=s.growth.stochastic,
-                                               habitat=habitat))
+        with warnings.catch_warnings():  # said once per plan, before the sets run
+            warnings.simplefilter("ignore", ScenarioWarning)
+            model = build_model(s, build_landscape(s, stochastic=s.growth.stochastic,
+                                                   habitat=habitat))
         tmp = Path(work) / "sets" / f"{index:05d}.{s.path.stem}.{uuid.uuid4().hex[:12]}.tmp"
         parts = [batch_folder(tmp, b) for b in range(len(model.plan.batches()))]
         for part, reps in zip(parts, model.plan.batches(), strict=True):
@@ -269,7 +272,10 @@ def sensitivity(scenarios: list[Scenario], uncertainty: UncertaintyConfig, out_d
             apply_parameters(s, dict(zip(design.names, map(float, row), strict=True)))
     habitats: dict[tuple, Habitat] = {}
     for s in plans:
-        habitats.setdefault((s.grid.template, s.habitat.suitability), read_habitat(s))
+        key = (s.grid.template, s.habitat.suitability)
+        habitats.setdefault(key, read_habitat(s))
+        # built once here for the plan's own warnings; the sets' models keep quiet
+        build_model(s, build_landscape(s, stochastic=s.growth.stochastic, habitat=habitats[key]))
     grid = next(iter(habitats.values())).grid
     focus: list[str] = []
     for s in plans:
