@@ -72,8 +72,9 @@ def tornado_figure(sens: list[dict], manifest: dict) -> Figure:
     """One panel per output (rows: risk, expected minimum) and plan (columns)."""
     index = TORNADO_INDEX[manifest["design"]]
     plans = [p["name"] for p in manifest["plans"]]
-    fig = Figure(figsize=(5.0 * len(plans), 2 * (0.45 * len(manifest["parameters"]) + 1.4)),
-                 layout="constrained")
+    longest = max(len(p["name"]) for p in manifest["parameters"])  # the tick labels' width
+    fig = Figure(figsize=((3.5 + 0.09 * longest) * len(plans),
+                          2 * (0.45 * len(manifest["parameters"]) + 1.4)), layout="constrained")
     axes = fig.subplots(len(TORNADO_OUTPUTS), len(plans), squeeze=False, sharex="row")
     for row, (output, label) in zip(axes, TORNADO_OUTPUTS.items(), strict=True):
         for ax, plan in zip(row, plans, strict=True):
