@@ -1,0 +1,132 @@
+"""Compiling a run's kernels in two processes at once when numba's cache is cold.
+
+The first run after installing gridpop (or after a kernel changed) spends most of its time
+compiling, and numba compiles one kernel at a time per process. So before the replicates of a
+run on a grid small enough for the serial kernels, :func:`compile_kernels` shares the kernels
+of the yearly cycle between two processes, in two halves of about the same compile time:
+
+- a helper process, forked from the run, takes one year of the model without environmental
+  noise, disturbance, management and movement: that compiles the growth pass (the largest
+  kernel, with the growth and emigration kernels it calls), whose arguments have the same types
+  as in the whole model;
+- meanwhile the run's own process takes the census of year 0 and the conditions of years 1 and 2
+  (:meth:`gridpop.simulation.cycle.Replicate.conditions`: environment, disturbance,
+  management), and moves no emigrants: that compiles the census, the environmental noise, the
+  disturbance and the movement kernels. (The connectivity table, on another thread, compiles
+  its own.)
+- Then the run waits for the helper and loads its kernels from numba's cache.
+
+The helper only fills the cache: the run computes everything itself, with the same compiled
+code, so its results are those of a run without a helper, bit for bit. A helper that fails, is
+slow or is interrupted changes nothing but the time: the run waits for it at most twice as long
+as its own share took (plus :data:`GRACE_S`), then stops it and compiles whatever is missing
+itself. When the run's own share compiled nothing (a warm cache) it stops the helper at once.
+No process outlives :func:`compile_kernels` and its scratch folder is removed; the helper
+ignores Ctrl-C, which the run handles (stopping the helper on its way out). numba's cache is
+made safe for two processes saving at once in :mod:`gridpop._jit`.
+
+Only where a fork is safe and cheap: a process of one thread (``gridpop run``; not, say, a
+notebook with threads of its own) on a system with ``fork`` and ``flock``.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import multiprocessing
+import os
+import signal
+import tempfile
+import threading
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+from numba.core import event
+
+from .. import _jit
+from .cycle import BatchSink, Replicate
+from .model import Model
+
+GRACE_S = 2.0
+"""Seconds the run waits for the helper on top of twice its own share's time."""
+
+
+class _Stopped(Exception):
+    """Raised in the helper by SIGTERM: an exception, so that numba removes a cache file it
+    was writing."""
+
+
+def compile_kernels(model: Model) -> None:
+    """Compile (or load from numba's cache) the kernels of the model's yearly cycle, in two
+    processes when that is possible (see the module docstring); return when the run can start."""
+    if not _can_fork(model):
+        return
+    with tempfile.TemporaryDirectory(prefix="gridpop-compile-") as scratch:
+        helper = multiprocessing.get_context("fork").Process(
+            target=_helper, args=(model, Path(scratch) / "helper"), daemon=True)
+        helper.start()
+        try:
+            start = time.perf_counter()
+            with event.install_recorder("numba:compile") as compiled:
+                _census_conditions_movement(model, Path(scratch) / "run")
+            if compiled.buffer:
+                helper.join(2 * (time.perf_counter() - start) + GRACE_S)
+        finally:
+            _stop(helper)
+
+
+def _can_fork(model: Model) -> bool:
+    return (model.capacity.size < _jit.PARALLEL_CELLS and _jit.CACHE_LOCKED
+            and "fork" in multiprocessing.get_all_start_methods()
+            and threading.active_count() == 1)
+
+
+def _census_conditions_movement(model: Model, scratch: Path) -> None:
+    """The run's share: the census of year 0, the conditions of years 1 and 2 (the
+    environmental noise of year 2 follows on that of year 1), and a year's movement of no
+    emigrants."""
+    sink = BatchSink(scratch, model, range(1))
+    rep = Replicate(model, 0, sink.ledger[0])
+    rep.start(sink)
+    rep.conditions(1, sink)
+    year = rep.conditions(2, sink)
+    if model.movement is not None:
+        model.movement.mover.move(np.zeros(model.capacity.shape), year.k, year.streams, {})
+
+
+def _growth(model: Model, scratch: Path) -> None:
+    """The helper's share: one year of the model without environmental noise, disturbance,
+    management and movement."""
+    plain = dataclasses.replace(model, regime=None, management=None, movement=None,
+                                growth=dataclasses.replace(model.growth, env=None))
+    sink = BatchSink(scratch, plain, range(1))
+    Replicate(plain, 0, sink.ledger[0]).advance(1, sink)
+
+
+def _helper(model: Model, scratch: Path) -> None:
+    """The helper process: quiet, deaf to Ctrl-C, stopped by SIGTERM."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, _raise_stopped)
+    quiet = os.open(os.devnull, os.O_WRONLY)
+    os.dup2(quiet, 1)
+    os.dup2(quiet, 2)
+    warnings.simplefilter("ignore")
+    with contextlib.suppress(_Stopped):
+        _growth(model, scratch)
+
+
+def _raise_stopped(signum, frame):
+    raise _Stopped
+
+
+def _stop(helper) -> None:
+    """Stop the helper if it still runs, and reap it."""
+    if helper.is_alive():
+        helper.terminate()
+        helper.join(5.0)
+    if helper.is_alive():
+        helper.kill()
+    helper.join()
+    helper.close()
