@@ -41,8 +41,8 @@ from .batches import (
 from .distributed import check_execution
 from .model import build_model
 from .resources import check_room, ensure_space, footprint
-from .warmup import compile_kernels
 from .results import write_results
+from .warmup import kernels_compiled
 
 
 def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
@@ -106,9 +106,8 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
     if not force:
         check_room(fp, work, workers=workers, scheduler=scheduler,
                    finished=len(finished) / len(plan))
-    if local and len(finished) < len(plan):
-        compile_kernels(model)
-    connectivity = _connectivity_in_background(model)
+    with kernels_compiled(model, wanted=local and len(finished) < len(plan)):
+        connectivity = _connectivity_in_background(model)
     cluster: contextlib.AbstractContextManager
     if local:
         cluster = contextlib.nullcontext()

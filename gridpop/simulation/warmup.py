@@ -2,7 +2,7 @@
 
 The first run after installing gridpop (or after a kernel changed) spends most of its time
 compiling, and numba compiles one kernel at a time per process. So before the replicates of a
-run on a grid small enough for the serial kernels, :func:`compile_kernels` shares the kernels
+run on a grid small enough for the serial kernels, :func:`kernels_compiled` shares the kernels
 of the yearly cycle between two processes, in two halves of about the same compile time:
 
 - a helper process, forked from the run, takes one year of the model without environmental
@@ -12,16 +12,16 @@ of the yearly cycle between two processes, in two halves of about the same compi
 - meanwhile the run's own process takes the census of year 0 and the conditions of years 1 and 2
   (:meth:`gridpop.simulation.cycle.Replicate.conditions`: environment, disturbance,
   management), and moves no emigrants: that compiles the census, the environmental noise, the
-  disturbance and the movement kernels. (The connectivity table, on another thread, compiles
-  its own.)
-- Then the run waits for the helper and loads its kernels from numba's cache.
+  disturbance and the movement kernels, while the connectivity table's thread compiles
+  its own;
+- then the run waits for the helper and loads its kernels from numba's cache.
 
 The helper only fills the cache: the run computes everything itself, with the same compiled
 code, so its results are those of a run without a helper, bit for bit. A helper that fails, is
 slow or is interrupted changes nothing but the time: the run waits for it at most twice as long
 as its own share took (plus :data:`GRACE_S`), then stops it and compiles whatever is missing
 itself. When the run's own share compiled nothing (a warm cache) it stops the helper at once.
-No process outlives :func:`compile_kernels` and its scratch folder is removed; the helper
+No process outlives :func:`kernels_compiled` and its scratch folder is removed; the helper
 ignores Ctrl-C, which the run handles (stopping the helper on its way out). numba's cache is
 made safe for two processes saving at once in :mod:`gridpop._jit`.
 
@@ -58,16 +58,25 @@ class _Stopped(Exception):
     was writing."""
 
 
-def compile_kernels(model: Model) -> None:
+@contextlib.contextmanager
+def kernels_compiled(model: Model, wanted: bool = True):
     """Compile (or load from numba's cache) the kernels of the model's yearly cycle, in two
-    processes when that is possible (see the module docstring); return when the run can start."""
-    if not _can_fork(model):
+    processes when ``wanted`` and possible (see the module docstring).
+
+    The helper is forked on entry, before the body of the ``with`` runs: start other threads
+    (the connectivity table) in the body, never before. On exit the run's share is compiled and
+    the helper waited for and stopped; the run can then start. An exception from the body
+    stops the helper at once.
+    """
+    if not (wanted and _can_fork(model)):
+        yield
         return
     with tempfile.TemporaryDirectory(prefix="gridpop-compile-") as scratch:
         helper = multiprocessing.get_context("fork").Process(
             target=_helper, args=(model, Path(scratch) / "helper"), daemon=True)
         helper.start()
         try:
+            yield
             start = time.perf_counter()
             with event.install_recorder("numba:compile") as compiled:
                 _census_conditions_movement(model, Path(scratch) / "run")
