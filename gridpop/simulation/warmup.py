@@ -25,8 +25,9 @@ No process outlives :func:`kernels_compiled` and its scratch folder is removed; 
 ignores Ctrl-C, which the run handles (stopping the helper on its way out). numba's cache is
 made safe for two processes saving at once in :mod:`gridpop._jit`.
 
-Only where a fork is safe and cheap: a process of one thread (``gridpop run``; not, say, a
-notebook with threads of its own) on a system with ``fork`` and ``flock``.
+Only where a fork is safe and cheap (:func:`_can_fork`): a process of one thread that has not
+started numba's thread pool (``gridpop run``; not, say, a notebook with threads of its own) on
+a system with ``fork`` and ``flock``.
 """
 
 from __future__ import annotations
@@ -42,6 +43,7 @@ import time
 import warnings
 from pathlib import Path
 
+import numba
 import numpy as np
 from numba.core import event
 
@@ -87,9 +89,19 @@ def kernels_compiled(model: Model, wanted: bool = True):
 
 
 def _can_fork(model: Model) -> bool:
+    """A small grid (serial kernels: the helper's year is quick), a locked cache, ``fork``, and
+    nothing a fork could catch half-way: no other Python thread, no numba thread pool yet."""
     return (model.capacity.size < _jit.PARALLEL_CELLS and _jit.CACHE_LOCKED
             and "fork" in multiprocessing.get_all_start_methods()
-            and threading.active_count() == 1)
+            and threading.active_count() == 1 and not _thread_pool_started())
+
+
+def _thread_pool_started() -> bool:
+    try:
+        numba.threading_layer()
+    except ValueError:  # "not initialized": no parallel kernel has run in this process
+        return False
+    return True
 
 
 def _census_conditions_movement(model: Model, scratch: Path) -> None:
