@@ -327,7 +327,7 @@ def test_settle_and_census_sums_match_numpy():
     after = n + settled
     ever_after = ever | (after >= 1.0)
     got = n.copy()[None]
-    part, _ = census_pass(labels, n_patches, k, got, got[0], np.ones(1, np.uint8),
+    part, _ = census_pass(labels, n_patches, k, got, got[0], None,
                           arrivals[None], np.zeros(1, np.int64), stayed, dist, 1.0, ever, *acc)
     s = patch_totals(part)
     got = got[0]

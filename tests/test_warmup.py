@@ -29,28 +29,28 @@ DEMO = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "base.toml"
 
 @pytest.fixture
 def helper_log(tmp_path, monkeypatch):
-    """The helper runs whatever the test puts in ``warmup._growth`` (after writing a marker, so
-    the test knows it was started), the run's share compiles a new function (as with a cold
-    cache, so that the run waits for the helper), and scratch folders go under tmp_path."""
+    """The helper runs whatever the test installs as its share (after writing a marker, so the
+    test knows it was started), the run's share compiles a new function (as with a cold cache,
+    so that the run waits for the helper), and scratch folders go under tmp_path."""
     marker = tmp_path / "helper-started"
     scratch = tmp_path / "scratch"
     scratch.mkdir()
     monkeypatch.setattr(warmup.tempfile, "tempdir", str(scratch))
     monkeypatch.setattr(warmup, "_can_fork", lambda model: True)
-    share = warmup._census_conditions_movement
+    share = warmup._census_and_conditions
 
     def compiling_share(model, folder):
         share(model, folder)
         numba.njit(lambda x: x + 1)(1)  # a new function: one compile event
 
-    monkeypatch.setattr(warmup, "_census_conditions_movement", compiling_share)
+    monkeypatch.setattr(warmup, "_census_and_conditions", compiling_share)
 
     def install(work):
         def helper_share(model, folder):
             marker.write_text("started\n")
             work()
 
-        monkeypatch.setattr(warmup, "_growth", helper_share)
+        monkeypatch.setattr(warmup, "_growth_and_movement", helper_share)
 
     return install, marker, scratch
 
@@ -109,7 +109,7 @@ def test_interrupted_run_stops_the_helper(make_scenario, tmp_path, monkeypatch, 
             time.sleep(0.05)
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(warmup, "_census_conditions_movement", interrupted)
+    monkeypatch.setattr(warmup, "_census_and_conditions", interrupted)
     with pytest.raises(KeyboardInterrupt):
         run(scen, tmp_path / "out")
     assert marker.is_file()

@@ -258,7 +258,9 @@ def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving,
     ``n`` (C, ny, nx) holds the residents per class on entry and the census counts on return:
     class ``c`` gains ``arrivals[arriving[c]]`` where capacity ``k > 0`` (``arriving[c] < 0``:
     none; arrivals elsewhere are lost). ``abundance`` (ny, nx) gets the census abundance, the
-    sum of the classes where ``counted`` is 1 (with one class it may be ``n[0]`` itself).
+    sum of the classes where ``counted`` is 1; ``counted`` is None with one class, and
+    ``abundance`` is then ``n[0]`` itself (None rather than a flag: numba then leaves the
+    kernels of several classes out when it compiles this one).
     ``arrivals`` may be (A, 1, nx), ``stayed`` (the dispersers that landed back home) and
     ``dist_deaths`` (the year's disturbance deaths) (1, nx), zeros. Adds this year's per-cell
     abundance, occupancy and ever-occupied to the accumulators (``ever``: this replicate's
@@ -278,15 +280,14 @@ def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving,
             v, ki, e, sn, oc, ec = abundance[i], k[i], ever[i], sum_n[i], occupied[i], \
                 ever_count[i]
             st = _row_of(stayed, i)
-            one = classes == 1  # settled in the census loop below (v is n[0, i])
             a0 = _row_of(arrivals[max(arriving[0], 0)], i)
             lands = arriving[0] >= 0
-            if not one:
+            if counted is not None:  # one class is settled in the census loop below
                 _settle_classes(n, i, ki, arrivals, arriving, counted, v, settled)
                 _run_sums_block(per_class, c, labels[i], n_patches, n[:, i])
             for j in range(nx):
                 here = ki[j] > 0.0
-                if one:
+                if counted is None:
                     settled[j] = a0[j] if here and lands else 0.0
                     v[j] += settled[j]
                 home[j] = st[j] if here else 0.0
@@ -466,7 +467,8 @@ class Replicate:
         """Settle the arrivals, take the census of year ``t`` into ``sink`` and the ledger."""
         c, life = self.model.census, self.model.growth.life
         part, per_class = census_pass(
-            c.labels, c.n_patches, k, self.n, self.abundance, life.counted, arrivals, arriving,
+            c.labels, c.n_patches, k, self.n, self.abundance,
+            life.counted if life.classes > 1 else None, arrivals, arriving,
             stayed, dist_deaths, c.occupancy_threshold, self.ever, sink.acc["sum_n"][t],
             sink.acc["occupied"][t], sink.acc["ever"][t])
         s = CensusSums(*patch_totals(part).T)

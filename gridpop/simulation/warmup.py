@@ -6,14 +6,13 @@ run on a grid small enough for the serial kernels, :func:`kernels_compiled` shar
 of the yearly cycle between two processes, in two halves of about the same compile time:
 
 - a helper process, forked from the run, takes one year of the model without environmental
-  noise, disturbance, management and movement: that compiles the growth pass (the largest
-  kernel, with the growth and emigration kernels it calls), whose arguments have the same types
-  as in the whole model;
+  noise, disturbance and management: that compiles the growth pass (the largest kernel, with
+  the growth, emigration and random number kernels it calls) and the movement kernels, whose
+  arguments have the same types as in the whole model;
 - meanwhile the run's own process takes the census of year 0 and the conditions of years 1 and 2
   (:meth:`gridpop.simulation.cycle.Replicate.conditions`: environment, disturbance,
-  management), and moves no emigrants: that compiles the census, the environmental noise, the
-  disturbance and the movement kernels, while the connectivity table's thread compiles
-  its own;
+  management): that compiles the census, the environmental noise and the disturbance kernels,
+  while the connectivity table's thread compiles its own;
 - then the run waits for the helper and loads its kernels from numba's cache.
 
 The helper only fills the cache: the run computes everything itself, with the same compiled
@@ -44,7 +43,6 @@ import warnings
 from pathlib import Path
 
 import numba
-import numpy as np
 from numba.core import event
 
 from .. import _jit
@@ -81,7 +79,7 @@ def kernels_compiled(model: Model, wanted: bool = True):
             yield
             start = time.perf_counter()
             with event.install_recorder("numba:compile") as compiled:
-                _census_conditions_movement(model, Path(scratch) / "run")
+                _census_and_conditions(model, Path(scratch) / "run")
             if compiled.buffer:
                 helper.join(2 * (time.perf_counter() - start) + GRACE_S)
         finally:
@@ -104,23 +102,20 @@ def _thread_pool_started() -> bool:
     return True
 
 
-def _census_conditions_movement(model: Model, scratch: Path) -> None:
-    """The run's share: the census of year 0, the conditions of years 1 and 2 (the
-    environmental noise of year 2 follows on that of year 1), and a year's movement of no
-    emigrants."""
+def _census_and_conditions(model: Model, scratch: Path) -> None:
+    """The run's share: the census of year 0 and the conditions of years 1 and 2 (the
+    environmental noise of year 2 follows on that of year 1)."""
     sink = BatchSink(scratch, model, range(1))
     rep = Replicate(model, 0, sink.ledger[0])
     rep.start(sink)
     rep.conditions(1, sink)
-    year = rep.conditions(2, sink)
-    if model.movement is not None:
-        model.movement.mover.move(np.zeros(model.capacity.shape), year.k, year.streams, {})
+    rep.conditions(2, sink)
 
 
-def _growth(model: Model, scratch: Path) -> None:
-    """The helper's share: one year of the model without environmental noise, disturbance,
-    management and movement."""
-    plain = dataclasses.replace(model, regime=None, management=None, movement=None,
+def _growth_and_movement(model: Model, scratch: Path) -> None:
+    """The helper's share: one year of the model without environmental noise, disturbance and
+    management."""
+    plain = dataclasses.replace(model, regime=None, management=None,
                                 growth=dataclasses.replace(model.growth, env=None))
     sink = BatchSink(scratch, plain, range(1))
     Replicate(plain, 0, sink.ledger[0]).advance(1, sink)
@@ -135,7 +130,7 @@ def _helper(model: Model, scratch: Path) -> None:
     os.dup2(quiet, 2)
     warnings.simplefilter("ignore")
     with contextlib.suppress(_Stopped):
-        _growth(model, scratch)
+        _growth_and_movement(model, scratch)
 
 
 def _raise_stopped(signum, frame):
