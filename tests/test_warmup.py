@@ -118,13 +118,18 @@ def test_interrupted_run_stops_the_helper(make_scenario, tmp_path, monkeypatch, 
 
 
 def test_no_helper_on_a_large_grid_or_with_threads(make_scenario, monkeypatch):
-    """A fork is not attempted on a grid for the parallel kernels, with another thread running
-    or once numba's thread pool runs (a fork copies a thread's locks half-held)."""
+    """A fork is not attempted on a grid for the parallel kernels, on one core, with another
+    thread running or once numba's thread pool runs (a fork copies a thread's locks
+    half-held)."""
     scen = load_scenario(make_scenario(scenario_text(years=2, replicates=1)))
     model = build_model(scen, build_landscape(scen, stochastic=True))
     monkeypatch.setattr(warmup, "_thread_pool_started", lambda: False)
     monkeypatch.setattr(warmup.threading, "active_count", lambda: 1)
+    monkeypatch.setattr(warmup, "_cores", lambda: 2)
     assert warmup._can_fork(model)
+    with monkeypatch.context() as m:
+        m.setattr(warmup, "_cores", lambda: 1)
+        assert not warmup._can_fork(model)
     with monkeypatch.context() as m:
         m.setattr(_jit, "PARALLEL_CELLS", model.capacity.size)
         assert not warmup._can_fork(model)

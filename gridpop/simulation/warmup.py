@@ -24,9 +24,9 @@ No process outlives :func:`kernels_compiled` and its scratch folder is removed; 
 ignores Ctrl-C, which the run handles (stopping the helper on its way out). numba's cache is
 made safe for two processes saving at once in :mod:`gridpop._jit`.
 
-Only where a fork is safe and cheap (:func:`_can_fork`): a process of one thread that has not
-started numba's thread pool (``gridpop run``; not, say, a notebook with threads of its own) on
-a system with ``fork`` and ``flock``.
+Only where a fork is safe and useful (:func:`_can_fork`): two cores or more, and a process of
+one thread that has not started numba's thread pool (``gridpop run``; not, say, a notebook
+with threads of its own), on a system with ``fork`` and ``flock``.
 """
 
 from __future__ import annotations
@@ -87,11 +87,19 @@ def kernels_compiled(model: Model, wanted: bool = True):
 
 
 def _can_fork(model: Model) -> bool:
-    """A small grid (serial kernels: the helper's year is quick), a locked cache, ``fork``, and
-    nothing a fork could catch half-way: no other Python thread, no numba thread pool yet."""
-    return (model.capacity.size < _jit.PARALLEL_CELLS and _jit.CACHE_LOCKED
+    """A small grid (serial kernels: the helper's year is quick), a second core, a locked
+    cache, ``fork``, and nothing a fork could catch half-way: no other Python thread, no numba
+    thread pool yet."""
+    return (model.capacity.size < _jit.PARALLEL_CELLS and _cores() > 1 and _jit.CACHE_LOCKED
             and "fork" in multiprocessing.get_all_start_methods()
             and threading.active_count() == 1 and not _thread_pool_started())
+
+
+def _cores() -> int:
+    """The cores this process may run on."""
+    if hasattr(os, "sched_getaffinity"):
+        return len(os.sched_getaffinity(0))
+    return os.cpu_count() or 1
 
 
 def _thread_pool_started() -> bool:
