@@ -85,9 +85,10 @@ def _lock_cache_files() -> bool:
     name the index does not use yet and writing the index and then the data file, each replaced
     whole. Two processes saving two signatures of one function at the same moment can both pick
     the same data file, leaving an index entry that names the other signature's code; and a
-    reader can find an entry whose data file is not written yet. Here every save and load of a
-    cache entry holds an exclusive ``flock`` on the cache folder, so each sees the index and the
-    data of complete saves only. Returns False (nothing changed) where ``flock`` does not exist.
+    reader can find an entry whose data file is not written yet. Here every save of a cache
+    entry holds an exclusive ``flock`` on the cache folder and every load a shared one, so each
+    sees the index and the data of complete saves only, and loads do not wait for each other.
+    Returns False (nothing changed) where ``flock`` does not exist.
     """
     try:
         import fcntl
@@ -96,7 +97,7 @@ def _lock_cache_files() -> bool:
     except ImportError:
         return False
 
-    def locked(method):
+    def locked(method, mode):
         @functools.wraps(method)
         def under_lock(self, *args):
             try:
@@ -104,15 +105,15 @@ def _lock_cache_files() -> bool:
             except OSError:  # no cache folder yet: nothing to load, and a save creates it first
                 return method(self, *args)
             try:
-                fcntl.flock(folder, fcntl.LOCK_EX)
+                fcntl.flock(folder, mode)
                 return method(self, *args)
             finally:
                 os.close(folder)  # releases the lock
 
         return under_lock
 
-    for name in ("save", "load"):
-        setattr(IndexDataCacheFile, name, locked(getattr(IndexDataCacheFile, name)))
+    for name, mode in (("save", fcntl.LOCK_EX), ("load", fcntl.LOCK_SH)):
+        setattr(IndexDataCacheFile, name, locked(getattr(IndexDataCacheFile, name), mode))
     return True
 
 

@@ -13,7 +13,7 @@ import threading
 import time
 from pathlib import Path
 
-import numba
+import numpy as np
 import psutil
 import pytest
 from conftest import same_results, scenario_text
@@ -30,20 +30,14 @@ DEMO = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "base.toml"
 @pytest.fixture
 def helper_log(tmp_path, monkeypatch):
     """The helper runs whatever the test installs as its share (after writing a marker, so the
-    test knows it was started), the run's share compiles a new function (as with a cold cache,
-    so that the run waits for the helper), and scratch folders go under tmp_path."""
+    test knows it was started), as with a cold cache (this process has every kernel compiled
+    already), and scratch folders go under tmp_path."""
     marker = tmp_path / "helper-started"
     scratch = tmp_path / "scratch"
     scratch.mkdir()
     monkeypatch.setattr(warmup.tempfile, "tempdir", str(scratch))
     monkeypatch.setattr(warmup, "_can_fork", lambda model: True)
-    share = warmup._census_and_conditions
-
-    def compiling_share(model, folder):
-        share(model, folder)
-        numba.njit(lambda x: x + 1)(1)  # a new function: one compile event
-
-    monkeypatch.setattr(warmup, "_census_and_conditions", compiling_share)
+    monkeypatch.setattr(warmup, "_cold_cache", lambda: True)
 
     def install(work):
         def helper_share(model, folder):
@@ -139,6 +133,20 @@ def test_no_helper_on_a_large_grid_or_with_threads(make_scenario, monkeypatch):
     with monkeypatch.context() as m:
         m.setattr(warmup, "_thread_pool_started", lambda: True)
         assert not warmup._can_fork(model)
+
+
+def test_warm_process_starts_no_helper(make_scenario, tmp_path, monkeypatch):
+    """In a process that has its kernels already (as after a warm cache), no helper is forked:
+    it would only cost time."""
+    from gridpop import rng
+
+    rng.mix64(np.uint64(0))
+    assert not warmup._cold_cache()
+    started = []
+    monkeypatch.setattr(warmup.multiprocessing, "get_context", started.append)
+    scen = load_scenario(make_scenario(scenario_text(years=2, replicates=1)))
+    run(scen, tmp_path / "out")
+    assert started == []
 
 
 def test_cache_saves_wait_for_the_folder_lock(tmp_path):

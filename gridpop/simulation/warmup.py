@@ -19,7 +19,7 @@ The helper only fills the cache: the run computes everything itself, with the sa
 code, so its results are those of a run without a helper, bit for bit. A helper that fails, is
 slow or is interrupted changes nothing but the time: the run waits for it at most twice as long
 as its own share took (plus :data:`GRACE_S`), then stops it and compiles whatever is missing
-itself. When the run's own share compiled nothing (a warm cache) it stops the helper at once.
+itself. With a warm cache there is no helper.
 No process outlives :func:`kernels_compiled` and its scratch folder is removed; the helper
 ignores Ctrl-C, which the run handles (stopping the helper on its way out). numba's cache is
 made safe for two processes saving at once in :mod:`gridpop._jit`.
@@ -43,9 +43,10 @@ import warnings
 from pathlib import Path
 
 import numba
+import numpy as np
 from numba.core import event
 
-from .. import _jit
+from .. import _jit, rng
 from .cycle import BatchSink, Replicate
 from .model import Model
 
@@ -66,9 +67,10 @@ def kernels_compiled(model: Model, wanted: bool = True):
     The helper is forked on entry, before the body of the ``with`` runs: start other threads
     (the connectivity table) in the body, never before. On exit the run's share is compiled and
     the helper waited for and stopped; the run can then start. An exception from the body
-    stops the helper at once.
+    stops the helper at once. With a warm cache (:func:`_cold_cache`) there is no helper and
+    the run loads its kernels as it goes.
     """
-    if not (wanted and _can_fork(model)):
+    if not (wanted and _can_fork(model) and _cold_cache()):
         yield
         return
     with tempfile.TemporaryDirectory(prefix="gridpop-compile-") as scratch:
@@ -78,12 +80,19 @@ def kernels_compiled(model: Model, wanted: bool = True):
         try:
             yield
             start = time.perf_counter()
-            with event.install_recorder("numba:compile") as compiled:
-                _census_and_conditions(model, Path(scratch) / "run")
-            if compiled.buffer:
-                helper.join(2 * (time.perf_counter() - start) + GRACE_S)
+            _census_and_conditions(model, Path(scratch) / "run")
+            helper.join(2 * (time.perf_counter() - start) + GRACE_S)
         finally:
             _stop(helper)
+
+
+def _cold_cache() -> bool:
+    """Whether numba had to compile the first kernel of every yearly cycle (a mixing step of
+    the random numbers, a fraction of a second) rather than find it in its cache or in this
+    process: a cache that has it is taken as warm, and a helper would only cost time."""
+    with event.install_recorder("numba:compile") as probe:
+        rng.mix64(np.uint64(0))
+    return bool(probe.buffer)
 
 
 def _can_fork(model: Model) -> bool:
