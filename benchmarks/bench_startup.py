@@ -6,9 +6,12 @@ outputs and plots), first with ``NUMBA_CACHE_DIR`` pointing at an empty folder (
 compiled and written to the cache), then again with the same folder (kernels loaded from disk).
 Then the whole demo run (all its replicates) with the warm cache.
 
-Each figure is the wall time and the CPU time (user + system, of the process and its threads)
-of a run, the least over ``--repeat`` rounds (each with a new empty cache): the machine may be
-shared, and the least is the least disturbed run; CPU time is disturbed less than wall time.
+Each figure is the wall time and the CPU time (user + system, of the process, its threads and
+the helper process that compiles part of the kernels when the cache is cold,
+:mod:`gridpop.simulation.warmup`) of a run, the least over ``--repeat`` rounds (each with a new
+empty cache): the machine may be shared, and the least is the least disturbed run; CPU time is
+disturbed less than wall time. With the helper, a cold run's wall time is less than its CPU
+time: two cores compile at once.
 
 Usage: python benchmarks/bench_startup.py [--quick] [--repeat N]
 Writes benchmarks/results/bench_startup.json (bench_startup_quick.json with --quick).

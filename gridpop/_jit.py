@@ -14,10 +14,14 @@ Time to first result (an empty cache) is mostly compiling, so:
   with from another kernel (``uniform(key, 0)``, ``uniform(key, 1)``): kernels pass integer
   constants as typed values (``uniform(key, np.int64(0))``), and cast a ``prange`` index
   (unsigned) with ``np.int64`` before handing it on, so that callees are compiled once.
+- With an empty cache, a run on a small grid compiles in two processes at once
+  (:mod:`gridpop.simulation.warmup`); :func:`_lock_cache_files` makes that safe.
 """
 
 from __future__ import annotations
 
+import functools
+import os
 import types
 
 import numba
@@ -72,3 +76,46 @@ def pjit(func) -> SizedKernel:
     """Kernel whose ``numba.prange`` loops run on numba's thread pool on large arrays (see
     :class:`SizedKernel`)."""
     return SizedKernel(func)
+
+
+def _lock_cache_files() -> bool:
+    """Make numba's cache safe for several processes compiling into it at once.
+
+    numba saves a compiled signature by reading the function's index file, picking a data file
+    name the index does not use yet and writing the index and then the data file, each replaced
+    whole. Two processes saving two signatures of one function at the same moment can both pick
+    the same data file, leaving an index entry that names the other signature's code; and a
+    reader can find an entry whose data file is not written yet. Here every save of a cache
+    entry holds an exclusive ``flock`` on the cache folder and every load a shared one, so each
+    sees the index and the data of complete saves only, and loads do not wait for each other.
+    Returns False (nothing changed) where ``flock`` does not exist.
+    """
+    try:
+        import fcntl
+
+        from numba.core.caching import IndexDataCacheFile
+    except ImportError:
+        return False
+
+    def locked(method, mode):
+        @functools.wraps(method)
+        def under_lock(self, *args):
+            try:
+                folder = os.open(self._cache_path, os.O_RDONLY)
+            except OSError:  # no cache folder yet: nothing to load, and a save creates it first
+                return method(self, *args)
+            try:
+                fcntl.flock(folder, mode)
+                return method(self, *args)
+            finally:
+                os.close(folder)  # releases the lock
+
+        return under_lock
+
+    for name, mode in (("save", fcntl.LOCK_EX), ("load", fcntl.LOCK_SH)):
+        setattr(IndexDataCacheFile, name, locked(getattr(IndexDataCacheFile, name), mode))
+    return True
+
+
+CACHE_LOCKED = _lock_cache_files()
+"""Whether saves and loads of numba's cache are locked (:func:`_lock_cache_files`)."""

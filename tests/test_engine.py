@@ -19,7 +19,6 @@ from gridpop.movement.emigration import leaving_deterministic, leaving_stochasti
 from gridpop.simulation.check import describe
 from gridpop.simulation.cycle import census_pass, grow_pass, patch_totals
 from gridpop.simulation.model import Emigration, GrowthRates, build_model
-from gridpop.stages import one_stage
 
 
 def read_ledger(path, patches=False):
@@ -297,7 +296,7 @@ def test_serial_and_parallel_variants_agree():
     for variant in (grow_pass.serial, grow_pass.parallel):
         out, lv = np.empty((1, ny, nx)), np.empty((1, ny, nx))
         part = variant(labels, n_patches, n[None], k, np.full((1, 1), 0.1), out, lv,
-                       rates, one_stage(), np.array([0.3]), Emigration(0.3, 1.0), keys,
+                       rates, None, np.array([0.3]), Emigration(0.3, 1.0), keys,
                        NO_RETENTION)
         results.append((out, lv, part))
     for a, b in zip(*results, strict=True):
@@ -328,7 +327,7 @@ def test_settle_and_census_sums_match_numpy():
     after = n + settled
     ever_after = ever | (after >= 1.0)
     got = n.copy()[None]
-    part, _ = census_pass(labels, n_patches, k, got, got[0], np.ones(1, np.uint8),
+    part, _ = census_pass(labels, n_patches, k, got, got[0], None,
                           arrivals[None], np.zeros(1, np.int64), stayed, dist, 1.0, ever, *acc)
     s = patch_totals(part)
     got = got[0]
@@ -374,7 +373,7 @@ def test_growth_pass_matches_the_stage_functions(stochastic):
     out, lv = np.empty((1, ny, nx)), np.empty((1, ny, nx))
     rates = GrowthRates(model, rate, surv, theta, 0.0, stochastic)
     s = patch_totals(grow_pass(labels, n_patches, n[None], k, np.zeros((1, nx)), out, lv, rates,
-                               one_stage(), np.array([0.25]), Emigration(0.25, 1.0), keys,
+                               None, np.array([0.25]), Emigration(0.25, 1.0), keys,
                                NO_RETENTION))
     out, lv = out[0], lv[0]
     np.testing.assert_array_equal(lv, leaving)

@@ -158,8 +158,10 @@ def grow_pass(labels, n_patches, n, k, env, out, leaving, rates, stages, fractio
     ``n``, ``out``, ``leaving``: (C, ny, nx) counts per class (:mod:`gridpop.stages`; one class
     for the stage-free model). ``env``: the year's environmental field, or (1, 1) for one
     deviation everywhere. ``rates``: :class:`GrowthRates`; ``stages``:
-    :class:`gridpop.stages.StageRates` (``matrix`` False: the scalar kernel
-    :func:`gridpop.demography.grow_row` grows the one class); ``fractions``: (C,) emigration
+    :class:`gridpop.stages.StageRates`, or None for the stage-free model, whose one class the
+    scalar kernel :func:`gridpop.demography.grow_row` grows (None rather than ``matrix``
+    False: numba then leaves the stage kernels out when it compiles this one, which
+    takes a good part of a cold start); ``fractions``: (C,) emigration
     fraction per class; ``emigration``: :class:`Emigration` (its density dependence acts on the
     density-stage total); ``keys``: year keys of survival, births, emigration, transitions and
     sex (stochastic); class ``c`` of cell ``i * nx + j`` is drawn as cell
@@ -186,7 +188,7 @@ def grow_pass(labels, n_patches, n, k, env, out, leaving, rates, stages, fractio
         dens, total = np.empty(nx), np.empty(nx)
         for i in range(c * rows, min(ny, (c + 1) * rows)):
             ki = k[i]
-            if stages.matrix:
+            if stages is not None:
                 stage_row(n[:, i], ki, _row_of(env, i), out[:, i], births, deaths, dens,
                           rates.model, rates.theta, rates.allee_a, stages, stochastic,
                           stage_keys, i * nx, ny * nx)
@@ -195,7 +197,7 @@ def grow_pass(labels, n_patches, n, k, env, out, leaving, rates, stages, fractio
                 grow_row(n[0, i], ki, _row_of(env, i), out[0, i], births, deaths, rates.model,
                          rates.r, rates.s, rates.theta, rates.allee_a, stochastic, keys[0],
                          keys[1], i * nx)
-            density = out[0, i] if not stages.matrix else dens
+            density = out[0, i] if stages is None else dens
             lv = leaving[0, i]
             for a in range(classes):
                 o, lv = out[a, i], leaving[a, i]
@@ -256,7 +258,9 @@ def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving,
     ``n`` (C, ny, nx) holds the residents per class on entry and the census counts on return:
     class ``c`` gains ``arrivals[arriving[c]]`` where capacity ``k > 0`` (``arriving[c] < 0``:
     none; arrivals elsewhere are lost). ``abundance`` (ny, nx) gets the census abundance, the
-    sum of the classes where ``counted`` is 1 (with one class it may be ``n[0]`` itself).
+    sum of the classes where ``counted`` is 1; ``counted`` is None with one class, and
+    ``abundance`` is then ``n[0]`` itself (None rather than a flag: numba then leaves the
+    kernels of several classes out when it compiles this one).
     ``arrivals`` may be (A, 1, nx), ``stayed`` (the dispersers that landed back home) and
     ``dist_deaths`` (the year's disturbance deaths) (1, nx), zeros. Adds this year's per-cell
     abundance, occupancy and ever-occupied to the accumulators (``ever``: this replicate's
@@ -276,15 +280,14 @@ def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving,
             v, ki, e, sn, oc, ec = abundance[i], k[i], ever[i], sum_n[i], occupied[i], \
                 ever_count[i]
             st = _row_of(stayed, i)
-            one = classes == 1  # settled in the census loop below (v is n[0, i])
             a0 = _row_of(arrivals[max(arriving[0], 0)], i)
             lands = arriving[0] >= 0
-            if not one:
+            if counted is not None:  # one class is settled in the census loop below
                 _settle_classes(n, i, ki, arrivals, arriving, counted, v, settled)
                 _run_sums_block(per_class, c, labels[i], n_patches, n[:, i])
             for j in range(nx):
                 here = ki[j] > 0.0
-                if one:
+                if counted is None:
                     settled[j] = a0[j] if here and lands else 0.0
                     v[j] += settled[j]
                 home[j] = st[j] if here else 0.0
@@ -297,6 +300,15 @@ def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving,
             _run_sums(part, c, labels[i], n_patches, v, _row_of(dist_deaths, i), occ, settled,
                       home, zero)
     return part, per_class
+
+
+class YearConditions(NamedTuple):
+    """What :meth:`Replicate.conditions` gives the growth of a year."""
+
+    streams: YearStreams
+    env: np.ndarray  # the environmental field, (1, 1) without
+    k: np.ndarray  # capacity after disturbance
+    dist_deaths: np.ndarray  # disturbance deaths per cell, (1, nx) zeros without
 
 
 class Replicate:
@@ -356,7 +368,10 @@ class Replicate:
             share_deaths(self.n, before, n, m.growth.stochastic)
         return effects
 
-    def advance(self, t: int, sink: BatchSink) -> None:
+    def conditions(self, t: int, sink: BatchSink) -> YearConditions:
+        """Steps 1 and 2 of the transition to census year ``t`` (and the releases and
+        removals of management): the year's environmental field, its capacity after
+        disturbance and the disturbance deaths."""
         m, year = self.model, t - 1
         seed = m.plan.seed
         streams = YearStreams(seed, self.replicate, year)
@@ -374,6 +389,11 @@ class Replicate:
         if m.management is not None:
             self.ledger[t, :, N_FIELDS:N_FIELDS + 2] = np.stack(m.management.apply(
                 self.n, k, year, streams, m.growth.stochastic), axis=1)
+        return YearConditions(streams, env, k, dist_deaths)
+
+    def advance(self, t: int, sink: BatchSink) -> None:
+        m = self.model
+        streams, env, k, dist_deaths = self.conditions(t, sink)
         movement = m.movement
         retention = movement.mover.retention(k) if movement is not None else NO_RETENTION
         counted = retention.own.shape[0] > 0  # the growth pass counts the retention
@@ -383,7 +403,7 @@ class Replicate:
         c = m.census
         g = GrowthSums(*patch_totals(grow_pass(
             c.labels, c.n_patches, self.n, k, env, self._out, self._leaving, m.growth.rates,
-            m.growth.life.rates, self._fractions,
+            m.growth.life.rates if m.growth.life.rates.matrix else None, self._fractions,
             movement.emigration if movement is not None else NO_EMIGRATION, keys,
             retention)).T)
         self.n, self._out = self._out, self.n
@@ -447,7 +467,8 @@ class Replicate:
         """Settle the arrivals, take the census of year ``t`` into ``sink`` and the ledger."""
         c, life = self.model.census, self.model.growth.life
         part, per_class = census_pass(
-            c.labels, c.n_patches, k, self.n, self.abundance, life.counted, arrivals, arriving,
+            c.labels, c.n_patches, k, self.n, self.abundance,
+            life.counted if life.classes > 1 else None, arrivals, arriving,
             stayed, dist_deaths, c.occupancy_threshold, self.ever, sink.acc["sum_n"][t],
             sink.acc["occupied"][t], sink.acc["ever"][t])
         s = CensusSums(*patch_totals(part).T)

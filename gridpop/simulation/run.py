@@ -42,6 +42,7 @@ from .distributed import check_execution
 from .model import build_model
 from .resources import check_room, ensure_space, footprint
 from .results import write_results
+from .warmup import kernels_compiled
 
 
 def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
@@ -96,7 +97,6 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
     check_execution(workers, scheduler)
     check_output(out_dir, overwrite=overwrite)
     model = build_model(scenario, build_landscape(scenario, stochastic=scenario.growth.stochastic))
-    connectivity = _connectivity_in_background(model)
     plan = model.plan.batches()
     work = working_folder(out_dir)
     resuming = may_continue(work, run_identity(scenario, model), resume=resume,
@@ -106,6 +106,8 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
     if not force:
         check_room(fp, work, workers=workers, scheduler=scheduler,
                    finished=len(finished) / len(plan))
+    with kernels_compiled(model, wanted=local and len(finished) < len(plan)):
+        connectivity = _connectivity_in_background(model)
     cluster: contextlib.AbstractContextManager
     if local:
         cluster = contextlib.nullcontext()

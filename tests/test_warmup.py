@@ -1,0 +1,221 @@
+"""Compiling in two processes (gridpop.simulation.warmup) and numba's cache lock (gridpop._jit):
+the helper process only ever changes the time a run takes, never its results, and leaves no
+process or file behind whatever it does."""
+
+from __future__ import annotations
+
+import fcntl
+import json
+import os
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+import psutil
+import pytest
+from conftest import same_results, scenario_text
+
+from gridpop import _jit, load_scenario, run
+from gridpop.landscape import build_landscape
+from gridpop.simulation import warmup
+from gridpop.simulation.batches import run_batch
+from gridpop.simulation.model import build_model
+
+DEMO = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "base.toml"
+
+
+@pytest.fixture
+def helper_log(tmp_path, monkeypatch):
+    """The helper runs whatever the test installs as its share (after writing a marker, so the
+    test knows it was started), as with a cold cache (this process has every kernel compiled
+    already), and scratch folders go under tmp_path."""
+    marker = tmp_path / "helper-started"
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    monkeypatch.setattr(warmup.tempfile, "tempdir", str(scratch))
+    monkeypatch.setattr(warmup, "_can_fork", lambda model: True)
+    monkeypatch.setattr(warmup, "_cold_cache", lambda: True)
+
+    def install(work):
+        def helper_share(model, folder):
+            marker.write_text("started\n")
+            work()
+
+        monkeypatch.setattr(warmup, "_growth_and_movement", helper_share)
+
+    return install, marker, scratch
+
+
+def _reference(make_scenario, tmp_path, monkeypatch):
+    scen = load_scenario(make_scenario(scenario_text(years=4, replicates=2)))
+    with monkeypatch.context() as m:
+        m.setattr(warmup, "_can_fork", lambda model: False)
+        ref = run(scen, tmp_path / "reference")
+    return scen, ref
+
+
+def _no_children_or_scratch(scratch: Path) -> None:
+    assert psutil.Process().children(recursive=True) == []  # none alive, none a zombie
+    assert list(scratch.iterdir()) == []
+
+
+def test_failing_helper_leaves_the_run_unchanged(make_scenario, tmp_path, monkeypatch,
+                                                 helper_log):
+    install, marker, scratch = helper_log
+    scen, ref = _reference(make_scenario, tmp_path, monkeypatch)
+
+    def fail():
+        raise RuntimeError("helper broken")
+
+    install(fail)
+    out = run(scen, tmp_path / "out")
+    assert marker.is_file()
+    same_results(ref, out, figures=False)
+    _no_children_or_scratch(scratch)
+
+
+def test_slow_helper_is_stopped_and_the_run_unchanged(make_scenario, tmp_path, monkeypatch,
+                                                      helper_log):
+    install, marker, scratch = helper_log
+    scen, ref = _reference(make_scenario, tmp_path, monkeypatch)
+    install(lambda: time.sleep(300))
+    start = time.perf_counter()
+    out = run(scen, tmp_path / "out")
+    assert time.perf_counter() - start < 60  # waited twice its share plus GRACE_S, not 300 s
+    assert marker.is_file()
+    same_results(ref, out, figures=False)
+    _no_children_or_scratch(scratch)
+
+
+def test_interrupted_run_stops_the_helper(make_scenario, tmp_path, monkeypatch, helper_log):
+    """Ctrl-C in the run's share (the helper ignores SIGINT): the helper is stopped and reaped,
+    the scratch folder removed, and nothing is published."""
+    install, marker, scratch = helper_log
+    scen = load_scenario(make_scenario(scenario_text(years=4, replicates=2)))
+    install(lambda: time.sleep(300))
+
+    def interrupted(model, folder):
+        deadline = time.monotonic() + 30
+        while not marker.is_file() and time.monotonic() < deadline:
+            time.sleep(0.05)
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(warmup, "_census_and_conditions", interrupted)
+    with pytest.raises(KeyboardInterrupt):
+        run(scen, tmp_path / "out")
+    assert marker.is_file()
+    assert not (tmp_path / "out").exists()
+    _no_children_or_scratch(scratch)
+
+
+def test_no_helper_on_a_large_grid_or_with_threads(make_scenario, monkeypatch):
+    """A fork is not attempted on a grid for the parallel kernels, on one core, with another
+    thread running or once numba's thread pool runs (a fork copies a thread's locks
+    half-held)."""
+    scen = load_scenario(make_scenario(scenario_text(years=2, replicates=1)))
+    model = build_model(scen, build_landscape(scen, stochastic=True))
+    monkeypatch.setattr(warmup, "_thread_pool_started", lambda: False)
+    monkeypatch.setattr(warmup.threading, "active_count", lambda: 1)
+    monkeypatch.setattr(warmup, "_cores", lambda: 2)
+    assert warmup._can_fork(model)
+    with monkeypatch.context() as m:
+        m.setattr(warmup, "_cores", lambda: 1)
+        assert not warmup._can_fork(model)
+    with monkeypatch.context() as m:
+        m.setattr(_jit, "PARALLEL_CELLS", model.capacity.size)
+        assert not warmup._can_fork(model)
+    with monkeypatch.context() as m:
+        m.setattr(warmup.threading, "active_count", lambda: 2)
+        assert not warmup._can_fork(model)
+    with monkeypatch.context() as m:
+        m.setattr(warmup, "_thread_pool_started", lambda: True)
+        assert not warmup._can_fork(model)
+
+
+def test_warm_process_starts_no_helper(make_scenario, tmp_path, monkeypatch):
+    """In a process that has its kernels already (as after a warm cache), no helper is forked:
+    it would only cost time."""
+    from gridpop import rng
+
+    rng.mix64(np.uint64(0))
+    assert not warmup._cold_cache()
+    started = []
+    monkeypatch.setattr(warmup.multiprocessing, "get_context", started.append)
+    scen = load_scenario(make_scenario(scenario_text(years=2, replicates=1)))
+    run(scen, tmp_path / "out")
+    assert started == []
+
+
+def test_cache_saves_wait_for_the_folder_lock(tmp_path):
+    """A save into numba's cache waits while another holder (here this test, with its own
+    open file description) has the cache folder's flock, and completes once it is released."""
+    from numba.core.caching import IndexDataCacheFile
+
+    assert _jit.CACHE_LOCKED
+    cache = IndexDataCacheFile(str(tmp_path), "kernel-1.py311", ("stamp", 1))
+    folder = os.open(tmp_path, os.O_RDONLY)
+    fcntl.flock(folder, fcntl.LOCK_EX)
+    saver = threading.Thread(target=cache.save, args=(("sig", "target"), b"code"))
+    saver.start()
+    saver.join(0.5)
+    try:
+        assert saver.is_alive()  # blocked on the lock
+        assert not list(tmp_path.glob("*.nbi"))
+    finally:
+        os.close(folder)
+    saver.join(10)
+    assert not saver.is_alive()
+    assert cache.load(("sig", "target")) == b"code"
+
+
+HELPED = """
+import json, sys
+from pathlib import Path
+from numba.core import event
+from gridpop import load_scenario
+from gridpop.landscape import build_landscape
+from gridpop.simulation import warmup
+from gridpop.simulation.batches import run_batch
+from gridpop.simulation.model import build_model
+
+def names(rec):
+    return sorted({e.data["dispatcher"].py_func.__qualname__ for _, e in rec.buffer
+                   if e.is_start})
+
+scen = load_scenario(sys.argv[1])
+model = build_model(scen, build_landscape(scen, stochastic=scen.growth.stochastic))
+assert warmup._can_fork(model)
+with event.install_recorder("numba:compile") as share:
+    with warmup.kernels_compiled(model):
+        pass
+with event.install_recorder("numba:compile") as replicate:
+    run_batch(model, range(1), Path(sys.argv[2]))
+print(json.dumps({"share": names(share), "replicate": names(replicate)}))
+"""
+
+
+@pytest.mark.slow
+def test_helper_compiled_kernels_give_identical_results(tmp_path):
+    """From an empty numba cache, the demo's first replicate after :func:`kernels_compiled`
+    compiles nothing: the run's process compiled its share and loaded the growth pass the
+    helper compiled into the cache. The replicate's results are byte for byte those of this
+    process's own kernels."""
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache"), "TMPDIR": str(tmp_path)}
+    done = subprocess.run([sys.executable, "-c", HELPED, str(DEMO), str(tmp_path / "helped")],
+                          env=env, capture_output=True, text=True, check=True)
+    compiled = json.loads(done.stdout.splitlines()[-1])
+    assert "grow_pass_serial" not in compiled["share"]
+    assert "census_pass_serial" in compiled["share"]
+    assert compiled["replicate"] == []
+    assert not list(tmp_path.glob("gridpop-compile-*"))
+    scen = load_scenario(DEMO)
+    run_batch(build_model(scen, build_landscape(scen, stochastic=scen.growth.stochastic)),
+              range(1), tmp_path / "own")
+    files = sorted(p.name for p in (tmp_path / "own").iterdir())
+    assert files == sorted(p.name for p in (tmp_path / "helped").iterdir())
+    for name in files:
+        assert (tmp_path / "own" / name).read_bytes() == \
+            (tmp_path / "helped" / name).read_bytes(), name
