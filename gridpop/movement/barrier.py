@@ -24,7 +24,7 @@ from scipy.sparse.csgraph import dijkstra
 from .. import rng
 from .._jit import njit, pjit, prange
 from ..rng import YearStreams
-from . import NO_RETENTION, Moved, Retention
+from . import NO_RETENTION, Moved, Retention, scratch
 from .convolution import as_field, disperse_deterministic, edge_code
 from .kernels import Kernel
 from .placement import (
@@ -32,6 +32,7 @@ from .placement import (
     draw_cell,
     edge_map,
     entry_buffers,
+    row_blocks,
 )
 
 
@@ -93,9 +94,10 @@ class BarrierKernelMover:
     """Moves emigrants with ``kernel`` across the barriers of ``barrier`` (per-cell crossing
     mortality, :attr:`gridpop.actions.Actions.barrier`).
 
-    Sources are processed by (region, patch) group, so the per-patch bookkeeping stays exact: a
-    disperser that crosses a barrier and lands in its own patch is retained by the patch. In
-    stochastic mode the crossers are thinned binomially, as whole individuals.
+    The dispersers of a cell belong to its group g = (region r, patch p), so the per-patch
+    bookkeeping stays exact: a disperser that crosses a barrier and lands in its own patch is
+    retained by the patch. In stochastic mode the crossers of a group landing at a cell are
+    thinned binomially all together, as whole individuals.
     """
 
     def __init__(self, kernel: Kernel, edge: str, labels: np.ndarray, n_patches: int,
@@ -103,12 +105,11 @@ class BarrierKernelMover:
         self.kernel, self.edge, self.stochastic = kernel, edge, stochastic
         self.labels, self.n_patches = labels, n_patches
         self.regions, self.node, self.survival = crossing_survival(barrier)
-        # group g = (region r, patch p) of every cell, and the cells off the barrier sorted by
-        # group (then by cell): fixed for the run, so not worked out again every year
         self.group = self.regions.astype(np.int64) * (n_patches + 1) + labels
-        sources = np.flatnonzero(self.regions.ravel() > 0)
-        self._by_group = sources[np.argsort(self.group.ravel()[sources], kind="stable")]
-        self._group_of = self.group.ravel()[self._by_group]
+        # the binomial table of every crossing survival (a few distinct values), once per run
+        q, which = np.unique(self.survival, return_inverse=True)
+        self._table_of = which.reshape(self.survival.shape).astype(np.int64)
+        self._tables = np.stack([rng.binomial_table(v) for v in q])
 
     def retention(self, k: np.ndarray) -> Retention:
         return NO_RETENTION
@@ -116,7 +117,7 @@ class BarrierKernelMover:
     def move(self, leaving: np.ndarray, k: np.ndarray, streams: YearStreams,
              work: dict[str, np.ndarray]) -> Moved:
         if self.stochastic:
-            return self._move_stochastic(leaving, k > 0, streams)
+            return self._move_stochastic(leaving, k > 0, streams, work)
         settle = k > 0
         n_p = self.n_patches
         arrivals = np.zeros_like(leaving)
@@ -140,81 +141,60 @@ class BarrierKernelMover:
                 retained[p] += landed[self.labels == p].sum()
         return Moved(arrivals, stayed, retained, settled_from)
 
-    def _move_stochastic(self, leaving, settle, streams: YearStreams) -> Moved:
+    def _move_stochastic(self, leaving, settle, streams: YearStreams,
+                         work: dict[str, np.ndarray]) -> Moved:
         """Whole individuals: every disperser draws its landing cell as in
         :func:`disperse_stochastic` (same numbers); those of group g = (region r, patch p) that
         land at a cell of another node are thinned there by one binomial of survival
         ``survival[r, node]`` on ``rng.cell_key(barrier key, (g * ny + i) * nx + j)``, as
-        :func:`thin` does. One pass over the sources, group after group."""
+        :func:`thin` does (see :func:`_across_kernel`)."""
         d = as_field(leaving, "leaving")
         ny, nx = d.shape
-        n_p = self.n_patches
-        cells, gids, gptr = _sources(d.ravel(), self._by_group, self._group_of)
         kern = self.kernel
         code = edge_code(self.edge)
-        arrivals, stayed = np.zeros(d.shape), np.zeros(d.shape)
-        retained, settled_from = np.zeros(n_p + 1), np.zeros(n_p + 1)
-        _across_kernel(d, cells, gptr, gids,
-                       self.regions, self.node, self.labels,
-                       np.ascontiguousarray(settle, np.bool_), self.survival, kern.offsets,
-                       kern.alias_threshold, kern.alias_index, kern.conditional,
-                       edge_map(ny, kern.ry, code), edge_map(nx, kern.rx, code),
+        multinomial_min = MULTINOMIAL_PER_CELL * kern.conditional.size
+        bounds, row_work = row_blocks(d, multinomial_min, kern.ry)
+        # room for the crossings of each row block: at most one per landing
+        room = np.ceil(np.add.reduceat(row_work, bounds[:-1])).astype(np.int64)
+        start = np.concatenate([[0], np.cumsum(room)])
+        head = work.get("barrier_head")
+        if head is None:  # -1 everywhere between calls: the kernel clears what it used
+            head = work["barrier_head"] = np.full(ny * nx, -1, np.int64)
+        arrivals, stayed = scratch(work, "arrivals", d.shape), scratch(work, "stayed", d.shape)
+        retained, settled_from = np.zeros(self.n_patches + 1), np.zeros(self.n_patches + 1)
+        _across_kernel(d, self.regions, self.node, self.labels,
+                       np.ascontiguousarray(settle, np.bool_), self.survival, self._table_of,
+                       self._tables, kern.offsets, kern.alias_threshold, kern.alias_index,
+                       kern.conditional, edge_map(ny, kern.ry, code), edge_map(nx, kern.rx, code),
                        np.uint64(streams.key(rng.STREAM_DISPERSAL)),
-                       np.uint64(streams.key(rng.STREAM_BARRIER)),
-                       MULTINOMIAL_PER_CELL * kern.conditional.size, arrivals, stayed, retained,
-                       settled_from)
+                       np.uint64(streams.key(rng.STREAM_BARRIER)), multinomial_min, bounds,
+                       start, head, np.empty((start[-1], 3), np.int64), arrivals, stayed,
+                       retained, settled_from)
         return Moved(arrivals, stayed, retained, settled_from)
 
 
 @njit
-def _sources(d, by_group, group_of):
-    """The cells of ``by_group`` (sorted by group, then cell) with ``d > 0``, the groups
-    ``gids`` they belong to and ``gptr``: group ``gids[b]``'s cells are
-    ``cells[gptr[b]:gptr[b + 1]]``."""
-    cells = np.empty(by_group.size, np.int64)
-    gids = np.empty(by_group.size, np.int64)
-    gptr = np.empty(by_group.size + 1, np.int64)
-    m = b = 0
-    for idx in range(by_group.size):
-        c = by_group[idx]
-        if d[c] > 0:
-            g = group_of[idx]
-            if b == 0 or gids[b - 1] != g:
-                gids[b] = g
-                gptr[b] = m
-                b += 1
-            cells[m] = c
-            m += 1
-    gptr[b] = m
-    return cells[:m], gids[:b], gptr[:b + 1]
-
-
-@njit
-def _across_kernel(d, cells, gptr, gids, regions, node, labels, settle, survival, offsets,
-                   threshold, alias, cond, ymap, xmap, key, barrier_key, multinomial_min,
-                   arrivals, stayed, retained, settled_from):
-    """:meth:`BarrierKernelMover._move_stochastic`: the sources ``cells[gptr[b]:gptr[b + 1]]``
-    (flat indices) of group ``gids[b]``, group after group. Landings in the group's region
-    are added to ``arrivals`` at once; the others are summed per cell in ``crossed`` (the
-    cells listed in ``touched``) and thinned when the group is done."""
+def _cross_rows(d, regions, labels, settle, offsets, threshold, alias, cond, ymap, xmap, key,
+                multinomial_min, r0, r1, free, head, pool, arrivals, stayed, ret):
+    """The dispersers of rows r0..r1 off barriers, placed by :func:`draw_cell`. Those landing in
+    their own region r are added to ``arrivals`` at once (and to ``stayed``, and per patch of
+    origin p to ``ret[p, 0]`` settled in p, ``ret[p, 1]`` settled anywhere). Those landing at
+    a cell of another node are counted in the cell's entry of their group g: cell ``dest``'s
+    entries are a list in ``pool`` (rows: next entry or -1, g, count) starting at
+    ``head[dest]``; new entries are taken from row ``free`` on."""
     ny, nx = d.shape
-    n_p1 = retained.size
+    n_p1 = ret.shape[0]
     ry = (ymap.size - ny) // 2
     rx = (xmap.size - nx) // 2
-    crossed = np.zeros(ny * nx, np.int64)
-    touched = np.empty(ny * nx, np.int64)
     entry, count = entry_buffers(cond)
-    n_nodes = survival.shape[1]
-    tables = np.empty((n_nodes, rng.BERNOULLI_MAX + 1, rng.BERNOULLI_MAX))
-    for b in range(gids.size):
-        g = gids[b]
-        r, p = g // n_p1, g % n_p1
-        for v in range(n_nodes):
-            tables[v] = rng.binomial_table(survival[r, v])
-        m = 0
-        for idx in range(gptr[b], gptr[b + 1]):
-            c = cells[idx]
-            i, j = c // nx, c % nx
+    for i in range(r0, r1):
+        for j in range(nx):
+            r = regions[i, j]
+            if r == 0 or not d[i, j] > 0:
+                continue  # no one disperses from a barrier cell: see build_model
+            p = labels[i, j]
+            g = r * n_p1 + p
+            c = i * nx + j
             n_land = draw_cell(np.int64(d[i, j]), rng.cell_key(key, c), cond, threshold, alias,
                                multinomial_min, entry, count)
             for e in range(n_land):
@@ -229,28 +209,84 @@ def _across_kernel(d, cells, gptr, gids, regions, node, labels, settle, survival
                     if y == i and x == j:
                         stayed[i, j] += cnt
                     if p > 0 and settle[y, x]:
-                        settled_from[p] += cnt
+                        ret[p, 1] += cnt
                         if labels[y, x] == p:
-                            retained[p] += cnt
-                else:
-                    dest = y * nx + x
-                    if crossed[dest] == 0:
-                        touched[m] = dest
-                        m += 1
-                    crossed[dest] += cnt
-        for t in range(m):
-            dest = touched[t]
-            y, x = dest // nx, dest % nx
-            v = node[y, x]
-            q = survival[r, v]
-            kept = rng.binomial_with_table(crossed[dest], q, q, tables[v],
-                                           rng.cell_key(barrier_key, (g * ny + y) * nx + x))
-            crossed[dest] = 0
-            arrivals[y, x] += kept
-            if p > 0 and settle[y, x]:
-                settled_from[p] += kept
-                if labels[y, x] == p:
-                    retained[p] += kept
+                            ret[p, 0] += cnt
+                    continue
+                dest = y * nx + x
+                k = head[dest]
+                while k >= 0 and pool[k, 1] != g:
+                    k = pool[k, 0]
+                if k < 0:
+                    k = free
+                    free += 1
+                    pool[k, 0] = head[dest]
+                    pool[k, 1] = g
+                    pool[k, 2] = 0
+                    head[dest] = k
+                pool[k, 2] += cnt
+
+
+@njit
+def _thin_rows(node, labels, settle, survival, table_of, tables, barrier_key, r0, r1, head,
+               pool, arrivals, ret):
+    """Rows r0..r1 of the crossers listed by :func:`_cross_rows`: the count of group g = (r, p)
+    at cell (y, x) of node v thinned by one binomial of ``survival[r, v]`` on
+    ``rng.cell_key(barrier_key, (g * ny + y) * nx + x)``, the survivors added to ``arrivals``
+    and ``ret`` (as there); the lists emptied (``head`` back to -1)."""
+    ny, nx = arrivals.shape
+    n_p1 = ret.shape[0]
+    for y in range(r0, r1):
+        for x in range(nx):
+            dest = y * nx + x
+            k = head[dest]
+            head[dest] = -1
+            while k >= 0:
+                g = pool[k, 1]
+                r, p = g // n_p1, g % n_p1
+                v = node[y, x]
+                q = survival[r, v]
+                kept = rng.binomial_with_table(pool[k, 2], q, q, tables[table_of[r, v]],
+                                               rng.cell_key(barrier_key, (g * ny + y) * nx + x))
+                arrivals[y, x] += kept
+                if p > 0 and settle[y, x]:
+                    ret[p, 1] += kept
+                    if labels[y, x] == p:
+                        ret[p, 0] += kept
+                k = pool[k, 0]
+
+
+@pjit
+def _across_kernel(d, regions, node, labels, settle, survival, table_of, tables, offsets,
+                   threshold, alias, cond, ymap, xmap, key, barrier_key, multinomial_min, bounds,
+                   start, head, pool, arrivals, stayed, retained, settled_from):
+    """:meth:`BarrierKernelMover._move_stochastic`: ``arrivals`` and ``stayed`` zeroed, then
+    the sources of row block b (rows bounds[b]..bounds[b+1]) placed by :func:`_cross_rows`,
+    its new crossing entries in ``pool`` rows start[b]..start[b+1]. Landings lie within ry rows
+    of their source and blocks are at least 2 ry rows high (:func:`row_blocks`), so the even
+    blocks, which never write the same row, run in parallel, then the odd ones. When all are
+    placed, each cell's crossers are thinned, group by group (:func:`_thin_rows`), the blocks
+    in parallel. Every sum is of whole numbers (individuals), so exact in any order: the
+    result depends neither on the blocks nor on the number of threads."""
+    n_p1 = retained.size
+    for i in prange(d.shape[0]):
+        arrivals[i] = 0.0
+        stayed[i] = 0.0
+    nb = bounds.size - 1
+    ret = np.zeros((nb, n_p1, 2))
+    for parity in range(2):
+        for h in prange((nb - parity + 1) // 2):
+            b = 2 * h + parity
+            _cross_rows(d, regions, labels, settle, offsets, threshold, alias, cond, ymap, xmap,
+                        key, multinomial_min, bounds[b], bounds[b + 1], start[b], head, pool,
+                        arrivals, stayed, ret[b])
+    for b in prange(nb):
+        _thin_rows(node, labels, settle, survival, table_of, tables, barrier_key, bounds[b],
+                   bounds[b + 1], head, pool, arrivals, ret[b])
+    for b in range(nb):
+        for p in range(n_p1):
+            retained[p] += ret[b, p, 0]
+            settled_from[p] += ret[b, p, 1]
 
 
 @pjit

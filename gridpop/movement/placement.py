@@ -178,8 +178,11 @@ BLOCKS_PER_THREAD = 8
 """Row blocks of the stochastic engine per numba thread and parity (load balance)."""
 
 
-def _row_blocks(dispersers: np.ndarray, multinomial_min: float, ry: int) -> np.ndarray:
-    """Bounds of row blocks of about equal work, each but the last at least 2 ry rows high."""
+def row_blocks(dispersers: np.ndarray, multinomial_min: float,
+               ry: int) -> tuple[np.ndarray, np.ndarray]:
+    """Bounds of row blocks of about equal work, each but the last at least 2 ry rows high, and
+    the work of each row: 1 plus, per cell, its dispersers up to ``multinomial_min`` (at least
+    the number of stencil entries that :func:`draw_cell` fills for the cell)."""
     ny = dispersers.shape[0]
     work = np.empty(ny)
     _row_work(dispersers, multinomial_min, work)
@@ -191,7 +194,7 @@ def _row_blocks(dispersers: np.ndarray, multinomial_min: float, ry: int) -> np.n
         if c >= bounds[-1] + max(2 * ry, 1) and c < ny:
             bounds.append(int(c))
     bounds.append(ny)
-    return np.array(bounds, dtype=np.int64)
+    return np.array(bounds, dtype=np.int64), work
 
 
 def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kernel, edge: str,
@@ -237,7 +240,7 @@ def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kern
                          f"{labels.shape} must have the same shape")
     code = edge_code(edge)
     multinomial_min = MULTINOMIAL_PER_CELL * kernel.conditional.size
-    bounds = _row_blocks(d, multinomial_min, kernel.ry)
+    bounds, _ = row_blocks(d, multinomial_min, kernel.ry)
     if out is None:
         arrivals, stayed = np.empty(d.shape), np.empty(d.shape)
     else:
