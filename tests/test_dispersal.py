@@ -28,8 +28,8 @@ from gridpop.movement.kernels import (
 from gridpop.movement.placement import (
     MULTINOMIAL_PER_CELL,
     _alias_draw,
+    _row_blocks,
     disperse_stochastic,
-    row_blocks,
 )
 
 KEY = rng.year_key(7, 0, 3, rng.STREAM_DISPERSAL)
@@ -608,7 +608,7 @@ def test_stochastic_result_does_not_depend_on_row_blocks(monkeypatch, threads):
     runs = []
     for per_thread in (1, 3, 40):
         monkeypatch.setattr(placement, "BLOCKS_PER_THREAD", per_thread)
-        bounds, _ = row_blocks(d, MULTINOMIAL_PER_CELL * k.conditional.size, k.ry)
+        bounds = _row_blocks(d, MULTINOMIAL_PER_CELL * k.conditional.size, k.ry)
         assert (np.diff(bounds)[:-1] >= 2 * k.ry).all()
         runs.append((bounds.size, disperse_stochastic(d, settle, labels, 15, k, "reflecting",
                                                         KEY)))

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import math
 
+import numba
 import numpy as np
 import scipy.sparse
 from scipy import ndimage
@@ -32,7 +33,7 @@ from .placement import (
     draw_cell,
     edge_map,
     entry_buffers,
-    row_blocks,
+    row_work,
 )
 
 
@@ -153,13 +154,20 @@ class BarrierKernelMover:
         kern = self.kernel
         code = edge_code(self.edge)
         multinomial_min = MULTINOMIAL_PER_CELL * kern.conditional.size
-        bounds, row_work = row_blocks(d, multinomial_min, kern.ry)
-        # room for the crossings of each row block: at most one per landing
-        room = np.ceil(np.add.reduceat(row_work, bounds[:-1])).astype(np.int64)
+        parallel = _across_kernel.variant(d) is _across_kernel.parallel
+        blocks = BLOCKS_PER_THREAD * numba.get_num_threads() if parallel else 1
+        bounds, room = _blocks(d, multinomial_min, blocks)
+        top = np.maximum(bounds[:-1] - kern.ry, 0)
+        bot = np.minimum(bounds[1:] + kern.ry, ny)
+        base = np.concatenate([[0], np.cumsum((bounds[:-1] - top + bot - bounds[1:]) * nx)])
+        # kept from year to year, zeros and -1 (empty lists) between calls: the kernel clears
+        # what it used
+        if "barrier_halo" not in work or work["barrier_halo"].size < base[-1]:
+            work["barrier_halo"] = np.zeros(base[-1])
+            work["barrier_halo_head"] = np.full(base[-1], -1, np.int64)
+        if "barrier_head" not in work:
+            work["barrier_head"] = np.full(ny * nx, -1, np.int64)
         start = np.concatenate([[0], np.cumsum(room)])
-        head = work.get("barrier_head")
-        if head is None:  # -1 everywhere between calls: the kernel clears what it used
-            head = work["barrier_head"] = np.full(ny * nx, -1, np.int64)
         arrivals, stayed = scratch(work, "arrivals", d.shape), scratch(work, "stayed", d.shape)
         retained, settled_from = np.zeros(self.n_patches + 1), np.zeros(self.n_patches + 1)
         _across_kernel(d, self.regions, self.node, self.labels,
@@ -167,26 +175,68 @@ class BarrierKernelMover:
                        self._tables, kern.offsets, kern.alias_threshold, kern.alias_index,
                        kern.conditional, edge_map(ny, kern.ry, code), edge_map(nx, kern.rx, code),
                        np.uint64(streams.key(rng.STREAM_DISPERSAL)),
-                       np.uint64(streams.key(rng.STREAM_BARRIER)), multinomial_min, bounds,
-                       start, head, np.empty((start[-1], 3), np.int64), arrivals, stayed,
-                       retained, settled_from)
+                       np.uint64(streams.key(rng.STREAM_BARRIER)), multinomial_min, bounds, top,
+                       bot, base, start, work["barrier_halo"], work["barrier_halo_head"],
+                       work["barrier_head"], np.empty((start[-1], 3), np.int64),
+                       np.empty(start[-1], np.int64), arrivals, stayed, retained, settled_from)
         return Moved(arrivals, stayed, retained, settled_from)
+
+
+
+BLOCKS_PER_THREAD = 1
+"""Row blocks of the stochastic barrier mover per numba thread (on a grid that runs the parallel
+variant): each block costs a halo of the rows it reaches outside its own."""
+
+def _blocks(d: np.ndarray, multinomial_min: float, blocks: int) -> tuple[np.ndarray, np.ndarray]:
+    """Bounds of ``blocks`` row blocks (or fewer) of about equal work, and the room each needs
+    for its list entries: one per landing at most, so at most one per disperser and
+    ``multinomial_min`` per cell (:func:`draw_cell`)."""
+    ny = d.shape[0]
+    work = np.empty(ny)
+    row_work(d, multinomial_min, work)
+    cum = np.concatenate([[0.0], np.cumsum(work)])
+    cuts = np.searchsorted(cum, cum[-1] * np.arange(1, blocks) / blocks)
+    bounds = np.unique(np.concatenate([[0], cuts[(cuts > 0) & (cuts < ny)], [ny]]))
+    return bounds, np.ceil(np.add.reduceat(work, bounds[:-1])).astype(np.int64)
+
+
+@njit
+def _halo_index(y, x, r0, r1, top, nx):
+    """Where cell (y, x) is in the halo of the block of rows r0..r1 (the rows it reaches
+    above, from ``top``, then below); -1 in the block's own rows."""
+    if y < r0:
+        return (y - top) * nx + x
+    if y >= r1:
+        return (r0 - top + y - r1) * nx + x
+    return -1
 
 
 @njit
 def _cross_rows(d, regions, labels, settle, offsets, threshold, alias, cond, ymap, xmap, key,
-                multinomial_min, r0, r1, free, head, pool, arrivals, stayed, ret):
-    """The dispersers of rows r0..r1 off barriers, placed by :func:`draw_cell`. Those landing in
-    their own region r are added to ``arrivals`` at once (and to ``stayed``, and per patch of
-    origin p to ``ret[p, 0]`` settled in p, ``ret[p, 1]`` settled anywhere). Those landing at
-    a cell of another node are counted in the cell's entry of their group g: cell ``dest``'s
-    entries are a list in ``pool`` (rows: next entry or -1, g, count) starting at
-    ``head[dest]``; new entries are taken from row ``free`` on."""
+                multinomial_min, r0, r1, top, halo, halo_head, head, pool, free, touched,
+                arrivals, stayed, ret):
+    """The dispersers of rows r0..r1 off barriers, placed by :func:`draw_cell`; returns how
+    many cells it added to ``touched``. Rows r0..r1 of ``arrivals`` and ``stayed`` are zeroed
+    first.
+
+    Those landing in their own region r are added to ``arrivals`` in rows r0..r1, in the
+    block's ``halo`` elsewhere (:func:`_halo_index`), and to ``stayed``, and per patch of
+    origin p to ``ret[p, 0]`` (settled in p) and ``ret[p, 1]`` (settled anywhere). Those
+    landing at a cell of another node are counted in the cell's entry of their group g: the
+    cell's entries are a list in ``pool`` (rows: next entry or -1, g, count) from the cell's
+    ``head`` (flat index, rows r0..r1) or ``halo_head``; new entries are taken from row
+    ``free`` on, and a cell whose list was empty is added to ``touched`` (flat index) from
+    ``touched[free]`` on."""
     ny, nx = d.shape
     n_p1 = ret.shape[0]
     ry = (ymap.size - ny) // 2
     rx = (xmap.size - nx) // 2
+    first = free
+    m = 0
     entry, count = entry_buffers(cond)
+    for i in range(r0, r1):
+        arrivals[i] = 0.0
+        stayed[i] = 0.0
     for i in range(r0, r1):
         for j in range(nx):
             r = regions[i, j]
@@ -194,9 +244,8 @@ def _cross_rows(d, regions, labels, settle, offsets, threshold, alias, cond, yma
                 continue  # no one disperses from a barrier cell: see build_model
             p = labels[i, j]
             g = r * n_p1 + p
-            c = i * nx + j
-            n_land = draw_cell(np.int64(d[i, j]), rng.cell_key(key, c), cond, threshold, alias,
-                               multinomial_min, entry, count)
+            n_land = draw_cell(np.int64(d[i, j]), rng.cell_key(key, i * nx + j), cond,
+                               threshold, alias, multinomial_min, entry, count)
             for e in range(n_land):
                 cnt = count[entry[e]]
                 count[entry[e]] = 0
@@ -204,8 +253,12 @@ def _cross_rows(d, regions, labels, settle, offsets, threshold, alias, cond, yma
                 x = xmap[j + offsets[entry[e], 1] + rx]
                 if y < 0 or x < 0:
                     continue
+                h = _halo_index(y, x, r0, r1, top, nx)
                 if regions[y, x] == r:
-                    arrivals[y, x] += cnt
+                    if h < 0:
+                        arrivals[y, x] += cnt
+                    else:
+                        halo[h] += cnt
                     if y == i and x == j:
                         stayed[i, j] += cnt
                     if p > 0 and settle[y, x]:
@@ -213,78 +266,135 @@ def _cross_rows(d, regions, labels, settle, offsets, threshold, alias, cond, yma
                         if labels[y, x] == p:
                             ret[p, 0] += cnt
                     continue
-                dest = y * nx + x
-                k = head[dest]
+                lists, at = (head, y * nx + x) if h < 0 else (halo_head, h)
+                k = lists[at]
                 while k >= 0 and pool[k, 1] != g:
                     k = pool[k, 0]
                 if k < 0:
+                    if lists[at] < 0:
+                        touched[first + m] = y * nx + x
+                        m += 1
                     k = free
                     free += 1
-                    pool[k, 0] = head[dest]
+                    pool[k, 0] = lists[at]
                     pool[k, 1] = g
                     pool[k, 2] = 0
-                    head[dest] = k
+                    lists[at] = k
                 pool[k, 2] += cnt
+    return m
 
 
 @njit
-def _thin_rows(node, labels, settle, survival, table_of, tables, barrier_key, r0, r1, head,
-               pool, arrivals, ret):
-    """Rows r0..r1 of the crossers listed by :func:`_cross_rows`: the count of group g = (r, p)
-    at cell (y, x) of node v thinned by one binomial of ``survival[r, v]`` on
-    ``rng.cell_key(barrier_key, (g * ny + y) * nx + x)``, the survivors added to ``arrivals``
-    and ``ret`` (as there); the lists emptied (``head`` back to -1)."""
+def _listed(pool, k, g):
+    """Count of group g in the list of ``pool`` from entry k (0 when not listed)."""
+    while k >= 0:
+        if pool[k, 1] == g:
+            return pool[k, 2]
+        k = pool[k, 0]
+    return 0
+
+
+@njit
+def _thin_cell(y, x, c, bounds, top, bot, base, halo_head, head, pool, firsts, node, labels,
+               settle, survival, table_of, tables, barrier_key, arrivals, ret):
+    """The crossers listed at cell (y, x) of block c's rows, by block c (``head``) and in the
+    halos of the others: those of each group g = (r, p), all lists together, thinned by one
+    binomial of ``survival[r, node]`` on ``rng.cell_key(barrier_key, (g * ny + y) * nx + x)``,
+    the survivors added to ``arrivals`` and ``ret`` (as in :func:`_cross_rows`); the lists
+    emptied. ``firsts``: room for a list per block."""
     ny, nx = arrivals.shape
     n_p1 = ret.shape[0]
-    for y in range(r0, r1):
-        for x in range(nx):
-            dest = y * nx + x
-            k = head[dest]
-            head[dest] = -1
-            while k >= 0:
-                g = pool[k, 1]
+    firsts[0] = head[y * nx + x]
+    head[y * nx + x] = -1
+    n = 1
+    for o in range(top.size):
+        if o != c and top[o] <= y < bot[o]:
+            at = base[o] + _halo_index(y, x, bounds[o], bounds[o + 1], top[o], nx)
+            firsts[n] = halo_head[at]
+            halo_head[at] = -1
+            n += 1
+    for i in range(n):
+        k = firsts[i]
+        while k >= 0:
+            g = pool[k, 1]
+            cnt = pool[k, 2]
+            for j in range(i):
+                if _listed(pool, firsts[j], g):
+                    cnt = 0  # thinned with that list's entry
+            if cnt > 0:
+                for j in range(i + 1, n):
+                    cnt += _listed(pool, firsts[j], g)
                 r, p = g // n_p1, g % n_p1
                 v = node[y, x]
                 q = survival[r, v]
-                kept = rng.binomial_with_table(pool[k, 2], q, q, tables[table_of[r, v]],
+                kept = rng.binomial_with_table(cnt, q, q, tables[table_of[r, v]],
                                                rng.cell_key(barrier_key, (g * ny + y) * nx + x))
                 arrivals[y, x] += kept
                 if p > 0 and settle[y, x]:
                     ret[p, 1] += kept
                     if labels[y, x] == p:
                         ret[p, 0] += kept
-                k = pool[k, 0]
+            k = pool[k, 0]
+
+
+@njit
+def _merge_rows(c, bounds, top, bot, base, start, n_touched, touched, halo, halo_head, head,
+                pool, node, labels, settle, survival, table_of, tables, barrier_key, arrivals,
+                ret):
+    """Rows of block c: the other blocks' halos over them added to ``arrivals`` (and cleared),
+    and the crossers listed at their cells by any block thinned (:func:`_thin_cell`)."""
+    nx = arrivals.shape[1]
+    r0, r1 = bounds[c], bounds[c + 1]
+    nb = top.size
+    for o in range(nb):
+        if o == c:
+            continue
+        for y in range(max(r0, top[o]), min(r1, bot[o])):
+            h = _halo_index(y, 0, bounds[o], bounds[o + 1], top[o], nx)
+            for x in range(nx):
+                arrivals[y, x] += halo[base[o] + h + x]
+                halo[base[o] + h + x] = 0.0
+    firsts = np.empty(nb, np.int64)
+    for o in range(nb):
+        for t in range(start[o], start[o] + n_touched[o]):
+            y, x = touched[t] // nx, touched[t] % nx
+            if r0 <= y < r1:
+                _thin_cell(y, x, c, bounds, top, bot, base, halo_head, head, pool, firsts, node,
+                           labels, settle, survival, table_of, tables, barrier_key, arrivals,
+                           ret)
 
 
 @pjit
 def _across_kernel(d, regions, node, labels, settle, survival, table_of, tables, offsets,
                    threshold, alias, cond, ymap, xmap, key, barrier_key, multinomial_min, bounds,
-                   start, head, pool, arrivals, stayed, retained, settled_from):
-    """:meth:`BarrierKernelMover._move_stochastic`: ``arrivals`` and ``stayed`` zeroed, then
-    the sources of row block b (rows bounds[b]..bounds[b+1]) placed by :func:`_cross_rows`,
-    its new crossing entries in ``pool`` rows start[b]..start[b+1]. Landings lie within ry rows
-    of their source and blocks are at least 2 ry rows high (:func:`row_blocks`), so the even
-    blocks, which never write the same row, run in parallel, then the odd ones. When all are
-    placed, each cell's crossers are thinned, group by group (:func:`_thin_rows`), the blocks
-    in parallel. Every sum is of whole numbers (individuals), so exact in any order: the
-    result depends neither on the blocks nor on the number of threads."""
-    n_p1 = retained.size
-    for i in prange(d.shape[0]):
-        arrivals[i] = 0.0
-        stayed[i] = 0.0
+                   top, bot, base, start, halo, halo_head, head, pool, touched, arrivals, stayed,
+                   retained, settled_from):
+    """:meth:`BarrierKernelMover._move_stochastic` in row blocks (any number: the result does
+    not depend on them). Block b places the sources of rows bounds[b]..bounds[b+1]
+    (:func:`_cross_rows`): landings in those rows straight into ``arrivals`` and their lists
+    of crossers in ``head``, those in the other rows it reaches, top[b]..bot[b] (within ry
+    rows: folding at a reflecting edge does not move a point further from its source), into
+    its halo, ``halo[base[b]:base[b + 1]]`` and ``halo_head[...]``; its list entries in
+    ``pool`` rows start[b]..start[b + 1], the cells of its new lists in
+    ``touched[start[b]:]``. The blocks run in parallel. When all are placed, each block adds
+    the others' halos to its rows and thins the crossers listed there (:func:`_merge_rows`),
+    the blocks again in parallel. Every sum is of whole numbers (individuals), so exact in any
+    order: the result depends neither on the blocks nor on the number of threads."""
     nb = bounds.size - 1
-    ret = np.zeros((nb, n_p1, 2))
-    for parity in range(2):
-        for h in prange((nb - parity + 1) // 2):
-            b = 2 * h + parity
-            _cross_rows(d, regions, labels, settle, offsets, threshold, alias, cond, ymap, xmap,
-                        key, multinomial_min, bounds[b], bounds[b + 1], start[b], head, pool,
-                        arrivals, stayed, ret[b])
+    ret = np.zeros((nb, retained.size, 2))
+    n_touched = np.zeros(nb, np.int64)
     for b in prange(nb):
-        _thin_rows(node, labels, settle, survival, table_of, tables, barrier_key, bounds[b],
-                   bounds[b + 1], head, pool, arrivals, ret[b])
+        n_touched[b] = _cross_rows(
+            d, regions, labels, settle, offsets, threshold, alias, cond, ymap, xmap, key,
+            multinomial_min, bounds[b], bounds[b + 1], top[b], halo[base[b]:base[b + 1]],
+            halo_head[base[b]:base[b + 1]], head, pool, start[b], touched, arrivals, stayed,
+            ret[b])
+    for b in prange(nb):
+        _merge_rows(np.int64(b), bounds, top, bot, base, start, n_touched, touched, halo,
+                    halo_head, head, pool, node, labels, settle, survival, table_of, tables,
+                    barrier_key, arrivals, ret[b])
     for b in range(nb):
-        for p in range(n_p1):
+        for p in range(retained.size):
             retained[p] += ret[b, p, 0]
             settled_from[p] += ret[b, p, 1]
 

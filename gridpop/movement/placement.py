@@ -164,7 +164,7 @@ def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, 
 
 
 @pjit
-def _row_work(dispersers, multinomial_min, work):
+def row_work(dispersers, multinomial_min, work):
     """Work of each row: dispersers placed one by one, or stencil cells of a multinomial."""
     ny, nx = dispersers.shape
     for i in prange(ny):
@@ -178,14 +178,11 @@ BLOCKS_PER_THREAD = 8
 """Row blocks of the stochastic engine per numba thread and parity (load balance)."""
 
 
-def row_blocks(dispersers: np.ndarray, multinomial_min: float,
-               ry: int) -> tuple[np.ndarray, np.ndarray]:
-    """Bounds of row blocks of about equal work, each but the last at least 2 ry rows high, and
-    the work of each row: 1 plus, per cell, its dispersers up to ``multinomial_min`` (at least
-    the number of stencil entries that :func:`draw_cell` fills for the cell)."""
+def _row_blocks(dispersers: np.ndarray, multinomial_min: float, ry: int) -> np.ndarray:
+    """Bounds of row blocks of about equal work, each but the last at least 2 ry rows high."""
     ny = dispersers.shape[0]
     work = np.empty(ny)
-    _row_work(dispersers, multinomial_min, work)
+    row_work(dispersers, multinomial_min, work)
     cum = np.concatenate([[0.0], np.cumsum(work)])
     nb = 2 * BLOCKS_PER_THREAD * numba.get_num_threads()
     cuts = np.searchsorted(cum, cum[-1] * np.arange(1, nb) / nb)
@@ -194,7 +191,7 @@ def row_blocks(dispersers: np.ndarray, multinomial_min: float,
         if c >= bounds[-1] + max(2 * ry, 1) and c < ny:
             bounds.append(int(c))
     bounds.append(ny)
-    return np.array(bounds, dtype=np.int64), work
+    return np.array(bounds, dtype=np.int64)
 
 
 def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kernel, edge: str,
@@ -240,7 +237,7 @@ def disperse_stochastic(dispersers, settle, labels, n_patches: int, kernel: Kern
                          f"{labels.shape} must have the same shape")
     code = edge_code(edge)
     multinomial_min = MULTINOMIAL_PER_CELL * kernel.conditional.size
-    bounds, _ = row_blocks(d, multinomial_min, kernel.ry)
+    bounds = _row_blocks(d, multinomial_min, kernel.ry)
     if out is None:
         arrivals, stayed = np.empty(d.shape), np.empty(d.shape)
     else:
