@@ -229,11 +229,11 @@ class _State:
 
 
 @njit
-def _age(since):
-    """One more year since the last hit, in place, where there was one."""
+def _age(since, out):
+    """One more year since the last hit, where there was one, into ``out`` (may be
+    ``since``)."""
     for c in range(since.size):
-        if since[c] >= 0:
-            since[c] += 1
+        out[c] = since[c] + 1 if since[c] >= 0 else since[c]
 
 
 @njit
@@ -344,7 +344,10 @@ class Regime:
         for index, (table, st) in enumerate(zip(self.tables, state, strict=True)):
             st.years += 1
             if st.since is not None:
-                _age(st.since)
+                # a fire table's ages go to a new array each year: the year's effects keep it
+                aged = np.empty_like(st.since) if table.kind == "fire" else st.since
+                _age(st.since, aged)
+                st.since = aged
             event_of, count = table.footprint(seed, replicate, year, index)
             if count and event_of is not None:
                 hit = np.flatnonzero(event_of != 0)  # faster than on the int32 itself
@@ -371,7 +374,7 @@ class Regime:
             burned=hit_any["fire"].reshape(shape) if "fire" in hit_any else None,
             flooded=hit_any["flood"].reshape(shape) if "flood" in hit_any else None,
             events=events,
-            fire_since=tuple(st.since.reshape(shape).copy()
+            fire_since=tuple(st.since.reshape(shape)
                              for t, st in zip(self.tables, state, strict=True)
                              if t.kind == "fire"))
 
