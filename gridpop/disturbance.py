@@ -227,6 +227,13 @@ class _State:
     loss: np.ndarray | None  # float64 flat, capacity share lost when last hit (after compounding)
     years: int = 0  # years applied so far: ``since`` is below it
 
+    def age(self, fresh: bool) -> None:
+        """One more year since the last hit, in a new array if ``fresh``."""
+        if self.since is not None:
+            aged = np.empty_like(self.since) if fresh else self.since
+            _age(self.since, aged)
+            self.since = aged
+
 
 @njit
 def _age(since, out):
@@ -343,11 +350,7 @@ class Regime:
         events = []
         for index, (table, st) in enumerate(zip(self.tables, state, strict=True)):
             st.years += 1
-            if st.since is not None:
-                # a fire table's ages go to a new array each year: the year's effects keep it
-                aged = np.empty_like(st.since) if table.kind == "fire" else st.since
-                _age(st.since, aged)
-                st.since = aged
+            st.age(fresh=table.kind == "fire")  # the year's effects keep a fire table's ages
             event_of, count = table.footprint(seed, replicate, year, index)
             if count and event_of is not None:
                 hit = np.flatnonzero(event_of != 0)  # faster than on the int32 itself

@@ -153,12 +153,10 @@ def test_reserve_multiplier_and_habitat_loss_exemption(make_scenario, tmp_path):
     assert f"{int((inside & base.mask).sum())} cells inside reserves exempt" in actions.notes[0]
 
 
-def test_restoration_ramp(make_scenario, tmp_path):
-    """Restoration from year 3 over 4 years: year 3 + i has min(1, (i + 1)/4) of the change
-    (documented convention); restored cells belong to a patch from year 0; years in which no
-    schedule moves reuse one array."""
-    area = vector(tmp_path, "r.gpkg", cells_box(25, 10, 35, 30))  # the gap between the blocks
-    tables = f"""
+def restoration(tmp_path) -> str:
+    """A restoration of the gap between the blocks from year 3 over 4 years."""
+    area = vector(tmp_path, "r.gpkg", cells_box(25, 10, 35, 30))
+    return f"""
     [[action]]
     kind = "restoration"
     area = "{area}"
@@ -166,6 +164,13 @@ def test_restoration_ramp(make_scenario, tmp_path):
     start_year = 3
     ramp_years = 4
     """
+
+
+def test_restoration_ramp(make_scenario, tmp_path):
+    """Restoration from year 3 over 4 years: year 3 + i has min(1, (i + 1)/4) of the change
+    (documented convention); restored cells belong to a patch from year 0; years in which no
+    schedule moves reuse one array."""
+    tables = restoration(tmp_path)
     _, base, actions = setup(make_scenario, tables)
     cells = actions.areas[0] & base.mask
     s0 = base.suitability
@@ -188,15 +193,7 @@ def test_capacity_beyond_the_kept_arrays_is_computed_again(make_scenario, tmp_pa
                                                             monkeypatch):
     """With room for two capacity arrays, the years of the other states of a ramp give the
     same capacity as with room for all (computed again, the last one reused)."""
-    area = vector(tmp_path, "r.gpkg", cells_box(25, 10, 35, 30))
-    tables = f"""
-    [[action]]
-    kind = "restoration"
-    area = "{area}"
-    target_suitability = 0.9
-    start_year = 3
-    ramp_years = 4
-    """
+    tables = restoration(tmp_path)
     _, _, actions = setup(make_scenario, tables)
     expected = [actions.capacity_for_year(year).copy() for year in range(10)]
     monkeypatch.setattr(actions_module, "CAPACITY_KEPT", 2)
