@@ -161,7 +161,7 @@ def test_stochastic_mover_on_a_large_grid_same_serial_and_parallel(edge, monkeyp
     blocks whose landings in other blocks' rows go through halos, the crossers of a group at a
     cell then summed over the blocks before thinning: it must give bit for bit what the serial
     variant (1 thread) gives and the definition (:func:`by_definition`), with 2 blocks and
-    with 12 blocks narrower than the kernel (a cell listed in several halos). Two barriers
+    with 10 blocks as high as the kernel's reach (a cell listed in several halos). Two barriers
     across the grid, many patches, the year's numbers kept from one call to the next (the
     mover's scratch arrays reused). Internal consistency, no outside reference."""
     ny, nx = 200, 170
@@ -170,8 +170,7 @@ def test_stochastic_mover_on_a_large_grid_same_serial_and_parallel(edge, monkeyp
     barrier = np.zeros((ny, nx))
     barrier[:, 60] = 0.4
     barrier[:, 110:112] = 0.8
-    labels = np.kron(np.arange(1, 41, dtype=np.int32).reshape(8, 5), np.ones((25, 34),
-                                                                           np.int32))
+    labels = np.kron(np.arange(1, 9, dtype=np.int32).reshape(4, 2), np.ones((50, 85), np.int32))
     labels[barrier > 0] = 0
     leaving = np.floor(rng.gamma(0.4, 20.0, (ny, nx)))
     leaving[barrier > 0] = 0.0
@@ -179,20 +178,24 @@ def test_stochastic_mover_on_a_large_grid_same_serial_and_parallel(edge, monkeyp
     kernel = make_kernel("exponential", mean_distance_m=90.0, max_distance_m=600.0,
                          cell_w_m=30.0, cell_h_m=30.0, grid_shape=(ny, nx))
     assert kernel.ry == 20
-    mover = BarrierKernelMover(kernel, edge, labels, 40, True, barrier)
+    mover = BarrierKernelMover(kernel, edge, labels, 8, True, barrier)
+    blocks = []
+    split = barrier_module._blocks
+    monkeypatch.setattr(barrier_module, "_blocks",
+                        lambda *a: blocks.append(split(*a)[0].size - 1) or split(*a))
     n = numba.get_num_threads()
     try:
-        for year in (0, 1):
-            streams = YearStreams(4, 0, year)
-            expected = by_definition(leaving, k, labels, 40, kernel, edge, barrier, streams)
-            assert expected[0].sum() < leaving.sum()
-            for threads, per_thread in ((1, 1), (2, 1), (2, 6)):
-                numba.set_num_threads(threads)
-                monkeypatch.setattr(barrier_module, "BLOCKS_PER_THREAD", per_thread)
-                kernel_used = barrier_module._across_kernel.variant(leaving)
-                assert (kernel_used is barrier_module._across_kernel.parallel) == (threads > 1)
-                work: dict = {}
-                mover.move(leaving[::-1].copy(), k, YearStreams(9, 0, year), work)  # fills work
-                assert_moved(mover.move(leaving, k, streams, work), expected)
+        streams = YearStreams(4, 0, 2)
+        expected = by_definition(leaving, k, labels, 8, kernel, edge, barrier, streams)
+        assert expected[0].sum() < leaving.sum()
+        for threads, per_thread, n_blocks in ((1, 1, 1), (2, 1, 2), (2, 6, 10)):
+            numba.set_num_threads(threads)
+            monkeypatch.setattr(barrier_module, "BLOCKS_PER_THREAD", per_thread)
+            kernel_used = barrier_module._across_kernel.variant(leaving)
+            assert (kernel_used is barrier_module._across_kernel.parallel) == (threads > 1)
+            work: dict = {}
+            mover.move(leaving[::-1].copy(), k, YearStreams(9, 0, 1), work)  # fills work
+            assert_moved(mover.move(leaving, k, streams, work), expected)
+            assert blocks[-2:] == [n_blocks, n_blocks]
     finally:
         numba.set_num_threads(n)

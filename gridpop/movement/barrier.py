@@ -155,7 +155,9 @@ class BarrierKernelMover:
         code = edge_code(self.edge)
         multinomial_min = MULTINOMIAL_PER_CELL * kern.conditional.size
         parallel = _across_kernel.variant(d) is _across_kernel.parallel
-        blocks = BLOCKS_PER_THREAD * numba.get_num_threads() if parallel else 1
+        # no more blocks than ny / ry: the halos then hold at most about twice the grid
+        blocks = min(BLOCKS_PER_THREAD * numba.get_num_threads(),
+                     max(ny // max(kern.ry, 1), 1)) if parallel else 1
         bounds, room = _blocks(d, multinomial_min, blocks)
         top = np.maximum(bounds[:-1] - kern.ry, 0)
         bot = np.minimum(bounds[1:] + kern.ry, ny)
@@ -186,6 +188,7 @@ class BarrierKernelMover:
 BLOCKS_PER_THREAD = 1
 """Row blocks of the stochastic barrier mover per numba thread (on a grid that runs the parallel
 variant): each block costs a halo of the rows it reaches outside its own."""
+
 
 def _blocks(d: np.ndarray, multinomial_min: float, blocks: int) -> tuple[np.ndarray, np.ndarray]:
     """Bounds of ``blocks`` row blocks (or fewer) of about equal work, and the room each needs
