@@ -110,6 +110,10 @@ def _k(s, multiplier, base: Landscape, habitat) -> np.ndarray:
     return np.ascontiguousarray(np.where(base.mask, k * multiplier, 0.0))
 
 
+CAPACITY_KEPT = 8
+"""Capacity arrays of distinct years that :meth:`Actions.capacity_for_year` keeps for the run."""
+
+
 @dataclass(eq=False)
 class Actions:
     """A scenario's landscape with its actions applied.
@@ -148,22 +152,39 @@ class Actions:
     spread_multiplier: np.ndarray | None
     no_effect: tuple[str, ...] = ()
     _schedule: _Schedule | None = field(default=None, repr=False)
+    _kept: dict = field(default_factory=dict, repr=False)
     _last: tuple = field(default=((), None), repr=False)
 
     def capacity_for_year(self, year: int) -> np.ndarray:
         """Carrying capacity K per cell in year ``year`` (float64 (ny, nx); do not modify).
 
         Without scheduled actions this is ``landscape.capacity`` for every year; otherwise the
-        last computed array is reused while no schedule moves.
+        array of each distinct state of the schedules is computed once and kept (the first
+        :data:`CAPACITY_KEPT`; beyond them the last computed array is reused while no
+        schedule moves), so that every replicate's years of a ramp reuse them.
         """
         if self._schedule is None:
             return self.landscape.capacity
         key = self._schedule.key(year)
+        k = self._kept.get(key)
+        if k is not None:
+            return k
         last_key, last = self._last
         if key != last_key or last is None:
             last = self._schedule.capacity(key)
-            self._last = (key, last)
+            if len(self._kept) < CAPACITY_KEPT:
+                self._kept[key] = last
+            else:
+                self._last = (key, last)
         return last
+
+    def capacity_arrays(self, years: int) -> int:
+        """How many capacity arrays :meth:`capacity_for_year` holds at most over years
+        0..years - 1 (for the memory estimate)."""
+        if self._schedule is None:
+            return 0
+        distinct = len({self._schedule.key(y) for y in range(years)})
+        return min(distinct, CAPACITY_KEPT) + (distinct > CAPACITY_KEPT)
 
     def totals(self, years) -> list[tuple[int, float, float]]:
         """``(year, total K of the year's suitability layer alone, total K with the actions)``

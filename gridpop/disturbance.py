@@ -227,13 +227,20 @@ class _State:
     loss: np.ndarray | None  # float64 flat, capacity share lost when last hit (after compounding)
     years: int = 0  # years applied so far: ``since`` is below it
 
+    def age(self, fresh: bool) -> None:
+        """One more year since the last hit, in a new array if ``fresh``."""
+        if self.since is not None:
+            aged = np.empty_like(self.since) if fresh else self.since
+            _age(self.since, aged)
+            self.since = aged
+
 
 @njit
-def _age(since):
-    """One more year since the last hit, in place, where there was one."""
+def _age(since, out):
+    """One more year since the last hit, where there was one, into ``out`` (may be
+    ``since``)."""
     for c in range(since.size):
-        if since[c] >= 0:
-            since[c] += 1
+        out[c] = since[c] + 1 if since[c] >= 0 else since[c]
 
 
 @njit
@@ -343,8 +350,7 @@ class Regime:
         events = []
         for index, (table, st) in enumerate(zip(self.tables, state, strict=True)):
             st.years += 1
-            if st.since is not None:
-                _age(st.since)
+            st.age(fresh=table.kind == "fire")  # the year's effects keep a fire table's ages
             event_of, count = table.footprint(seed, replicate, year, index)
             if count and event_of is not None:
                 hit = np.flatnonzero(event_of != 0)  # faster than on the int32 itself
@@ -371,7 +377,7 @@ class Regime:
             burned=hit_any["fire"].reshape(shape) if "fire" in hit_any else None,
             flooded=hit_any["flood"].reshape(shape) if "flood" in hit_any else None,
             events=events,
-            fire_since=tuple(st.since.reshape(shape).copy()
+            fire_since=tuple(st.since.reshape(shape)
                              for t, st in zip(self.tables, state, strict=True)
                              if t.kind == "fire"))
 

@@ -11,6 +11,7 @@ import pytest
 import shapely
 from conftest import UTM, write_raster
 
+from gridpop import actions as actions_module
 from gridpop.actions import apply_actions
 from gridpop.config import (
     ARRAY_SECTIONS,
@@ -152,12 +153,10 @@ def test_reserve_multiplier_and_habitat_loss_exemption(make_scenario, tmp_path):
     assert f"{int((inside & base.mask).sum())} cells inside reserves exempt" in actions.notes[0]
 
 
-def test_restoration_ramp(make_scenario, tmp_path):
-    """Restoration from year 3 over 4 years: year 3 + i has min(1, (i + 1)/4) of the change
-    (documented convention); restored cells belong to a patch from year 0; years in which no
-    schedule moves reuse one array."""
-    area = vector(tmp_path, "r.gpkg", cells_box(25, 10, 35, 30))  # the gap between the blocks
-    tables = f"""
+def restoration(tmp_path) -> str:
+    """A restoration of the gap between the blocks from year 3 over 4 years."""
+    area = vector(tmp_path, "r.gpkg", cells_box(25, 10, 35, 30))
+    return f"""
     [[action]]
     kind = "restoration"
     area = "{area}"
@@ -165,6 +164,13 @@ def test_restoration_ramp(make_scenario, tmp_path):
     start_year = 3
     ramp_years = 4
     """
+
+
+def test_restoration_ramp(make_scenario, tmp_path):
+    """Restoration from year 3 over 4 years: year 3 + i has min(1, (i + 1)/4) of the change
+    (documented convention); restored cells belong to a patch from year 0; years in which no
+    schedule moves reuse one array."""
+    tables = restoration(tmp_path)
     _, base, actions = setup(make_scenario, tables)
     cells = actions.areas[0] & base.mask
     s0 = base.suitability
@@ -174,10 +180,29 @@ def test_restoration_ramp(make_scenario, tmp_path):
         np.testing.assert_allclose(actions.capacity_for_year(year), k_of(s), rtol=1e-12)
     assert actions.capacity_for_year(0) is actions.capacity_for_year(2)
     assert actions.capacity_for_year(8) is actions.capacity_for_year(9)
+    first = [actions.capacity_for_year(year) for year in range(10)]
+    assert all(actions.capacity_for_year(year) is first[year] for year in range(10))  # kept
+    assert actions.capacity_arrays(10) == 5  # before year 3, years 3, 4, 5, from year 6
     assert (actions.landscape.patches.labels[cells] > 0).all()
     assert (actions.landscape.capacity[cells] == 0).all()
     assert actions.landscape.patches.n == 1
     assert "from year 3, in full from year 6" in actions.notes[0]
+
+
+def test_capacity_beyond_the_kept_arrays_is_computed_again(make_scenario, tmp_path,
+                                                            monkeypatch):
+    """With room for two capacity arrays, the years of the other states of a ramp give the
+    same capacity as with room for all (computed again, the last one reused)."""
+    tables = restoration(tmp_path)
+    _, _, actions = setup(make_scenario, tables)
+    expected = [actions.capacity_for_year(year).copy() for year in range(10)]
+    monkeypatch.setattr(actions_module, "CAPACITY_KEPT", 2)
+    _, _, actions = setup(make_scenario, tables)
+    assert actions.capacity_arrays(10) == 3
+    for _ in range(2):
+        for year in range(10):
+            np.testing.assert_array_equal(actions.capacity_for_year(year), expected[year])
+    assert len(actions._kept) == 2
 
 
 def test_barriers_combine_as_independent_risks(make_scenario, tmp_path):

@@ -164,7 +164,7 @@ def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, 
 
 
 @pjit
-def _row_work(dispersers, multinomial_min, work):
+def row_work(dispersers, multinomial_min, work):
     """Work of each row: dispersers placed one by one, or stencil cells of a multinomial."""
     ny, nx = dispersers.shape
     for i in prange(ny):
@@ -182,7 +182,7 @@ def _row_blocks(dispersers: np.ndarray, multinomial_min: float, ry: int) -> np.n
     """Bounds of row blocks of about equal work, each but the last at least 2 ry rows high."""
     ny = dispersers.shape[0]
     work = np.empty(ny)
-    _row_work(dispersers, multinomial_min, work)
+    row_work(dispersers, multinomial_min, work)
     cum = np.concatenate([[0.0], np.cumsum(work)])
     nb = 2 * BLOCKS_PER_THREAD * numba.get_num_threads()
     cuts = np.searchsorted(cum, cum[-1] * np.arange(1, nb) / nb)

@@ -88,7 +88,8 @@ def footprint(scenario, model: Model) -> Footprint:
               + (model.plan.replicates * years + patch_rows) * CSV_ROW_BYTES)
     results = years * cells * per_cell + output  # the combined totals beside the results
     return Footprint(
-        base=BASE_BYTES + cells * MODEL_BYTES_PER_CELL,
+        base=BASE_BYTES + cells * (MODEL_BYTES_PER_CELL
+                                   + 8 * model.actions.capacity_arrays(model.plan.years)),
         batch=cells * (REPLICATE_BYTES_PER_CELL + 24 * extra_classes) + fft
         + model.plan.batch_size * rows * ledger_row,
         combine=model.plan.replicates * rows * ledger_row + cells * 16,
