@@ -151,20 +151,28 @@ def write_ledger_csv(path: Path, ledger: np.ndarray, *, first_replicate: int = 0
     (replicates, years+1, P, F) for patches 1..P; F is :data:`LEDGER_FIELDS` and then the
     ``extra`` columns (``abundance_<stage>``, ``females``, ``males`` of a life history).
     """
-    fmt = (lambda v: str(int(v))) if integers else (lambda v: f"{v:.12g}")
     head = ["replicate", "year"] + (["patch"] if patches else []) + list(LEDGER_FIELDS) + list(
         extra)
+    ledger = np.asarray(ledger, dtype=float)
+    reps, years = ledger.shape[:2]
+    index = [first_replicate + np.arange(reps), np.arange(years)]
+    if patches:
+        index.append(np.arange(1, ledger.shape[2] + 1))
+    keys = np.stack(np.meshgrid(*index, indexing="ij"), axis=-1).reshape(-1, len(index))
+    rows = np.hstack([keys, ledger.reshape(-1, ledger.shape[-1])])
+    # one row's format, with the line end of the csv module's writer; rows are formatted a
+    # block at a time by one % (C code) rather than value by value
+    line = ",".join(["%d"] * len(index) + ["%d" if integers else "%.12g"] * ledger.shape[-1])
+    line += "\r\n"
     with open(path, "w", newline="") as fh:
-        w = csv.writer(fh)
-        w.writerow(head)
-        for r in range(ledger.shape[0]):
-            for t in range(ledger.shape[1]):
-                if patches:
-                    for p in range(ledger.shape[2]):
-                        w.writerow([first_replicate + r, t, p + 1]
-                                   + [fmt(v) for v in ledger[r, t, p]])
-                else:
-                    w.writerow([first_replicate + r, t] + [fmt(v) for v in ledger[r, t]])
+        fh.write(",".join(head) + "\r\n")
+        for start in range(0, len(rows), CSV_BLOCK_ROWS):
+            block = rows[start:start + CSV_BLOCK_ROWS]
+            fh.write((line * len(block)) % tuple(block.ravel().tolist()))
+
+
+CSV_BLOCK_ROWS = 4096
+"""Rows of a ledger CSV formatted at once (bounded memory: a few MB of text)."""
 
 
 EVENT_FIELDS = ("replicate", "year", "kind", "patches", "cells", "deaths")
