@@ -46,7 +46,10 @@ def helper_log(tmp_path, monkeypatch):
 
         monkeypatch.setattr(warmup, "_growth_and_movement", helper_share)
 
-    return install, marker, scratch
+    # processes that earlier tests left running (a Dask cluster's, multiprocessing's resource
+    # tracker) are not this test's helpers
+    before = {c.pid for c in psutil.Process().children(recursive=True)}
+    return install, marker, scratch, before
 
 
 def _reference(make_scenario, tmp_path, monkeypatch):
@@ -57,14 +60,15 @@ def _reference(make_scenario, tmp_path, monkeypatch):
     return scen, ref
 
 
-def _no_children_or_scratch(scratch: Path) -> None:
-    assert psutil.Process().children(recursive=True) == []  # none alive, none a zombie
+def _no_children_or_scratch(scratch: Path, before: set[int]) -> None:
+    new = [c for c in psutil.Process().children(recursive=True) if c.pid not in before]
+    assert new == []  # none alive, none a zombie
     assert list(scratch.iterdir()) == []
 
 
 def test_failing_helper_leaves_the_run_unchanged(make_scenario, tmp_path, monkeypatch,
                                                  helper_log):
-    install, marker, scratch = helper_log
+    install, marker, scratch, before = helper_log
     scen, ref = _reference(make_scenario, tmp_path, monkeypatch)
 
     def fail():
@@ -74,12 +78,12 @@ def test_failing_helper_leaves_the_run_unchanged(make_scenario, tmp_path, monkey
     out = run(scen, tmp_path / "out")
     assert marker.is_file()
     same_results(ref, out, figures=False)
-    _no_children_or_scratch(scratch)
+    _no_children_or_scratch(scratch, before)
 
 
 def test_slow_helper_is_stopped_and_the_run_unchanged(make_scenario, tmp_path, monkeypatch,
                                                       helper_log):
-    install, marker, scratch = helper_log
+    install, marker, scratch, before = helper_log
     scen, ref = _reference(make_scenario, tmp_path, monkeypatch)
     install(lambda: time.sleep(300))
     start = time.perf_counter()
@@ -87,13 +91,13 @@ def test_slow_helper_is_stopped_and_the_run_unchanged(make_scenario, tmp_path, m
     assert time.perf_counter() - start < 60  # waited twice its share plus GRACE_S, not 300 s
     assert marker.is_file()
     same_results(ref, out, figures=False)
-    _no_children_or_scratch(scratch)
+    _no_children_or_scratch(scratch, before)
 
 
 def test_interrupted_run_stops_the_helper(make_scenario, tmp_path, monkeypatch, helper_log):
     """Ctrl-C in the run's share (the helper ignores SIGINT): the helper is stopped and reaped,
     the scratch folder removed, and nothing is published."""
-    install, marker, scratch = helper_log
+    install, marker, scratch, before = helper_log
     scen = load_scenario(make_scenario(scenario_text(years=4, replicates=2)))
     install(lambda: time.sleep(300))
 
@@ -108,7 +112,7 @@ def test_interrupted_run_stops_the_helper(make_scenario, tmp_path, monkeypatch, 
         run(scen, tmp_path / "out")
     assert marker.is_file()
     assert not (tmp_path / "out").exists()
-    _no_children_or_scratch(scratch)
+    _no_children_or_scratch(scratch, before)
 
 
 def test_no_helper_on_a_large_grid_or_with_threads(make_scenario, monkeypatch):
