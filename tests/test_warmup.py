@@ -223,3 +223,37 @@ def test_helper_compiled_kernels_give_identical_results(tmp_path):
     for name in files:
         assert (tmp_path / "own" / name).read_bytes() == \
             (tmp_path / "helped" / name).read_bytes(), name
+
+
+KILLED = """
+import os, signal, sys, time
+from pathlib import Path
+from gridpop import load_scenario, run
+from gridpop.simulation import warmup
+
+warmup._can_fork = lambda model: True
+warmup._cold_cache = lambda: True
+warmup._growth_and_movement = lambda model, scratch: time.sleep(2.0)
+
+def killed(model, scratch):
+    os.kill(os.getpid(), signal.SIGKILL)  # the run dies during its share
+
+warmup._census_and_conditions = killed
+run(load_scenario(sys.argv[1]), Path(sys.argv[2]))
+"""
+
+
+@pytest.mark.slow
+def test_helper_of_a_killed_run_removes_the_scratch_folder(make_scenario, tmp_path):
+    """A run killed (SIGKILL) during the warm-up cannot remove its scratch folder; its helper,
+    left without a parent, finishes its share and removes the folder on its way out."""
+    scen = make_scenario(scenario_text(years=2, replicates=1))
+    env = {**os.environ, "TMPDIR": str(tmp_path)}
+    done = subprocess.run([sys.executable, "-c", KILLED, str(scen), str(tmp_path / "out")],
+                          env=env, capture_output=True, text=True, timeout=300)
+    assert done.returncode == -9, done.stderr
+    deadline = time.monotonic() + 60
+    while list(tmp_path.glob("gridpop-compile-*")) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert list(tmp_path.glob("gridpop-compile-*")) == []
+    assert not (tmp_path / "out").exists()

@@ -35,6 +35,7 @@ import contextlib
 import dataclasses
 import multiprocessing
 import os
+import shutil
 import signal
 import tempfile
 import threading
@@ -139,15 +140,21 @@ def _growth_and_movement(model: Model, scratch: Path) -> None:
 
 
 def _helper(model: Model, scratch: Path) -> None:
-    """The helper process: quiet, deaf to Ctrl-C, stopped by SIGTERM."""
+    """The helper process: quiet, deaf to Ctrl-C, stopped by SIGTERM. A helper whose run was
+    killed (its parent gone) removes the scratch folder, which the run would have removed."""
+    run = os.getppid()
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.signal(signal.SIGTERM, _raise_stopped)
     quiet = os.open(os.devnull, os.O_WRONLY)
     os.dup2(quiet, 1)
     os.dup2(quiet, 2)
     warnings.simplefilter("ignore")
-    with contextlib.suppress(_Stopped):
-        _growth_and_movement(model, scratch)
+    try:
+        with contextlib.suppress(_Stopped):
+            _growth_and_movement(model, scratch)
+    finally:
+        if os.getppid() != run:
+            shutil.rmtree(scratch.parent, ignore_errors=True)
 
 
 def _raise_stopped(signum, frame):
