@@ -255,9 +255,10 @@ def stage_row(n, k, env, out, births, deaths, dens, model, theta, allee_a, st, s
 
 
 @pjit
-def share_deaths(n, before, after, stochastic):
-    """Share a cell's disturbance deaths among its classes: ``n`` (C, ny, nx) counts before,
-    ``before``/``after`` the cell totals. Proportional shares; with whole individuals each
+def share_deaths(before, after, n, stochastic):
+    """Share a cell's disturbance deaths among its classes: ``before``/``after`` the cell
+    totals, ``n`` (C, ny, nx) the counts before (a grid-shaped array first: it sizes the
+    serial or parallel variant). Proportional shares; with whole individuals each
     class loses the whole part of its share and the remaining deaths go to the classes with the
     largest remainders (the total stays exact)."""
     classes, ny, nx = n.shape

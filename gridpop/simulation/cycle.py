@@ -365,7 +365,7 @@ class Replicate:
                                  replicate=self.replicate, year=year,
                                  stochastic=m.growth.stochastic)
         if self.n.shape[0] > 1:
-            share_deaths(self.n, before, n, m.growth.stochastic)
+            share_deaths(before, n, self.n, m.growth.stochastic)
         return effects
 
     def conditions(self, t: int, sink: BatchSink) -> YearConditions:
