@@ -28,7 +28,6 @@ from pathlib import Path
 from typing import Any, Literal, get_args
 
 import numpy as np
-from scipy import stats
 
 from ..errors import ScenarioError, where
 from .schema import Key, doc_of, key, keys_of
@@ -63,6 +62,8 @@ class ParameterRange:
 
     def frozen(self) -> Any:
         """The scipy.stats frozen distribution."""
+        from scipy import stats  # here: every command loads this module, few draw designs
+
         a = self.args
         if self.distribution == "uniform":
             return stats.uniform(loc=a[0], scale=a[1] - a[0])
