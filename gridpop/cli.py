@@ -256,11 +256,10 @@ class _WarningPrinter:
 
     def __call__(self, message, category, filename, lineno, file=None, line=None):
         text = str(message)
-        source, sep, rest = text.partition(": ")
-        if issubclass(category, ScenarioWarning) and sep and source.endswith(".toml"):
-            if rest in self.first and self.first[rest] != source:
-                text = f"{source}: the same as for {Path(self.first[rest]).name} above."
-            self.first.setdefault(rest, source)
+        if isinstance(message, ScenarioWarning):
+            first = self.first.setdefault(message.detail, message.file)
+            if first != message.file:
+                text = f"{message.file}: the same as for {Path(first).name} above."
         print(f"gridpop: warning: {text}", file=sys.stderr)
 
 

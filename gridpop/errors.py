@@ -33,7 +33,16 @@ class ScenarioWarning(UserWarning):
     """A scenario that runs but is probably not what the user meant (a capacity of a few
     individuals per cell, a population that starts below the quasi-extinction threshold, an
     action area off the grid, keys the dispersal method ignores). The command line prints one
-    line per warning on stderr, for ``check`` and ``run`` alike."""
+    line per warning on stderr, for ``check`` and ``run`` alike. ``file`` is the scenario file,
+    ``detail`` the rest of the message (``file: detail``)."""
+
+    def __init__(self, file, detail: str) -> None:
+        super().__init__(str(file), detail)  # both in args: a pickled copy is rebuilt whole
+        self.file = str(file)
+        self.detail = detail
+
+    def __str__(self) -> str:
+        return f"{self.file}: {self.detail}"
 
 
 def where(file, section: str | None = None, key: str | None = None) -> str:

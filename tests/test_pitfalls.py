@@ -3,6 +3,7 @@ each one triggered, and not triggered by the scenario beside it."""
 
 from __future__ import annotations
 
+import pickle
 import warnings
 
 import geopandas as gpd
@@ -207,3 +208,11 @@ def test_a_warning_repeated_for_every_plan_of_a_comparison_is_printed_once(make_
              if x.startswith("gridpop: warning: ")]
     assert len(lines) == 2 and "capacity_per_ha" in lines[0] and str(a) in lines[0]
     assert lines[1] == f"gridpop: warning: {b}: the same as for a.toml above."
+
+
+def test_scenario_warning_names_its_file_and_survives_pickling():
+    """A warning keeps its file and its text apart (the command line compares the texts of
+    plans) and crosses to a Dask worker and back whole (common practice: exceptions pickle)."""
+    w = pickle.loads(pickle.dumps(ScenarioWarning("/plans/a.toml", "[growth] rate = 3")))
+    assert (w.file, w.detail, str(w)) == ("/plans/a.toml", "[growth] rate = 3",
+                                          "/plans/a.toml: [growth] rate = 3")

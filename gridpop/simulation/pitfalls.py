@@ -101,4 +101,5 @@ def pitfalls(scenario, model) -> list[str]:
 def warn(scenario, model) -> None:
     """Emit each of :func:`pitfalls` as a :class:`ScenarioWarning`."""
     for line in pitfalls(scenario, model):
-        warnings.warn(line, ScenarioWarning, stacklevel=3)
+        detail = line.removeprefix(f"{scenario.path}: ")  # each line names the file first
+        warnings.warn(ScenarioWarning(scenario.path, detail), stacklevel=3)
