@@ -148,11 +148,16 @@ def _add_run_overrides(p):
     p.add_argument("--seed", type=int, help="override [run] seed")
 
 
+def _add_output_flags(p):
+    """``--overwrite`` and ``--quiet``, for every command that writes an output folder."""
+    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
+    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
+
+
 def _add_run_options(p, *, resume: str):
     """The options `run` and `compare` share: output, execution and ``--resume`` (its help)."""
     _add_run_overrides(p)
-    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
-    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
+    _add_output_flags(p)
     p.add_argument("--no-plots", action="store_true", help="do not draw the PNG plots")
     p.add_argument("--workers", type=int, metavar="N", help="run batches of replicates on a "
                    "local Dask cluster of N worker processes (default: in this process)")
@@ -202,8 +207,7 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True, help="output folder")
     p.add_argument("--years", type=int, help="override [run] years")
     p.add_argument("--replicates", type=int, help="override [run] replicates")
-    p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
-    p.add_argument("--quiet", action="store_true", help="no progress bar or messages")
+    _add_output_flags(p)
     p.add_argument("--workers", type=int, metavar="N", help="run parameter sets on a local "
                    "Dask cluster of N worker processes (default: in this process)")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run parameter sets on the Dask "
