@@ -33,7 +33,8 @@ class Target:
     section: str  # a section name, or "action" / "disturbance"
     key: Key
     tables: tuple[int, ...] = ()  # 0-based indices of the [[action]]/[[disturbance]] tables
-    entry: tuple[int, ...] = ()  # [stages]: (row, column) of a matrix, (stage,) of a list
+    # one entry of a [stages] list or matrix: the key holding it and (stage,) or (row, column)
+    entry: tuple[str, tuple[int, ...]] | None = None
 
 
 MATRICES = ("transitions", "fecundity")
@@ -64,7 +65,8 @@ def _stage_targets(scenario: Scenario, parts: list[str]) -> tuple[list[Target], 
             return [], f"{parts[1]!r} is not a stage; the stages are {', '.join(names)}"
         element = dataclasses.replace(keys["dispersal_fraction"],
                                       name=f"dispersal_fraction[{parts[1]}]", type="float")
-        return [Target("stages", element, entry=(names.index(parts[1]),))], None
+        return [Target("stages", element,
+                       entry=("dispersal_fraction", (names.index(parts[1]),)))], None
     if len(parts) == 3 and parts[0] in MATRICES:
         matrix, row, column = parts
         if leslie:
@@ -76,7 +78,8 @@ def _stage_targets(scenario: Scenario, parts: list[str]) -> tuple[list[Target], 
         element = dataclasses.replace(keys[matrix], name=f"{matrix}[{row}][{column}]",
                                       type="float",
                                       high=1.0 if matrix == "transitions" else None)
-        return [Target("stages", element, entry=(names.index(row), names.index(column)))], None
+        return [Target("stages", element,
+                       entry=(matrix, (names.index(row), names.index(column))))], None
     return [], f"expected {STAGE_FORMS}"
 
 
@@ -171,11 +174,11 @@ def apply_parameters(scenario: Scenario, values: dict[str, float]) -> Scenario:
     for name, value in values.items():
         targets, _ = _targets(scenario, name)
         for t in targets:
-            if t.entry:
+            if t.entry is not None:
                 assert scenario.stages is not None
-                k = t.key.name.split("[")[0]
+                k, index = t.entry
                 entries = np.array(getattr(scenario.stages, k), dtype=float)
-                entries[t.entry] = value
+                entries[index] = value
                 scenario = scenario.replace("stages", **{k: entries.tolist()})
                 continue
             if not t.tables:
