@@ -4,7 +4,9 @@
 waits for: imports, reading the layers, compiling or loading the kernels, one replicate, the
 outputs and plots), first with ``NUMBA_CACHE_DIR`` pointing at an empty folder (every kernel is
 compiled and written to the cache), then again with the same folder (kernels loaded from disk).
-Then the whole demo run (all its replicates) with the warm cache.
+Then the whole demo run (all its replicates) with the warm cache. Then, with another empty
+cache, the README's install step ``gridpop compile scenarios/demo/base.toml`` and the first
+run after it.
 
 Each figure is the wall time and the CPU time (user + system, of the process, its threads and
 the helper process that compiles part of the kernels when the cache is cold,
@@ -33,13 +35,16 @@ from _common import write_result
 DEMO = Path(__file__).resolve().parent.parent / "scenarios" / "demo" / "base.toml"
 
 
-def timed(cache: Path, out: Path, *extra: str) -> tuple[float, float]:
-    """Wall and CPU seconds of one ``gridpop run`` of the demo in a new process."""
+def timed(cache: Path, out: Path | None, *extra: str) -> tuple[float, float]:
+    """Wall and CPU seconds of one ``gridpop run`` of the demo in a new process (``gridpop
+    compile`` of the demo when ``out`` is None)."""
     env = {**os.environ, "NUMBA_CACHE_DIR": str(cache)}
+    command = (["compile", str(DEMO)] if out is None
+               else ["run", str(DEMO), "--out", str(out), "--quiet", *extra])
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
-    subprocess.run([sys.executable, "-m", "gridpop.cli", "run", str(DEMO), "--out", str(out),
-                    "--quiet", *extra], check=True, env=env)
+    subprocess.run([sys.executable, "-m", "gridpop.cli", *command], check=True, env=env,
+                   stdout=subprocess.DEVNULL)
     wall = time.perf_counter() - start
     after = resource.getrusage(resource.RUSAGE_CHILDREN)
     return wall, (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
@@ -64,10 +69,15 @@ def main():
                 runs.setdefault("whole_demo_warm_cache", []).append(
                     timed(cache, Path(tmp) / "whole"))
             cached = sum(1 for p in cache.rglob("*.nbi"))
+            compiled = Path(tmp) / "numba-cache-compiled"
+            compiled.mkdir()
+            runs.setdefault("compile_command_cold_cache", []).append(timed(compiled, None))
+            runs.setdefault("first_result_after_compile_command", []).append(
+                timed(compiled, Path(tmp) / "after-compile", *first))
     seconds = {f"{k}_s": min(w for w, _ in v) for k, v in runs.items()}
     cpu = {f"{k}_cpu_s": min(c for _, c in v) for k, v in runs.items()}
     for k in runs:
-        print(f"{k:>24}: wall {seconds[k + '_s']:6.1f} s  cpu {cpu[k + '_cpu_s']:6.1f} s")
+        print(f"{k:>34}: wall {seconds[k + '_s']:6.1f} s  cpu {cpu[k + '_cpu_s']:6.1f} s")
     write_result("bench_startup", {"scenario": str(DEMO.relative_to(DEMO.parents[2])),
                                    "first_result_args": first, "repeat": args.repeat,
                                    "seconds": seconds, "cpu_seconds": cpu,

@@ -129,6 +129,25 @@ def cmd_report(args) -> int:
     return 0
 
 
+def cmd_compile(args) -> int:
+    import time
+
+    from .config import load_scenario
+    from .simulation.run import compile_kernels
+
+    for path in args.scenarios:
+        start = time.perf_counter()
+        with warnings.catch_warnings():  # `check` and `run` say them; here they are noise
+            warnings.simplefilter("ignore", ScenarioWarning)
+            compile_kernels(load_scenario(path))
+        print(f"{path}: kernels ready in {time.perf_counter() - start:.1f} s")
+    from . import _jit, rng
+
+    print(f"numba's cache holds them ({_jit.cache_folder(rng.mix64)} and the like): runs of these "
+          "scenarios start without compiling")
+    return 0
+
+
 def cmd_init(args) -> int:
     from .config import template_toml
 
@@ -222,6 +241,11 @@ def parser() -> argparse.ArgumentParser:
     p.add_argument("dir", metavar="RESULT_DIR")
     p.add_argument("--out", metavar="FILE", help="report file (default DIR/report.html)")
     p.set_defaults(func=cmd_report)
+
+    p = sub.add_parser("compile", help="compile the kernels that runs of scenarios use into "
+                       "numba's cache, so that those runs start at once (once after installing)")
+    p.add_argument("scenarios", nargs="+", metavar="SCENARIO", help="scenario files")
+    p.set_defaults(func=cmd_compile)
 
     p = sub.add_parser("init", help="write a commented scenario template into DIR")
     p.add_argument("dir")

@@ -257,3 +257,49 @@ def test_helper_of_a_killed_run_removes_the_scratch_folder(make_scenario, tmp_pa
         time.sleep(0.1)
     assert list(tmp_path.glob("gridpop-compile-*")) == []
     assert not (tmp_path / "out").exists()
+
+
+PROBED = """
+import json, sys
+import numba
+from numba.core import event
+from gridpop import cli
+
+@numba.njit
+def probe(x):  # compiled inside the recorder: it proves that the recorder sees compiles
+    return x + 1
+
+with event.install_recorder("numba:compile") as rec:
+    probe(1)
+    code = cli.main(["run", sys.argv[1], "--replicates", "1", "--out", sys.argv[2], "--quiet"])
+print(json.dumps({"code": code, "compiled": sorted({
+    e.data["dispatcher"].py_func.__module__ + "." + e.data["dispatcher"].py_func.__qualname__
+    for _, e in rec.buffer if e.is_start})}))
+"""
+
+
+@pytest.mark.slow
+def test_compile_command_leaves_nothing_for_the_first_run_to_compile(tmp_path):
+    """`gridpop compile` (the install step of the README) from an empty numba cache: the
+    first run of the demo afterwards compiles no gridpop kernel, and the command leaves no
+    output or scratch folder behind."""
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache"), "TMPDIR": str(tmp_path)}
+    done = subprocess.run([sys.executable, "-m", "gridpop.cli", "compile", str(DEMO)],
+                          env=env, capture_output=True, text=True, cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert done.stderr == ""  # the scenario's warnings are for `check` and `run`
+    assert "kernels ready" in done.stdout and str(tmp_path / "cache") in done.stdout
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cache"]
+    assert len(list((tmp_path / "cache").rglob("*.nbi"))) > 20
+    done = subprocess.run([sys.executable, "-c", PROBED, str(DEMO), str(tmp_path / "out")],
+                          env=env, capture_output=True, text=True)
+    probed = json.loads(done.stdout.splitlines()[-1])
+    assert probed == {"code": 0, "compiled": ["__main__.probe"]}
+
+
+def test_compile_command_refuses_a_missing_scenario(tmp_path, capsys):
+    from gridpop import cli
+
+    assert cli.main(["compile", str(tmp_path / "absent.toml")]) == 2
+    err = capsys.readouterr().err
+    assert "absent.toml" in err and "Traceback" not in err

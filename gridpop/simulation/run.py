@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import contextlib
 import shutil
+import tempfile
 import threading
 import time
 from pathlib import Path
@@ -167,6 +168,24 @@ def run(scenario, out_dir, *, overwrite: bool = False, progress: bool = False,
         manifest["execution"]["wall_time_s"] = round(time.time() - started, 3)
         publish_complete(work, out_dir, "run.json", manifest)
     return out_dir
+
+
+def compile_kernels(scenario) -> None:
+    """Compile every kernel that runs of ``scenario`` use into numba's cache (or find them
+    there), so that those runs start without compiling: one replicate of the scenario through
+    its whole horizon, run as :func:`run` runs it (two processes compiling at once with an
+    empty cache) into a scratch folder that is then removed; no plots.
+
+    A kernel of an event that this replicate does not meet (a disturbance that never happens
+    in it) is compiled by the first run that meets it.
+
+    Raises
+    ------
+    RunStateError
+        Not enough memory or disk for one replicate (:func:`check_room`).
+    """
+    with tempfile.TemporaryDirectory(prefix="gridpop-compile-") as scratch:
+        run(scenario.replace("run", replicates=1), Path(scratch) / "run")
 
 
 def _connectivity_in_background(model) -> threading.Thread | None:
