@@ -303,3 +303,27 @@ def test_compile_command_refuses_a_missing_scenario(tmp_path, capsys):
     assert cli.main(["compile", str(tmp_path / "absent.toml")]) == 2
     err = capsys.readouterr().err
     assert "absent.toml" in err and "Traceback" not in err
+
+
+def test_compile_command_on_a_full_disk_says_where(make_scenario, tmp_path, monkeypatch,
+                                                   capsys):
+    """A full disk under the scratch folder is a user error naming the scenario and TMPDIR,
+    not the advice of an interrupted run (there is nothing to resume), and no scratch is left."""
+    import errno
+
+    from gridpop import cli
+    from gridpop.simulation import run as run_module
+
+    scen = make_scenario(scenario_text(years=2, replicates=3))
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    monkeypatch.setattr(run_module.tempfile, "tempdir", str(scratch))
+
+    def full(*args, **kwargs):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(run_module, "write_results", full)
+    assert cli.main(["compile", str(scen)]) == 2
+    err = capsys.readouterr().err
+    assert str(scen) in err and "TMPDIR" in err and "--resume" not in err
+    assert list(scratch.iterdir()) == []

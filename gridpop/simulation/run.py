@@ -21,6 +21,7 @@ import numba
 
 from .. import _jit
 from .._version import __version__
+from ..errors import RunStateError
 from ..io.results import (
     CHECKPOINT,
     check_output,
@@ -174,7 +175,8 @@ def compile_kernels(scenario) -> None:
     """Compile every kernel that runs of ``scenario`` use into numba's cache (or find them
     there), so that those runs start without compiling: one replicate of the scenario through
     its whole horizon, run as :func:`run` runs it (two processes compiling at once with an
-    empty cache) into a scratch folder that is then removed; no plots.
+    empty cache) into a scratch folder in the temporary folder (``TMPDIR``), then removed; no
+    plots, no memory or disk estimate (one replicate is the least any run of it needs).
 
     A kernel of an event that this replicate does not meet (a disturbance that never happens
     in it) is compiled by the first run that meets it.
@@ -182,10 +184,16 @@ def compile_kernels(scenario) -> None:
     Raises
     ------
     RunStateError
-        Not enough memory or disk for one replicate (:func:`check_room`).
+        The temporary folder's disk filled up.
     """
     with tempfile.TemporaryDirectory(prefix="gridpop-compile-") as scratch:
-        run(scenario.replace("run", replicates=1), Path(scratch) / "run")
+        try:
+            run(scenario.replace("run", replicates=1), Path(scratch) / "run", force=True)
+        except RunStateError:  # only a full disk, here: nothing to resume
+            raise RunStateError(
+                f"{scenario.path}: one replicate of it, run to compile its kernels, filled the "
+                f"disk of {scratch}; free some space there or set TMPDIR to a folder on "
+                "another disk.") from None
 
 
 def _connectivity_in_background(model) -> threading.Thread | None:
