@@ -178,7 +178,7 @@ BANDWIDTH_CELLS = 2**24
 """At least this many float64 per array in the bandwidth probe (128 MiB, far beyond the caches)."""
 
 
-@pjit
+@pjit(grid=None)
 def triad(a, b, c, s):
     for i in prange(a.size):
         a[i] = b[i] + s * c[i]

@@ -24,6 +24,7 @@ Time to first result (an empty cache) is mostly compiling, so:
 from __future__ import annotations
 
 import functools
+import inspect
 import os
 import types
 
@@ -51,9 +52,14 @@ class SizedKernel:
     give identical results. Called from Python only: another kernel cannot call it.
     """
 
-    def __init__(self, func):
+    def __init__(self, func, grid: str | None):
         self.py_func = func
         self.__doc__, self.__name__ = func.__doc__, func.__name__
+        names = list(inspect.signature(func).parameters)
+        if grid is not None and grid not in names:
+            raise TypeError(f"{func.__qualname__} has no argument {grid!r}")
+        self.grid = None if grid is None else names.index(grid)
+        """Position of the argument whose first two axes are the grid; None: no grid."""
         self.parallel = numba.njit(parallel=True, **OPTIONS)(func)  # type: ignore[call-overload]
         # numba's cache tells functions apart by qualified name, not by options: the serial
         # variant is a copy of the function under its own name
@@ -66,16 +72,16 @@ class SizedKernel:
         return self.variant(*args)(*args)
 
     def variant(self, *args):
-        """The dispatcher that :meth:`__call__` uses for these arguments: the grid is the first
-        two axes of the first array argument of two or more dimensions; a kernel without one
-        (its work not a grid) runs in parallel."""
+        """The dispatcher that :meth:`__call__` uses for these arguments (positional, as
+        :meth:`__call__` takes them; enough of them to reach the grid argument): serial below
+        :data:`PARALLEL_CELLS` cells of the grid argument or with one thread, parallel above it
+        or for a kernel whose work is not a grid."""
         if numba.get_num_threads() == 1:
             return self.serial
-        for a in args:
-            if isinstance(a, np.ndarray) and a.ndim >= 2:
-                big = a.shape[0] * a.shape[1] >= PARALLEL_CELLS
-                return self.parallel if big else self.serial
-        return self.parallel
+        if self.grid is None:
+            return self.parallel
+        shape = args[self.grid].shape
+        return self.parallel if shape[0] * shape[1] >= PARALLEL_CELLS else self.serial
 
 
 def cache_folder(kernel) -> str:
@@ -84,10 +90,11 @@ def cache_folder(kernel) -> str:
     return kernel._cache._cache_path
 
 
-def pjit(func) -> SizedKernel:
-    """Kernel whose ``numba.prange`` loops run on numba's thread pool on large arrays (see
-    :class:`SizedKernel`)."""
-    return SizedKernel(func)
+def pjit(*, grid: str | None):
+    """Kernel whose ``numba.prange`` loops run on numba's thread pool on large grids (see
+    :class:`SizedKernel`): ``grid`` names the argument whose first two axes (rows, columns) are
+    the grid whose size decides, or is None for work that is not a grid (always parallel)."""
+    return lambda func: SizedKernel(func, grid)
 
 
 def _lock_cache_files() -> bool:

@@ -148,7 +148,7 @@ def _split_row_deterministic(n, out, births, deaths, s, allee_a):
         deaths[j] = nj - surv
 
 
-@pjit
+@pjit(grid="n")
 def step_deterministic(n, k, env, out, births, deaths, model, r, s, theta, allee_a):
     """One year of local growth with expected values.
 
@@ -210,7 +210,7 @@ def _split_row_stochastic(n, out, births, deaths, s, allee_a, key_survival, key_
         deaths[j] = nj - surv
 
 
-@pjit
+@pjit(grid="n")
 def step_stochastic(n, k, env, out, births, deaths, model, r, s, theta, allee_a,
                     key_survival, key_births):
     """One year of local growth with demographic stochasticity (whole individuals).
@@ -247,7 +247,7 @@ def grow_row(n, k, env, out, births, deaths, model, r, s, theta, allee_a, stocha
         _split_row_deterministic(n, out, births, deaths, s, allee_a)
 
 
-@pjit
+@pjit(grid="out")
 def _standard_normals(key, out):
     nx = out.shape[1]
     for i in prange(out.shape[0]):
@@ -256,7 +256,7 @@ def _standard_normals(key, out):
             row[j] = rng.normal(rng.cell_key(key, i * nx + j), np.int64(0))
 
 
-@pjit
+@pjit(grid="out")
 def _low_rank_field(ay, e, ax_t, out):
     """``out = ay @ e @ ax_t`` in a fixed summation order (BLAS may depend on its threads)."""
     nx = ax_t.shape[1]
@@ -286,7 +286,7 @@ def _low_rank_field(ay, e, ax_t, out):
                 row[j] += ya * ta[j]
 
 
-@pjit
+@pjit(grid="previous")
 def _autoregress(previous, e, a, b, sd, field):
     """``e = a * previous + b * e`` in place and ``field = sd * e``, in one pass."""
     for i in prange(e.shape[0]):

@@ -254,7 +254,7 @@ def stage_row(n, k, env, out, births, deaths, dens, model, theta, allee_a, st, s
                 out[s_n + i, j] += b * (1.0 - st.female_fraction)
 
 
-@pjit
+@pjit(grid="before")
 def share_deaths(before, after, n, stochastic):
     """Share a cell's disturbance deaths among its classes: ``before``/``after`` the cell
     totals, ``n`` (C, ny, nx) the counts before (a grid-shaped array first: it sizes the

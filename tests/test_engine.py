@@ -309,6 +309,23 @@ def test_serial_and_parallel_variants_agree():
     assert grow_pass.variant(*small) is grow_pass.serial
 
 
+def test_variant_is_chosen_by_the_named_grid_argument(monkeypatch):
+    """The grid that decides is the argument the decorator names, not the first large array:
+    the environmental field's low-rank product takes (ny, rank) factors first, and on a large
+    grid with a small rank it ran serially. A name the kernel does not have is refused."""
+    monkeypatch.setattr(numba, "get_num_threads", lambda: 2)
+    ny, nx, rank = 200, 300, 4
+    ay, e, ax_t, out = np.ones((ny, rank)), np.ones((rank, rank)), np.ones((rank, nx)), \
+        np.empty((ny, nx))
+    assert ny * rank < _jit.PARALLEL_CELLS <= ny * nx
+    assert demography._low_rank_field.variant(ay, e, ax_t, out) is \
+        demography._low_rank_field.parallel
+    assert demography._low_rank_field.variant(ay, e, ax_t, out[:10, :10]) is \
+        demography._low_rank_field.serial
+    with pytest.raises(TypeError, match="no argument 'grid'"):
+        _jit.pjit(grid="grid")(lambda n, k: None)
+
+
 def test_settle_and_census_sums_match_numpy():
     """The census kernel's per-patch sums (runs of a patch along a row summed in registers)
     against ``np.bincount`` over the cells (NumPy as the reference library), and its per-cell

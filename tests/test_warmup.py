@@ -291,8 +291,10 @@ def test_compile_command_leaves_nothing_for_the_first_run_to_compile(tmp_path):
     assert "kernels ready" in done.stdout and str(tmp_path / "cache") in done.stdout
     assert sorted(p.name for p in tmp_path.iterdir()) == ["cache"]
     assert len(list((tmp_path / "cache").rglob("*.nbi"))) > 20
+    # from tmp_path, as the command: both import the installed gridpop, not the source tree
+    # that `python -c` in the checkout would (numba caches each module file apart)
     done = subprocess.run([sys.executable, "-c", PROBED, str(DEMO), str(tmp_path / "out")],
-                          env=env, capture_output=True, text=True)
+                          env=env, capture_output=True, text=True, cwd=tmp_path)
     probed = json.loads(done.stdout.splitlines()[-1])
     assert probed == {"code": 0, "compiled": ["__main__.probe"]}
 

@@ -367,7 +367,7 @@ def _merge_rows(c, bounds, top, bot, base, start, n_touched, touched, halo, halo
                            ret)
 
 
-@pjit
+@pjit(grid="d")
 def _across_kernel(d, regions, node, labels, settle, survival, table_of, tables, offsets,
                    threshold, alias, cond, ymap, xmap, key, barrier_key, multinomial_min, bounds,
                    top, bot, base, start, halo, halo_head, head, pool, touched, arrivals, stayed,
@@ -402,7 +402,7 @@ def _across_kernel(d, regions, node, labels, settle, survival, table_of, tables,
             settled_from[p] += ret[b, p, 1]
 
 
-@pjit
+@pjit(grid="counts")
 def _thin_kernel(counts, node, p_node, tables, key, group, out):
     ny, nx = counts.shape
     for i in prange(ny):

@@ -92,7 +92,7 @@ STENCIL_BAND_ROWS = 128
 2 ry rows above and below its band once more."""
 
 
-@pjit
+@pjit(grid="d")
 def _stencil_separable(d, wy, wx, edge_code, out):
     """``out`` = ``d`` convolved with ``outer(wy, wx)``, the field extended by the edge: a row
     pass of each source row into a ring of rows, then a column pass over the ring."""
@@ -125,7 +125,7 @@ def _stencil_separable(d, wy, wx, edge_code, out):
                     _axpy(o, wy[a], ring[(qa - i0 + ry) % w])
 
 
-@pjit
+@pjit(grid="d")
 def _stencil_full(d, w, edge_code, out):
     """``out`` = ``d`` convolved with the (2ry+1, 2rx+1) stencil ``w``, the field extended by
     the edge."""

@@ -43,13 +43,13 @@ def leaving_row_stochastic(n, density, k, fraction, dd, key, first_cell, out):
             rng.cell_key(key, first_cell + j))
 
 
-@pjit
+@pjit(grid="n")
 def _leaving_deterministic_kernel(n, k, fraction, dd, out):
     for i in prange(n.shape[0]):
         leaving_row_deterministic(n[i], n[i], k[i], fraction, dd, out[i])
 
 
-@pjit
+@pjit(grid="n")
 def _leaving_stochastic_kernel(n, k, fraction, dd, key, out):
     nx = n.shape[1]
     for i in prange(n.shape[0]):

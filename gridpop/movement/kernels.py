@@ -175,7 +175,7 @@ def _centre_cell_mass(code, scale, p, w, h, tn, tw):
     return 2.0 / math.pi * s
 
 
-@pjit
+@pjit(grid=None)
 def _radial_cell_masses(code, scale, p, w, h, ry, rx, dmax, touch, gn, gw, tn, tw):
     """Unnormalised cell masses of a radial kernel over one quadrant (row offset ky = 0..ry,
     column offset kx = 0..rx); cells beyond dmax get 0: cells whose nearest point is beyond

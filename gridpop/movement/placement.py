@@ -143,7 +143,7 @@ def _disperse_rows(dispersers, settle, labels, offsets, threshold, alias, cond, 
                 ret[lab, 1] += settled
 
 
-@pjit
+@pjit(grid="dispersers")
 def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, threshold, alias,
                                 cond, ymap, xmap, key, multinomial_min, bounds, arrivals, stayed,
                                 retained, settled_from):
@@ -176,7 +176,7 @@ def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, 
             settled_from[p] += ret[b, p, 1]
 
 
-@pjit
+@pjit(grid="dispersers")
 def row_work(dispersers, multinomial_min, work):
     """Work of each row: dispersers placed one by one, or stencil cells of a multinomial."""
     ny, nx = dispersers.shape

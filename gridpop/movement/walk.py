@@ -315,7 +315,7 @@ def _pick(perm, y, x, turn, row, target):
     return last  # target rounded up to the total
 
 
-@pjit
+@pjit(grid="dispersers")
 def _walk_stochastic(dispersers, perm, settle, surv1, surv2, labels, turn, walk_length, mortal,
                      key, arrivals, visits, lost, retained, settled_from, stayed):
     ny, nx = perm.shape
@@ -364,7 +364,7 @@ def _walk_stochastic(dispersers, perm, settle, surv1, surv2, labels, turn, walk_
                     lost[tid, y, x] += 1.0
 
 
-@pjit
+@pjit(grid="perm")
 def _inv_norm(perm, turn, out):
     """``out[i, j, r] = 1 / sum_k weight_k turn[r, k]``, 0 where no neighbour can be entered."""
     ny, nx = perm.shape
@@ -375,7 +375,7 @@ def _inv_norm(perm, turn, out):
                 out[i, j, r] = 1.0 / z if z > 0.0 else 0.0
 
 
-@pjit
+@pjit(grid="dispersers")
 def _det_start(dispersers, invz, g, lost):
     """Scaled start densities ``g = dispersers / norm``; trapped dispersers are lost."""
     ny, nx = dispersers.shape
@@ -387,7 +387,7 @@ def _det_start(dispersers, invz, g, lost):
                 lost[i, j] += d
 
 
-@pjit
+@pjit(grid="g")
 def _det_step(g, perm, settle, surv1, surv2, turn, invz, last, g_next, arrivals, visits,
               lost, box):
     """One step of the expected walk, over the cells ``box = (y0, y1, x0, x1)`` (rows

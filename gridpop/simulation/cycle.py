@@ -149,7 +149,7 @@ def _run_sums_block(part, c, labels, n_patches, block):
                 acc[f] += block[f, j]
 
 
-@pjit
+@pjit(grid="labels")
 def grow_pass(labels, n_patches, n, k, env, out, leaving, rates, stages, fractions, emigration,
               keys, retention):
     """Local growth of every cell, then emigration: ``out`` gets the residents (grown minus
@@ -250,7 +250,7 @@ def _settle_classes(n, i, ki, arrivals, arriving, counted, v, settled):
                 v[j] += na[j]
 
 
-@pjit
+@pjit(grid="labels")
 def census_pass(labels, n_patches, k, n, abundance, counted, arrivals, arriving, stayed,
                 dist_deaths, threshold, ever, sum_n, occupied, ever_count):
     """Settle the year's arrivals, then take the census.
