@@ -29,7 +29,6 @@ import os
 import types
 
 import numba
-import numpy as np
 
 OPTIONS = {"cache": True, "nogil": True, "no_cfunc_wrapper": True}
 """Every kernel's numba options (numba's type stubs leave ``no_cfunc_wrapper`` out)."""

@@ -243,7 +243,8 @@ def parser() -> argparse.ArgumentParser:
     p.set_defaults(func=cmd_report)
 
     p = sub.add_parser("compile", help="compile the kernels that runs of scenarios use into "
-                       "numba's cache, so that those runs start at once (once after installing)")
+                       "numba's cache, so that those runs start without compiling (once after "
+                       "installing)")
     p.add_argument("scenarios", nargs="+", metavar="SCENARIO", help="scenario files")
     p.set_defaults(func=cmd_compile)
 
