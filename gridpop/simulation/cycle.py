@@ -416,7 +416,7 @@ class Replicate:
             return
         if self.visits is not None:
             self.visits[:] = 0.0
-        moved = self._move(streams, k)
+        moved = self.move(streams, k)
         if moved.visits is not None:
             self.visits += moved.visits
         s = self._census(t, sink, k, moved.arrivals, moved.stayed, dist_deaths, self._arriving)
@@ -434,7 +434,7 @@ class Replicate:
         row[0, F_IMMIG] = in_p[0] - stay
         row[0, F_LOSS] = out_p[0] - in_p[0]
 
-    def _move(self, streams: YearStreams, k: np.ndarray) -> Moved:
+    def move(self, streams: YearStreams, k: np.ndarray) -> Moved:
         """The emigrants of every dispersing class moved, each class on its own streams
         (``arrivals``: (A, ny, nx), one field per dispersing class)."""
         mover = self.model.movement.mover  # type: ignore[union-attr]

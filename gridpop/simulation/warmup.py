@@ -7,9 +7,11 @@ of the yearly cycle between two processes, in two halves of about the same compi
 
 - a helper process, forked from the run, takes one year of the model without environmental
   noise, disturbance and management: that compiles the growth pass (the largest kernel, with
-  the growth, emigration and random number kernels it calls) and the movement kernels, whose
-  arguments have the same types as in the whole model;
-- meanwhile the run's own process takes the census of year 0 and the conditions of years 1 and 2
+  the growth, emigration and random number kernels it calls) and then the movement kernels,
+  whose arguments have the same types as in the whole model;
+- meanwhile the run's own process moves year 1's emigrants (none yet, so only the movement
+  kernels are compiled, long before the helper reaches them and loads them from the cache),
+  and takes the census of year 0 and the conditions of years 1 and 2
   (:meth:`gridpop.simulation.cycle.Replicate.conditions`: environment, disturbance,
   management): that compiles the census, the environmental noise and the disturbance kernels,
   while the connectivity table's thread compiles its own;
@@ -121,12 +123,16 @@ def _thread_pool_started() -> bool:
 
 
 def _census_and_conditions(model: Model, scratch: Path) -> None:
-    """The run's share: the census of year 0 and the conditions of years 1 and 2 (the
-    environmental noise of year 2 follows on that of year 1)."""
+    """The run's share: the census of year 0, the conditions of year 1, the movement of year
+    1's emigrants (none: the replicate has not grown yet; the helper reaches these kernels last
+    and finds them in the cache) and the conditions of year 2 (whose environmental noise
+    follows on that of year 1)."""
     sink = BatchSink(scratch, model, range(1))
     rep = Replicate(model, 0, sink.ledger[0])
     rep.start(sink)
-    rep.conditions(1, sink)
+    year1 = rep.conditions(1, sink)
+    if model.movement is not None:
+        rep.move(year1.streams, year1.k)  # nobody is leaving yet: it compiles, nothing moves
     rep.conditions(2, sink)
 
 
