@@ -238,6 +238,14 @@ warmup._growth_and_movement = lambda model, scratch: time.sleep(2.0)
 def killed(model, scratch):
     os.kill(os.getpid(), signal.SIGKILL)  # the run dies during its share
 
+helper = warmup._helper
+
+def late(*args):  # the helper starts after its run died, as it may on a loaded machine
+    time.sleep(1.0)
+    helper(*args)
+
+warmup._helper = late
+
 warmup._census_and_conditions = killed
 run(load_scenario(sys.argv[1]), Path(sys.argv[2]))
 """
@@ -246,7 +254,8 @@ run(load_scenario(sys.argv[1]), Path(sys.argv[2]))
 @pytest.mark.slow
 def test_helper_of_a_killed_run_removes_the_scratch_folder(make_scenario, tmp_path):
     """A run killed (SIGKILL) during the warm-up cannot remove its scratch folder; its helper,
-    left without a parent, finishes its share and removes the folder on its way out."""
+    left without a parent, finishes its share and removes the folder on its way out, even when
+    the run died before the helper started."""
     scen = make_scenario(scenario_text(years=2, replicates=1))
     env = {**os.environ, "TMPDIR": str(tmp_path)}
     done = subprocess.run([sys.executable, "-c", KILLED, str(scen), str(tmp_path / "out")],

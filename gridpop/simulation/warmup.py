@@ -78,7 +78,7 @@ def kernels_compiled(model: Model, wanted: bool = True):
         return
     with tempfile.TemporaryDirectory(prefix="gridpop-compile-") as scratch:
         helper = multiprocessing.get_context("fork").Process(
-            target=_helper, args=(model, Path(scratch) / "helper"), daemon=True)
+            target=_helper, args=(model, Path(scratch) / "helper", os.getpid()), daemon=True)
         helper.start()
         try:
             yield
@@ -145,10 +145,10 @@ def _growth_and_movement(model: Model, scratch: Path) -> None:
     Replicate(plain, 0, sink.ledger[0]).advance(1, sink)
 
 
-def _helper(model: Model, scratch: Path) -> None:
-    """The helper process: quiet, deaf to Ctrl-C, stopped by SIGTERM. A helper whose run was
-    killed (its parent gone) removes the scratch folder, which the run would have removed."""
-    run = os.getppid()
+def _helper(model: Model, scratch: Path, run: int) -> None:
+    """The helper process: quiet, deaf to Ctrl-C, stopped by SIGTERM. A helper whose run (the
+    process ``run``, taken before the fork: the run may be killed before the helper starts) was
+    killed removes the scratch folder, which the run would have removed."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.signal(signal.SIGTERM, _raise_stopped)
     quiet = os.open(os.devnull, os.O_WRONLY)
