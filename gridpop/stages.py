@@ -257,10 +257,9 @@ def stage_row(n, k, env, out, births, deaths, dens, model, theta, allee_a, st, s
 @pjit(grid="before")
 def share_deaths(before, after, n, stochastic):
     """Share a cell's disturbance deaths among its classes: ``before``/``after`` the cell
-    totals, ``n`` (C, ny, nx) the counts before (a grid-shaped array first: it sizes the
-    serial or parallel variant). Proportional shares; with whole individuals each
-    class loses the whole part of its share and the remaining deaths go to the classes with the
-    largest remainders (the total stays exact)."""
+    totals, ``n`` (C, ny, nx) the counts before. Proportional shares; with whole individuals
+    each class loses the whole part of its share and the remaining deaths go to the classes
+    with the largest remainders (the total stays exact)."""
     classes, ny, nx = n.shape
     for i in prange(ny):
         rem = np.empty(classes)

@@ -33,7 +33,7 @@ from .placement import (
     draw_cell,
     edge_map,
     entry_buffers,
-    row_work,
+    work_cuts,
 )
 
 
@@ -195,10 +195,7 @@ def _blocks(d: np.ndarray, multinomial_min: float, blocks: int) -> tuple[np.ndar
     for its list entries: one per landing at most, so at most one per disperser and
     ``multinomial_min`` per cell (:func:`draw_cell`)."""
     ny = d.shape[0]
-    work = np.empty(ny)
-    row_work(d, multinomial_min, work)
-    cum = np.concatenate([[0.0], np.cumsum(work)])
-    cuts = np.searchsorted(cum, cum[-1] * np.arange(1, blocks) / blocks)
+    work, cuts = work_cuts(d, multinomial_min, blocks)
     bounds = np.unique(np.concatenate([[0], cuts[(cuts > 0) & (cuts < ny)], [ny]]))
     return bounds, np.ceil(np.add.reduceat(work, bounds[:-1])).astype(np.int64)
 

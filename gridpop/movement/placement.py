@@ -177,7 +177,7 @@ def _disperse_stochastic_kernel(dispersers, settle, labels, n_patches, offsets, 
 
 
 @pjit(grid="dispersers")
-def row_work(dispersers, multinomial_min, work):
+def _row_work(dispersers, multinomial_min, work):
     """Work of each row: dispersers placed one by one, or stencil cells of a multinomial."""
     ny, nx = dispersers.shape
     for i in prange(ny):
@@ -191,14 +191,21 @@ BLOCKS_PER_THREAD = 8
 """Row blocks of the stochastic engine per numba thread and parity (load balance)."""
 
 
+def work_cuts(dispersers: np.ndarray, multinomial_min: float,
+              blocks: int) -> tuple[np.ndarray, np.ndarray]:
+    """Each row's work (:func:`_row_work`) and the ``blocks - 1`` rows at which blocks of about
+    equal work would start (sorted; may repeat, may be 0 or ``ny``)."""
+    work = np.empty(dispersers.shape[0])
+    _row_work(dispersers, multinomial_min, work)
+    cum = np.concatenate([[0.0], np.cumsum(work)])
+    return work, np.searchsorted(cum, cum[-1] * np.arange(1, blocks) / blocks)
+
+
 def _row_blocks(dispersers: np.ndarray, multinomial_min: float, ry: int) -> np.ndarray:
     """Bounds of row blocks of about equal work, each but the last at least 2 ry rows high."""
     ny = dispersers.shape[0]
-    work = np.empty(ny)
-    row_work(dispersers, multinomial_min, work)
-    cum = np.concatenate([[0.0], np.cumsum(work)])
-    nb = 2 * BLOCKS_PER_THREAD * numba.get_num_threads()
-    cuts = np.searchsorted(cum, cum[-1] * np.arange(1, nb) / nb)
+    _, cuts = work_cuts(dispersers, multinomial_min, 2 * BLOCKS_PER_THREAD *
+                        numba.get_num_threads())
     bounds = [0]
     for c in cuts:
         if c >= bounds[-1] + max(2 * ry, 1) and c < ny:
